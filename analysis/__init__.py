@@ -1,0 +1,1 @@
+"""Pure numerical estimation of selection: no file, database or Textual access."""

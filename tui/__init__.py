@@ -1,0 +1,1 @@
+"""The fieldslope dashboard (Textual) and command line."""
