@@ -1,0 +1,47 @@
+"""The one place where the protocol, the store and the estimators meet.
+
+The command line and the dashboard both call these functions, so there is a
+single path from stored records to numbers.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Callable
+
+from analysis.design import Design
+from schemas.protocol import Protocol
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+
+def design_from_protocol(protocol: Protocol) -> Design:
+    """The estimators' view of a protocol: which columns are traits, fitness, groups and parents."""
+    return Design(
+        traits=protocol.trait_names,
+        fitness={name: protocol.fitness[name].kind for name in protocol.component_names},
+        totals=dict(protocol.totals),
+        id=protocol.id_col,
+        season=protocol.season_col,
+        groups=protocol.groups,
+        mother=protocol.mother,
+        father=protocol.father,
+    )
+
+
+def estimates_for_frame(
+    frame: "pd.DataFrame",
+    protocol: Protocol,
+    *,
+    bootstrap: int = 2000,
+    seed: int | None = None,
+    h2: dict | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+):
+    """Estimates for an effective-data frame (see DEVELOPERS.md for its columns)."""
+    from analysis.table import estimate_table  # heavy: imported on first use
+
+    kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2}
+    if seed is not None:
+        kwargs["seed"] = seed
+    return estimate_table(frame, design_from_protocol(protocol), **kwargs)
