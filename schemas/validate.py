@@ -1,0 +1,312 @@
+"""Checks of one sheet against the protocol, before anything is stored.
+
+Three outcomes, as the intake rules ask:
+
+* the file is refused whole (:class:`SheetError`): no ID or season column, or a
+  column the protocol does not know;
+* hard errors, one :class:`RowError` per bad cell (sheet row, column, value,
+  reason): the row is refused;
+* soft flags, one :class:`FlagNote` per finding on an accepted row (refused
+  rows get their errors only): ``out_of_range``, ``missing_fitness`` (one flag
+  per blank component, so each can be resolved by setting that one value; a
+  component column left wholly blank was not measured in this batch and is not
+  flagged), ``duplicate_id`` (every row of the pair) and ``mangled_id``.
+
+Numbers are converted here (decimal comma honoured) so that one bad cell is
+reported by itself and the other cells of its column are still checked; the
+value rules then run as one pandera schema built from the protocol.
+"""
+
+from __future__ import annotations
+
+import difflib
+from functools import lru_cache
+
+import numpy as np
+import pandas as pd
+import pandera.pandas as pa
+
+from schemas.errors import SheetError
+from schemas.id_checks import mangled_id_reasons
+from schemas.protocol import Protocol
+from schemas.records import CheckReport, FlagNote, RowError, Sheet
+
+OPTIONAL_TEXT = ("date", "observer", "notes")
+
+
+# -- which column is what ----------------------------------------------------
+
+class _Roles:
+    """The sheet's columns sorted by their meaning in the protocol."""
+
+    def __init__(self, protocol: Protocol, columns: list[str], label: str):
+        self.id, self.season = protocol.id_col, protocol.season_col
+        missing = [c for c in (self.id, self.season) if c not in columns]
+        if missing:
+            what = " and ".join(f"{c!r} ({'ID' if c == self.id else 'season'})" for c in missing)
+            raise SheetError(f"{label}: the header has no {what} column; every batch needs the ID and season "
+                             "columns named as in protocol.toml.")
+        self.groups = [c for c in protocol.groups if c in columns]
+        self.traits = [c for c in protocol.trait_names if c in columns]
+        self.components = [c for c in protocol.component_names if c in columns]
+        self.parents = [c for c in protocol.parent_cols if c in columns]
+        self.extra: dict[str, str] = {}   # sheet name -> canonical optional name
+        known = {self.id, self.season, *self.groups, *self.traits, *self.components, *self.parents}
+        totals = [c for c in columns if c in protocol.totals]
+        if totals:
+            c = totals[0]
+            raise SheetError(f"{label}: column {c!r} is the product of {' × '.join(protocol.totals[c])}, "
+                             "which is computed, not imported; delete it from the sheet and keep its components.")
+        unknown = []
+        for c in columns:
+            if c in known:
+                continue
+            if c.lower() in OPTIONAL_TEXT and c.lower() not in self.extra.values():
+                self.extra[c] = c.lower()
+            else:
+                unknown.append(c)
+        if unknown:
+            raise SheetError(_unknown_sentence(protocol, label, unknown))
+
+    @property
+    def numeric(self) -> list[str]:
+        return [*self.traits, *self.components]
+
+    @property
+    def text(self) -> list[str]:
+        return [self.id, self.season, *self.groups, *self.parents, *self.extra]
+
+
+def _unknown_sentence(protocol: Protocol, label: str, unknown: list[str]) -> str:
+    names = [protocol.id_col, protocol.season_col, *protocol.groups, *protocol.trait_names,
+             *protocol.component_names, *protocol.parent_cols, *OPTIONAL_TEXT]
+    c = unknown[0]
+    lower = {n.lower(): n for n in names}
+    near = [lower[c.lower()]] if c.lower() in lower else difflib.get_close_matches(c, names, n=1, cutoff=0.75)
+    hint = f"rename it to {near[0]!r} if that is meant, or " if near else "rename it to a protocol column or "
+    others = f" (also {', '.join(map(repr, unknown[1:]))})" if len(unknown) > 1 else ""
+    return (f"{label}: column {c!r}{others} is not in the protocol; {hint}add it to protocol.toml "
+            "as a trait or fitness component.")
+
+
+# -- the pandera schema (built once per protocol) -------------------------------
+
+def _finite(s: pd.Series) -> pd.Series:
+    return pd.Series(np.isfinite(s.to_numpy(dtype=float)), index=s.index)
+
+
+def _not_negative(s: pd.Series) -> pd.Series:
+    return s >= 0
+
+
+def _whole(s: pd.Series) -> pd.Series:
+    return s == np.floor(s)
+
+
+def _binary(s: pd.Series) -> pd.Series:
+    return s.isin((0.0, 1.0))
+
+
+_REASONS_NOT_NULL = {"id": "the ID is missing; fill it in or delete the row",
+                     "season": "the season is missing; fill in the year"}
+
+
+def _protocol_key(protocol: Protocol) -> tuple:
+    """Everything the value rules depend on, as a hashable key for the schema cache."""
+    return (
+        protocol.id_col, protocol.season_col, tuple(protocol.groups), tuple(protocol.trait_names),
+        tuple((n, protocol.fitness[n].kind) for n in protocol.component_names), tuple(protocol.parent_cols),
+        tuple(sorted(protocol.allowed.items())),
+    )
+
+
+@lru_cache(maxsize=16)
+def _schema(key: tuple) -> tuple[pa.DataFrameSchema, dict[tuple[str, int], str]]:
+    """The value rules as a pandera schema, and the reason sentence for each (column, check number)."""
+    id_col, season_col, groups, traits, components, parents, allowed_items = key
+    allowed = dict(allowed_items)
+    columns: dict[str, pa.Column] = {}
+    reasons: dict[tuple[str, int], str] = {}
+
+    def add(name: str, *, required: bool, numeric: bool, rules: list[tuple[pa.Check, str]]) -> None:
+        if name in allowed:
+            values = allowed[name]
+            if numeric:
+                values = tuple(float(v) for v in values if _is_number(v))
+            rules = [*rules, (pa.Check.isin(values), f"is not allowed for {name} (allowed: {', '.join(allowed[name])})")]
+        columns[name] = pa.Column("float64" if numeric else None, nullable=not required, required=required,
+                                  checks=[c for c, _ in rules])
+        for i, (_, reason) in enumerate(rules):
+            reasons[(name, i)] = reason
+
+    add(id_col, required=True, numeric=False, rules=[])
+    add(season_col, required=True, numeric=False,
+        rules=[(pa.Check.str_matches(r"^\d{4}$"), "is not a year; write the season as four digits, e.g. 2025")])
+    for name in (*groups, *parents):
+        add(name, required=False, numeric=False, rules=[])
+    finite = (pa.Check(_finite), "is not a finite number")
+    for name in traits:
+        add(name, required=False, numeric=True, rules=[finite])
+    for name, kind in components:
+        if kind == "binary":
+            rules = [(pa.Check(_binary), "must be 0 or 1 (binary fitness)")]
+        elif kind == "count":
+            rules = [finite, (pa.Check(_not_negative), "is negative; a count is 0 or more"),
+                     (pa.Check(_whole), "is not a whole number; a count is 0, 1, 2, ...")]
+        else:
+            rules = [finite, (pa.Check(_not_negative), "is negative; fitness cannot be below 0")]
+        add(name, required=False, numeric=True, rules=rules)
+    reasons[(id_col, -1)] = _REASONS_NOT_NULL["id"]
+    reasons[(season_col, -1)] = _REASONS_NOT_NULL["season"]
+    return pa.DataFrameSchema(columns, strict=False, coerce=False), reasons
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+# -- numbers ---------------------------------------------------------------------
+
+def _to_numbers(text: pd.Series, decimal: str) -> tuple[pd.Series, pd.Series, str]:
+    """(floats, mask of filled cells that are not numbers, reason for those)."""
+    present = text.notna()
+    if decimal == ",":
+        ambiguous = present & text.str.contains(".", regex=False).fillna(False).astype(bool)
+        numbers = pd.to_numeric(text.str.replace(",", ".", regex=False).where(~ambiguous), errors="coerce")
+        reason = ("is not a number; this file writes decimals with a comma (12,5), "
+                  "so a point or other character here is ambiguous")
+    else:
+        numbers = pd.to_numeric(text, errors="coerce")
+        reason = "is not a number; write digits with a decimal point (12.5)"
+    numbers = numbers.astype("float64")
+    literal_nan = present & numbers.isna()
+    return numbers, literal_nan, reason
+
+
+# -- the check -------------------------------------------------------------------
+
+def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
+    """Check one sheet; raise :class:`SheetError` when the file must be refused whole."""
+    frame = sheet.frame.reset_index(drop=True)
+    roles = _Roles(protocol, [str(c) for c in frame.columns], sheet.name)
+    rows = np.asarray(sheet.row_numbers, dtype=np.int64)
+    codes = [c for c in protocol.missing_codes if c]
+
+    text: dict[str, pd.Series] = {}
+    for col in frame.columns:
+        s = frame[col].astype(object)
+        s = s.where(s.notna(), None)
+        if codes:
+            s = s.mask(s.isin(codes), None)
+        text[col] = s
+
+    errors: list[RowError] = []
+    typed: dict[str, pd.Series] = {}
+    for col in roles.text:
+        typed[col] = text[col]
+    for col in roles.numeric:
+        numbers, bad, reason = _to_numbers(text[col], sheet.decimal)
+        typed[col] = numbers
+        for pos in np.flatnonzero(bad.to_numpy()):
+            errors.append(RowError(int(rows[pos]), col, str(text[col].iat[pos]), reason))
+
+    errors.extend(_rule_errors(protocol, typed, text, rows))
+    position = {c: i for i, c in enumerate(frame.columns)}
+    errors.sort(key=lambda e: (e.row, position.get(e.column, -1)))
+    bad_rows = sorted({e.row for e in errors})
+    good = ~np.isin(rows, bad_rows)
+
+    order = [c for c in frame.columns if c in typed]
+    valid = pd.DataFrame({(roles.extra.get(c, c)): typed[c][good].reset_index(drop=True) for c in order})
+    valid["_row"] = rows[good]
+    for col in roles.text:
+        name = roles.extra.get(col, col)
+        valid[name] = valid[name].astype(object)
+    flags = _flags(protocol, roles, valid, text, good)
+    census = not roles.traits and bool(roles.components)
+    return CheckReport(sheet=sheet, valid=valid, errors=errors, flags=flags, bad_rows=bad_rows, census=census)
+
+
+def _rule_errors(protocol: Protocol, typed: dict[str, pd.Series], text: dict[str, pd.Series],
+                 rows: np.ndarray) -> list[RowError]:
+    schema, reasons = _schema(_protocol_key(protocol))
+    frame = pd.DataFrame(typed)
+    try:
+        schema.validate(frame, lazy=True)
+    except pa.errors.SchemaErrors as exc:
+        cases = exc.failure_cases
+    else:
+        return []
+    out = []
+    for col, check, number, index in zip(cases["column"], cases["check"], cases["check_number"], cases["index"]):
+        if pd.isna(index) or col not in text:
+            # a frame-level failure would mean the schema and the roles disagree: a bug, not bad data
+            raise AssertionError(f"unexpected frame-level check failure: {col} {check}")
+        pos = int(index)
+        if check == "not_nullable":
+            reason = reasons.get((col, -1), "is missing")
+        else:
+            reason = reasons[(col, int(number))]
+        value = text[col].iat[pos]
+        out.append(RowError(int(rows[pos]), col, "" if value is None else str(value), reason))
+    return out
+
+
+# -- soft flags ------------------------------------------------------------------
+
+def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[str, pd.Series],
+           good: np.ndarray) -> list[FlagNote]:
+    if valid.empty:
+        return []
+    ids = valid[roles.id].to_numpy(dtype=object)
+    seasons = valid[roles.season].to_numpy(dtype=object)
+    rows = valid["_row"].to_numpy()
+    flags: list[FlagNote] = []
+
+    def note(i: int, field: str, kind: str, value: str, message: str) -> None:
+        flags.append(FlagNote(int(rows[i]), str(ids[i]), str(seasons[i]), field, kind, value, message))
+
+    for col in roles.traits:
+        spec = protocol.traits[col]
+        values = valid[col].to_numpy()
+        lo = -np.inf if spec.min is None else spec.min
+        hi = np.inf if spec.max is None else spec.max
+        with np.errstate(invalid="ignore"):
+            outside = ~np.isnan(values) & ((values < lo) | (values > hi))
+        shown = text[col][good].to_numpy(dtype=object)
+        unit = f" {spec.unit}" if spec.unit else ""
+        span = f"{'' if spec.min is None else f'{spec.min:g}'}–{'' if spec.max is None else f'{spec.max:g}'}{unit}"
+        for i in np.flatnonzero(outside):
+            note(i, col, "out_of_range", str(shown[i]),
+                 f"{col} = {shown[i]}{unit} is outside the plausible range {span}; check the sheet, then keep, "
+                 "correct or exclude it.")
+
+    for col in roles.components:
+        blank = np.isnan(valid[col].to_numpy())
+        if blank.all():
+            continue   # a column left wholly blank was not measured in this batch: nothing to flag
+        for i in np.flatnonzero(blank):
+            note(i, col, "missing_fitness", "",
+                 f"{col} is blank for {ids[i]} in {seasons[i]}; fill it in (or a later census will).")
+
+    keys = pd.Series(list(zip(ids, seasons)))
+    dup = keys.duplicated(keep=False).to_numpy()
+    if dup.any():
+        groups: dict[tuple, list[int]] = {}
+        for i in np.flatnonzero(dup):
+            groups.setdefault(keys.iat[i], []).append(int(rows[i]))
+        for i in np.flatnonzero(dup):
+            where = ", ".join(map(str, groups[keys.iat[i]]))
+            note(i, "", "duplicate_id", str(ids[i]),
+                 f"ID {ids[i]} appears more than once for season {seasons[i]} (rows {where}); "
+                 "keep the right row and exclude or correct the others.")
+
+    for i, reason in mangled_id_reasons(ids):
+        note(i, roles.id, "mangled_id", str(ids[i]),
+             f"ID {ids[i]!r} {reason}; check it against the paper sheet and correct it.")
+    flags.sort(key=lambda f: f.row)
+    return flags

@@ -1,0 +1,90 @@
+"""XLSX workbooks as rows of text cells (first worksheet, read-only, XML parsed by defusedxml).
+
+Spreadsheet cell types become the text a person sees: dates as ISO text
+(YYYY-MM-DD), whole numbers without a spurious ".0".
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import io
+import math
+import warnings
+import zipfile
+from collections.abc import Iterator
+
+from schemas.errors import SheetError
+
+MAX_UNPACKED = 500 * 1024 * 1024   # a workbook unpacking to more than this is refused (zip bomb)
+_INCOMPLETE = ("the workbook is incomplete (still being written or damaged); "
+               "wait until it is fully saved or copied, then import it again.")
+
+
+def cell_text(value: object) -> str | None:
+    """One spreadsheet value as text, or None when blank."""
+    if value is None:
+        return None
+    if isinstance(value, str):
+        return value
+    if isinstance(value, bool):
+        return "TRUE" if value else "FALSE"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return str(value)
+        if value.is_integer() and abs(value) < 1e16:
+            return str(int(value))
+        return repr(value)
+    if isinstance(value, dt.datetime):
+        if value.time() == dt.time(0, 0):
+            return value.date().isoformat()
+        return value.isoformat(sep=" ", timespec="seconds")
+    if isinstance(value, (dt.date, dt.time)):
+        return value.isoformat()
+    return str(value)
+
+
+def _check_archive(label: str, data: bytes) -> None:
+    try:
+        with zipfile.ZipFile(io.BytesIO(data)) as zf:
+            infos = zf.infolist()
+    except (zipfile.BadZipFile, zipfile.LargeZipFile, OSError, ValueError, EOFError):
+        raise SheetError(f"{label}: {_INCOMPLETE}") from None
+    names = {info.filename for info in infos}
+    if "xl/workbook.xml" not in names:
+        if "mimetype" in names or "content.xml" in names:
+            raise SheetError(f"{label}: this is an OpenDocument spreadsheet; save it as .xlsx or CSV.")
+        raise SheetError(f"{label}: this is a zip archive, not an XLSX workbook; import the sheet itself.")
+    if sum(info.file_size for info in infos) > MAX_UNPACKED:
+        raise SheetError(f"{label}: the workbook unpacks to more than {MAX_UNPACKED // 2**20} MB; "
+                         "save the sheet as CSV or split it.")
+
+
+def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> Iterator[tuple[int, list[str | None]]]:
+    """Yield (sheet row, cells) for the first worksheet; raise SheetError when unreadable."""
+    _check_archive(label, data)
+    import openpyxl  # slow import: only when a workbook arrives
+
+    rows: list[tuple[int, list[str | None]]] = []
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            wb = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
+            try:
+                if not wb.worksheets:
+                    raise SheetError(f"{label}: the workbook has no worksheet; save the sheet with its data.")
+                ws = wb.worksheets[0]
+                if hasattr(ws, "reset_dimensions"):
+                    ws.reset_dimensions()   # stored dimensions may be wrong; read what is there
+                for number, values in enumerate(ws.iter_rows(min_row=1, values_only=True), start=1):
+                    if number > max_rows + 1 and any(v is not None for v in values):
+                        raise SheetError(f"{label}: more than {max_rows:,} data rows; split it into smaller batches.")
+                    rows.append((number, [cell_text(v) for v in values]))
+            finally:
+                wb.close()
+    except SheetError:
+        raise
+    except Exception:  # noqa: BLE001 - any parser failure of a damaged workbook means the same to the user
+        raise SheetError(f"{label}: {_INCOMPLETE}") from None
+    yield from rows
