@@ -1,0 +1,130 @@
+"""Splitting the effective data into seasons, cells and analysis samples.
+
+A cell is one season and one value of each group column. For every fitness
+measure a cell yields up to three kinds of sample: the individuals with that
+fitness value (opportunity), those with fitness and one trait (per-trait
+quantities), and the complete cases (models with all traits).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from analysis.design import Design
+from analysis.fitness import is_binary
+
+MIN_SINGLE = 3  # individuals for a per-trait differential with a standard error
+
+
+@dataclass(frozen=True)
+class Cell:
+    season: str
+    site: str
+    z: np.ndarray  # individuals x traits, raw units, NaN = missing
+    fitness: dict[str, np.ndarray]  # absolute fitness per measure, NaN = missing
+
+
+@dataclass(frozen=True)
+class Sample:
+    """One analysis sample of one cell: rows (positions in the cell), traits and absolute fitness."""
+
+    rows: np.ndarray
+    z: np.ndarray
+    W: np.ndarray
+
+
+@dataclass
+class Prepared:
+    """The usable samples of one cell for one fitness measure, and why others are missing."""
+
+    cell: Cell
+    fitness: str
+    binary: bool
+    opp: Sample | None = None
+    single: list[Sample | None] = field(default_factory=list)
+    multi: Sample | None = None
+    n_missing: int = 0
+    notes: list[tuple[str, str]] = field(default_factory=list)  # (quantity, sentence)
+
+
+def natural_key(text: str) -> list:
+    """Sort key that orders '2' before '10' inside text."""
+    return [int(part) if part.isdigit() else part for part in re.split(r"(\d+)", text)]
+
+
+def split_cells(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -> dict[str, list[Cell]]:
+    """Cells per season (seasons and sites in natural order)."""
+    seasons = frame[design.season].astype(str)
+    if design.groups:
+        site = frame[list(design.groups)].astype(str).agg("/".join, axis=1)
+    else:
+        site = pd.Series("all", index=frame.index)
+    z_all = frame[list(design.traits)].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
+    w_all = {f: pd.to_numeric(frame[f], errors="coerce").to_numpy(dtype=float) for f in fitness_names}
+    out: dict[str, list[Cell]] = {}
+    keys = pd.DataFrame({"season": seasons.to_numpy(), "site": site.to_numpy()})
+    for season in sorted(keys["season"].unique(), key=natural_key):
+        cells = []
+        in_season = keys["season"].to_numpy() == season
+        for s in sorted(keys.loc[in_season, "site"].unique(), key=natural_key):
+            idx = np.flatnonzero(in_season & (keys["site"].to_numpy() == s))
+            cells.append(Cell(season, s, z_all[idx], {f: w[idx] for f, w in w_all.items()}))
+        out[season] = cells
+    return out
+
+
+def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Prepared:
+    """The samples of ``cell`` for ``fitness``; unusable ones are None with a note saying why."""
+    W = cell.fitness[fitness]
+    has_w = ~np.isnan(W)
+    where = f"in season {cell.season}, site {cell.site}"
+    prep = Prepared(cell=cell, fitness=fitness, binary=False, n_missing=int((~has_w).sum()))
+    if prep.n_missing:
+        prep.notes.append(("", f"{prep.n_missing} individuals {where} lack {fitness} and are left out of its analyses."))
+    p = len(traits)
+    prep.single = [None] * p
+    rows = np.flatnonzero(has_w)
+    if len(rows) < 2:
+        prep.notes.append(("", f"Only {len(rows)} individuals {where} have {fitness}; at least 2 are needed for any estimate."))
+        return prep
+    Wf = W[rows]
+    if Wf.mean() <= 0:
+        prep.notes.append(("", f"Mean {fitness} is 0 {where}, so relative fitness is undefined and nothing is estimated for it."))
+        return prep
+    if np.any(Wf < 0):
+        prep.notes.append(("", f"{fitness} has negative values {where}; fitness must be 0 or more, so nothing is estimated for it."))
+        return prep
+    prep.binary = kind == "binary" and is_binary(Wf)
+    prep.opp = Sample(rows, cell.z[rows], Wf)
+    for j, name in enumerate(traits):
+        r = np.flatnonzero(has_w & ~np.isnan(cell.z[:, j]))
+        if len(r) < MIN_SINGLE:
+            prep.notes.append(("differential", f"Only {len(r)} individuals {where} have {name} and {fitness}; at least {MIN_SINGLE} are needed for its differential."))
+            continue
+        zj = cell.z[r, j]
+        if np.ptp(zj) <= 1e-12 * max(1.0, np.abs(zj).max()):
+            prep.notes.append(("differential", f"{name} is constant {where}, so it cannot be standardized and has no differential for {fitness}."))
+            continue
+        if W[r].mean() <= 0:
+            prep.notes.append(("differential", f"Mean {fitness} is 0 among individuals {where} measured for {name}, so it has no differential."))
+            continue
+        prep.single[j] = Sample(r, cell.z[r][:, [j]], W[r])
+    complete = has_w & ~np.isnan(cell.z).any(axis=1)
+    r = np.flatnonzero(complete)
+    if len(r) < p + 2:
+        prep.notes.append(("gradient", f"Only {len(r)} individuals {where} have {fitness} and every trait; gradients need at least {p + 2}."))
+        return prep
+    zc = cell.z[r]
+    const = [traits[j] for j in range(p) if np.ptp(zc[:, j]) <= 1e-12 * max(1.0, np.abs(zc[:, j]).max())]
+    if const:
+        prep.notes.append(("gradient", f"{', '.join(const)} is constant among complete cases {where}, so no gradients are estimated for {fitness}."))
+        return prep
+    if W[r].mean() <= 0:
+        prep.notes.append(("gradient", f"Mean {fitness} is 0 among complete cases {where}, so no gradients are estimated."))
+        return prep
+    prep.multi = Sample(r, zc, W[r])
+    return prep

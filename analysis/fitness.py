@@ -1,0 +1,53 @@
+"""Fitness: totals as products of components, relative fitness, opportunity for selection."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from analysis.design import Design
+
+
+def add_totals(frame: pd.DataFrame, design: Design) -> pd.DataFrame:
+    """A copy of ``frame`` with one column per declared total (product of its components).
+
+    A total is 0 where any component is 0 (a dead individual has no later
+    fitness to multiply), otherwise missing where any component is missing.
+    """
+    out = frame.copy()
+    for name, parts in design.totals.items():
+        values = np.ones(len(out))
+        zero = np.zeros(len(out), dtype=bool)
+        missing = np.zeros(len(out), dtype=bool)
+        for part in parts:
+            col = pd.to_numeric(out[part], errors="coerce").to_numpy(dtype=float)
+            zero |= col == 0
+            missing |= np.isnan(col)
+            values = values * np.where(np.isnan(col), 1.0, col)
+        values[missing] = np.nan
+        values[zero] = 0.0
+        out[name] = values
+    return out
+
+
+def total_kind(design: Design, name: str) -> str:
+    """Kind of a fitness measure; a total is binary only if every component is."""
+    if name in design.fitness:
+        return design.fitness[name]
+    kinds = {design.fitness.get(p, "continuous") for p in design.totals[name]}
+    return "binary" if kinds == {"binary"} else "count" if kinds <= {"binary", "count"} else "continuous"
+
+
+def relative(w_abs: np.ndarray) -> np.ndarray:
+    """Relative fitness w = W / mean(W) (the caller makes sure mean(W) > 0)."""
+    return w_abs / w_abs.mean()
+
+
+def opportunity(w_abs: np.ndarray) -> float:
+    """Opportunity for selection I = variance of relative fitness, divisor n (Arnold & Wade 1984)."""
+    return float(np.var(relative(w_abs), ddof=0))
+
+
+def is_binary(values: np.ndarray) -> bool:
+    """True if every value is 0 or 1."""
+    return bool(np.all((values == 0) | (values == 1)))

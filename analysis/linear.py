@@ -1,0 +1,51 @@
+"""Ordinary least squares with classical standard errors, and selection differentials."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+# a design whose condition number exceeds this is treated as collinear
+CONDITION_LIMIT = 1e10
+
+
+@dataclass(frozen=True)
+class OLSFit:
+    coef: np.ndarray
+    se: np.ndarray
+    df_resid: int
+
+
+class Collinear(ValueError):
+    """The design matrix is (numerically) rank deficient."""
+
+
+def ols(X: np.ndarray, y: np.ndarray) -> OLSFit:
+    """Least-squares fit of ``y`` on the columns of ``X`` (include the intercept column yourself).
+
+    Standard errors are the classical ones: sqrt(diag((X'X)^-1) * RSS / (n - k)).
+    Raises ``Collinear`` when the columns are linearly dependent and ValueError
+    when there are no residual degrees of freedom.
+    """
+    n, k = X.shape
+    if n <= k:
+        raise ValueError("no residual degrees of freedom")
+    # scale columns so the condition number reflects dependence, not units
+    scale = np.sqrt((X**2).sum(axis=0))
+    scale[scale == 0] = 1.0
+    Xs = X / scale
+    u, s, vt = np.linalg.svd(Xs, full_matrices=False)
+    if s[-1] <= 0 or s[0] / s[-1] > CONDITION_LIMIT:
+        raise Collinear("collinear design")
+    coef_s = vt.T @ ((u.T @ y) / s)
+    resid = y - Xs @ coef_s
+    df = n - k
+    sigma2 = float(resid @ resid) / df
+    cov_diag = ((vt.T / s) ** 2).sum(axis=1)
+    return OLSFit(coef=coef_s / scale, se=np.sqrt(cov_diag * sigma2) / scale, df_resid=df)
+
+
+def differential(z: np.ndarray, w: np.ndarray) -> float:
+    """Selection differential S = mean(w z) - mean(z) for relative fitness ``w``."""
+    return float(np.mean(w * z) - np.mean(z))

@@ -1,0 +1,144 @@
+"""The tidy estimates table: every number the tool reports, one row each, plus notes.
+
+``estimate_table`` is the one entry point the command line and the dashboard
+call. Columns are exactly ``COLUMNS``; quantities follow the binding
+estimation conventions (relative fitness within cells, traits standardized
+with sd of divisor n - 1, classical OLS standard errors, percentile bootstrap
+intervals and permutation p-values with a fixed default seed).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from analysis.cells import prepare, split_cells
+from analysis.design import Design
+from analysis.fitness import add_totals, total_kind
+from analysis.point import point_block
+from schemas.errors import FieldslopeError
+
+COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
+# the default random seed for bootstrap resamples and permutations (same seed, same numbers)
+DEFAULT_SEED = 20260601
+ALL = "all"
+
+
+class EstimationError(FieldslopeError):
+    """The data frame does not match the design (a named column is missing)."""
+
+
+@dataclass(frozen=True)
+class Note:
+    season: str
+    site: str
+    fitness: str
+    quantity: str
+    message: str
+
+
+@dataclass(frozen=True)
+class Estimates:
+    table: pd.DataFrame
+    notes: tuple[Note, ...]
+
+    def to_csv_text(self) -> str:
+        """The table as CSV text with the binding header (no file is written)."""
+        return self.table.to_csv(index=False, lineterminator="\n")
+
+    def to_json_obj(self) -> list[dict]:
+        """The table as a list of plain dicts; missing numbers are None."""
+        out = []
+        for rec in self.table.to_dict(orient="records"):
+            clean = {}
+            for k, v in rec.items():
+                if isinstance(v, float) and math.isnan(v):
+                    v = None
+                elif isinstance(v, (np.integer,)):
+                    v = int(v)
+                elif isinstance(v, (np.floating,)):
+                    v = float(v)
+                clean[k] = v
+            out.append(clean)
+        return out
+
+
+def check_frame(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -> None:
+    needed = [design.id, design.season, *design.groups, *design.traits, *design.fitness]
+    missing = [c for c in needed if c not in frame.columns]
+    if missing:
+        raise EstimationError(
+            f"The data lack the column(s) {', '.join(missing)} named in the protocol; "
+            "add them to the batch files or correct the protocol."
+        )
+    unknown = [f for f in fitness_names if f not in design.fitness_names]
+    if unknown:
+        raise EstimationError(
+            f"Unknown fitness measure(s) {', '.join(unknown)}; choose from {', '.join(design.fitness_names)}."
+        )
+    for name, parts in design.totals.items():
+        absent = [p for p in parts if p not in frame.columns]
+        if absent:
+            raise EstimationError(f"The total {name} needs the column(s) {', '.join(absent)}, which the data lack.")
+
+
+def estimate_table(
+    frame: pd.DataFrame,
+    design: Design,
+    *,
+    bootstrap: int = 2000,
+    seed: int = DEFAULT_SEED,
+    permutations: int | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+    h2: dict[str, tuple[float, float | None, str]] | None = None,
+    genetic_correlations: dict[tuple[str, str], float] | None = None,
+    fitness: Sequence[str] | None = None,
+) -> Estimates:
+    """All estimates for the effective data ``frame`` under ``design``.
+
+    ``bootstrap`` resamples (0 = point estimates and OLS standard errors only,
+    the fast path for live panels) and ``permutations`` (default: as many as
+    resamples) drive the intervals and p-values; ``seed`` (default
+    ``DEFAULT_SEED`` = 20260601) makes them reproducible. ``h2`` holds entered
+    heritabilities per trait as (value, se or None, source); estimated ones
+    from parent-offspring data take precedence. ``genetic_correlations`` maps
+    trait pairs to r_g (default: the phenotypic correlations, said in a note).
+    ``fitness`` picks the fitness measures (default all, totals included).
+    ``progress(done, total, label)`` is called during resampling.
+    """
+    fitness_names = list(fitness) if fitness is not None else list(design.fitness_names)
+    check_frame(frame, design, fitness_names)
+    permutations = bootstrap if permutations is None else permutations
+    with np.errstate(all="ignore"):
+        data = add_totals(frame, design)
+        seasons = split_cells(data, design, fitness_names)
+        rows: list[dict] = []
+        notes: list[Note] = []
+        blocks = []  # (season, site, fitness, preps) for resampling
+        for season, cells in seasons.items():
+            for f in fitness_names:
+                kind = total_kind(design, f)
+                preps = [prepare(c, f, kind, design.traits) for c in cells]
+                for pr in preps:
+                    notes.extend(Note(season, pr.cell.site, f, q, m) for q, m in pr.notes)
+                units = [(pr.cell.site, [pr]) for pr in preps]
+                if not (len(cells) == 1 and cells[0].site == ALL):
+                    units.append((ALL, preps))
+                for site, block in units:
+                    where = f"in season {season}, site {site}"
+                    res = point_block(block, design.traits, where)
+                    notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
+                    for r in res.rows:
+                        rows.append(
+                            dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
+                                 estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan,
+                                 p_value=np.nan, n=r.n)
+                        )
+                    blocks.append((season, site, f, block, res))
+    table = pd.DataFrame(rows, columns=COLUMNS)
+    table["n"] = table["n"].astype("Int64")
+    return Estimates(table=table, notes=tuple(notes))
