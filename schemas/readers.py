@@ -30,6 +30,11 @@ _ZIP_MAGIC = b"PK\x03\x04"
 _OLE_MAGIC = b"\xd0\xcf\x11\xe0"
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+$")
 _DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+$")
+_NON_ASCII_IN_WORD = re.compile(r"(?<=[^\W\d_])[^\x00-\x7f](?=[^\W\d_])")
+_LEGACY_NOTE = {
+    enc: f"not UTF-8: read as {what}; if accented letters look wrong, save the sheet as 'CSV UTF-8'."
+    for enc, what in (("cp1252", "Windows text (cp1252)"), ("mac_roman", "old Mac text (Mac Roman)"))
+}
 
 # Temporary names written by browsers, sync tools, editors and spreadsheets
 # while a file is still being written or is open.
@@ -68,9 +73,9 @@ def read_sheet(name: str, data: bytes) -> Sheet:
     sep = _guess_separator(text, ext)
     records = _csv_records(label, text, sep)
     sheet = _assemble(label, records, encoding=encoding, delimiter=sep)
-    if sep != "," and _uses_decimal_comma(sheet.frame):
-        sheet = Sheet(sheet.name, sheet.frame, sheet.row_numbers, sheet.encoding, sheet.delimiter, decimal=",")
-    return sheet
+    decimal = "," if sep != "," and _uses_decimal_comma(sheet.frame) else "."
+    notes = (_LEGACY_NOTE[encoding],) if encoding in _LEGACY_NOTE else ()
+    return Sheet(sheet.name, sheet.frame, sheet.row_numbers, encoding, sep, decimal=decimal, notes=notes)
 
 
 # -- text files ------------------------------------------------------------
@@ -103,19 +108,25 @@ def _decode(label: str, data: bytes) -> tuple[str, str]:
 def _decode_legacy(data: bytes) -> tuple[str, str]:
     """A spreadsheet's 8-bit export: Windows (cp1252) or old Mac (mac_roman).
 
-    The two agree on ASCII and differ on accented letters; the decoding that
-    yields more letters among the non-ASCII characters is the likelier one.
+    The two agree on ASCII and differ on accented letters. Inside a word
+    (between two letters) the right decoding gives a lowercase letter ("Müller")
+    where the wrong one gives a symbol or a capital ("M¸ller", "MŸller"); the
+    decoding with the better count wins, Windows on a tie. The encoding used is
+    recorded on the Sheet, with a note, so the choice is never silent.
     """
     try:
         win = data.decode("cp1252")
     except UnicodeDecodeError:
         return data.decode("mac_roman"), "mac_roman"
     mac = data.decode("mac_roman")
+    return (mac, "mac_roman") if _in_word_score(mac) > _in_word_score(win) else (win, "cp1252")
 
-    def letters(text: str) -> int:
-        return sum(1 for ch in text if ord(ch) > 127 and ch.isalpha())
 
-    return (mac, "mac_roman") if letters(mac) > letters(win) else (win, "cp1252")
+def _in_word_score(text: str) -> int:
+    score = 0
+    for match in _NON_ASCII_IN_WORD.finditer(text):
+        score += 1 if match.group().islower() else -1
+    return score
 
 
 def _first_line(text: str, limit: int = 65536) -> str:

@@ -17,6 +17,7 @@ class Sheet:
     encoding: str             # e.g. "utf-8", "utf-8-sig", "cp1252", "utf-16", "xlsx"
     delimiter: str            # "," ";" "\t" or "" for xlsx
     decimal: str = "."        # "." or ","
+    notes: tuple[str, ...] = ()   # remarks on how it was read, e.g. the encoding guessed
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,317 @@
+"""Batch readers: one generated fixture per field-sheet hazard.
+
+Every hazard is either read correctly (values compared with the text that was
+written) or refused with one SheetError sentence that says where.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import io
+
+import openpyxl
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from schemas import readers
+from schemas.errors import SheetError
+from schemas.readers import is_partial_name, read_sheet
+
+PLAIN = "tag,season,site,femur,notes\n0042,2025,Knoll Bench,11.5,NA\n0043,2025,Knoll Bench,12,None\n"
+
+
+def column(sheet, name):
+    return list(sheet.frame[name])
+
+
+def refused(name: str, data: bytes) -> str:
+    with pytest.raises(SheetError) as err:
+        read_sheet(name, data)
+    msg = str(err.value)
+    assert "\n" not in msg and msg.startswith(name.split("/")[-1])
+    return msg
+
+
+def xlsx_bytes(tmp_path, rows, *, at=None):
+    """An XLSX built with openpyxl: ``rows`` from A1, or ``at`` = {cell: value}."""
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    for r in rows:
+        ws.append(r)
+    for ref, value in (at or {}).items():
+        ws[ref] = value
+    path = tmp_path / "batch.xlsx"
+    wb.save(path)
+    return path.read_bytes()
+
+
+# -- text files ---------------------------------------------------------------------
+
+def test_plain_csv_keeps_ids_and_codes_as_text():
+    sheet = read_sheet("week1.csv", PLAIN.encode())
+    assert list(sheet.frame.columns) == ["tag", "season", "site", "femur", "notes"]
+    assert column(sheet, "tag") == ["0042", "0043"]
+    assert column(sheet, "notes") == ["NA", "None"]          # only protocol codes mean missing
+    assert column(sheet, "femur") == ["11.5", "12"]
+    assert sheet.row_numbers == [2, 3]
+    assert (sheet.encoding, sheet.delimiter, sheet.decimal) == ("utf-8", ",", ".")
+    assert all(dtype == object for dtype in sheet.frame.dtypes)
+
+
+def test_blank_rows_dropped_and_true_row_numbers_kept():
+    text = "tag,season\n\n0042,2025\n,\n  ,  \n0043,2025\n;;;\n"
+    sheet = read_sheet("b.csv", text.replace(";;;", ",").encode())
+    assert column(sheet, "tag") == ["0042", "0043"]
+    assert sheet.row_numbers == [3, 6]
+
+
+def test_blank_cells_are_none_and_cells_are_stripped():
+    sheet = read_sheet("b.csv", b"tag,season,femur\n 0042 ,2025,  \n")
+    assert column(sheet, "tag") == ["0042"] and column(sheet, "femur") == [None]
+
+
+def test_utf8_bom():
+    sheet = read_sheet("b.csv", b"\xef\xbb\xbf" + "tag,season,observer\n1,2025,Zoë\n".encode())
+    assert sheet.encoding == "utf-8-sig"
+    assert list(sheet.frame.columns) == ["tag", "season", "observer"]
+    assert column(sheet, "observer") == ["Zoë"]
+
+
+@pytest.mark.parametrize("name", ["Müller", "Sánchez", "Fläche", "Ølstrøm"])
+def test_cp1252_is_decoded_and_recorded(name):
+    data = f"tag,season,observer,notes\n1,2025,{name},“wet” – 5 €\n".encode("cp1252")
+    sheet = read_sheet("b.csv", data)
+    assert sheet.encoding == "cp1252"
+    assert column(sheet, "observer") == [name]
+    assert column(sheet, "notes") == ["“wet” – 5 €"]
+    assert any("cp1252" in n for n in sheet.notes)
+
+
+@pytest.mark.parametrize("name", ["Müller", "Sánchez", "Zürich", "Gençay"])
+def test_mac_roman_is_decoded_and_recorded(name):
+    sheet = read_sheet("b.csv", f"tag,season,observer\n1,2025,{name}\n".encode("mac_roman"))
+    assert sheet.encoding == "mac_roman"
+    assert column(sheet, "observer") == [name]
+
+
+@pytest.mark.parametrize("codec", ["utf-16-le", "utf-16-be"])
+def test_utf16_with_bom_tab_separated(codec):
+    bom = b"\xff\xfe" if codec.endswith("le") else b"\xfe\xff"
+    data = bom + "tag\tseason\tfemur\r\n007\t2025\t11.5\r\n".encode(codec)
+    sheet = read_sheet("export.txt", data)
+    assert (sheet.encoding, sheet.delimiter) == ("utf-16", "\t")
+    assert column(sheet, "tag") == ["007"] and column(sheet, "femur") == ["11.5"]
+
+
+def test_semicolon_with_decimal_comma():
+    sheet = read_sheet("b.csv", b"tag;season;femur;tibia\n1;2025;11,5;9\n2;2025;12,25;\n")
+    assert (sheet.delimiter, sheet.decimal) == (";", ",")
+    assert column(sheet, "femur") == ["11,5", "12,25"]      # conversion happens in the checks
+
+
+def test_semicolon_with_decimal_point():
+    sheet = read_sheet("b.csv", b"tag;season;femur\n1;2025;11.5\n")
+    assert (sheet.delimiter, sheet.decimal) == (";", ".")
+
+
+def test_tsv_by_extension_and_content():
+    sheet = read_sheet("b.tsv", b"tag\tseason\n1\t2025\n")
+    assert sheet.delimiter == "\t" and column(sheet, "season") == ["2025"]
+
+
+def test_quoted_newline_and_separator_inside_quotes():
+    text = 'tag,season,notes\n1,2025,"wing torn,\nleft side"\n2,2025,ok\n'
+    sheet = read_sheet("b.csv", text.encode())
+    assert column(sheet, "notes") == ["wing torn,\nleft side", "ok"]
+    assert sheet.row_numbers == [2, 3]    # a spreadsheet row, not a line of text
+
+
+def test_old_mac_line_endings():
+    sheet = read_sheet("b.csv", b"tag,season\r1,2025\r2,2025\r")
+    assert column(sheet, "tag") == ["1", "2"]
+
+
+def test_unterminated_quote_names_its_line():
+    msg = refused("b.csv", b'tag,season,notes\n1,2025,ok\n2,2025,"never closed\n3,2025,x\n4,2025,y\n')
+    assert "line 3" in msg and "quote" in msg
+
+
+def test_text_after_closing_quote_names_its_line():
+    assert "line 3" in refused("b.csv", b'tag,season\n1,2025\n"2"x,2025\n')
+
+
+def test_ragged_rows_are_named():
+    msg = refused("b.csv", b"tag,season,femur\n1,2025,3\n2,2025\n3,2025,4\n4,2025\n")
+    assert "rows 3, 5 have fewer cells" in msg
+    msg = refused("b.csv", b"tag,season\n1,2025\n2,2025,12\n")
+    assert "row 3 has more cells" in msg
+
+
+def test_trailing_empty_separators_are_not_ragged():
+    sheet = read_sheet("b.csv", b"tag;season;;\n1;2025;;\n2;2025;;\n;;;\n")
+    assert list(sheet.frame.columns) == ["tag", "season"] and len(sheet.frame) == 2
+
+
+def test_blank_header_with_data_is_named():
+    msg = refused("b.csv", b"tag,,season\n1,x,2025\n")
+    assert "column 2 (B)" in msg and "no name" in msg
+
+
+def test_duplicate_headers_are_named():
+    msg = refused("b.csv", b"tag,season,femur,femur\n1,2025,3,4\n")
+    assert "'femur' (column 3 (C) and column 4 (D))" in msg
+
+
+@pytest.mark.parametrize("data", [b"", b"   \n\n", b"\xef\xbb\xbf"])
+def test_empty_file(data):
+    assert "empty" in refused("b.csv", data) or "no header" in refused("b.csv", data)
+
+
+def test_header_without_rows():
+    assert "no data rows" in refused("b.csv", b"tag,season\n\n")
+
+
+def test_nul_bytes_refused():
+    assert "NUL" in refused("b.csv", b"tag,season\n1\x00,2025\n")
+
+
+def test_size_cap(monkeypatch):
+    monkeypatch.setattr(readers, "MAX_BYTES", 100)
+    assert "limit" in refused("b.csv", b"tag,season\n" + b"1,2025\n" * 20)
+
+
+def test_row_cap(monkeypatch):
+    monkeypatch.setattr(readers, "MAX_ROWS", 5)
+    assert "more than 5 data rows" in refused("b.csv", b"tag,season\n" + b"1,2025\n" * 6)
+    assert len(read_sheet("b.csv", b"tag,season\n" + b"1,2025\n" * 5).frame) == 5
+
+
+def test_old_xls_refused():
+    assert ".xls" in refused("b.xls", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 100)
+
+
+# -- workbooks ------------------------------------------------------------------------
+
+def test_xlsx_types_become_text(tmp_path):
+    data = xlsx_bytes(tmp_path, [
+        ["tag", "season", "femur", "pods", "date", "notes"],
+        ["0042", 2025, 11.5, 3, dt.datetime(2025, 6, 14), "NA"],
+        [43, 2025.0, 12.0, 0, dt.date(2025, 6, 15), True],
+    ])
+    sheet = read_sheet("week1.xlsx", data)
+    assert sheet.encoding == "xlsx" and sheet.delimiter == ""
+    assert column(sheet, "tag") == ["0042", "43"]
+    assert column(sheet, "season") == ["2025", "2025"]      # no spurious ".0"
+    assert column(sheet, "femur") == ["11.5", "12"]
+    assert column(sheet, "pods") == ["3", "0"]
+    assert column(sheet, "date") == ["2025-06-14", "2025-06-15"]
+    assert column(sheet, "notes") == ["NA", "TRUE"]
+    assert sheet.row_numbers == [2, 3]
+
+
+def test_xlsx_date_with_time_and_big_number(tmp_path):
+    data = xlsx_bytes(tmp_path, [["tag", "season", "date"], [2.31e13, 2025, dt.datetime(2025, 6, 14, 7, 30)]])
+    sheet = read_sheet("w.xlsx", data)
+    assert column(sheet, "tag") == ["23100000000000"]
+    assert column(sheet, "date") == ["2025-06-14 07:30:00"]
+
+
+def test_xlsx_gaps_keep_sheet_rows_and_offset_table(tmp_path):
+    data = xlsx_bytes(tmp_path, [], at={"B3": "tag", "C3": "season", "B4": "7", "C4": 2025, "B7": "8", "C7": 2025})
+    sheet = read_sheet("w.xlsx", data)
+    assert list(sheet.frame.columns) == ["tag", "season"]   # empty column A is not a column
+    assert sheet.row_numbers == [4, 7]
+
+
+def test_xlsx_data_beyond_header_is_refused(tmp_path):
+    data = xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025, "stray"]])
+    assert "row 2 has more cells" in refused("w.xlsx", data)
+
+
+def test_xlsx_truncated_is_incomplete(tmp_path):
+    data = xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025]])
+    for cut in (2, 30, len(data) // 2, len(data) - 5):
+        msg = refused("w.xlsx", data[:cut])
+        assert "incomplete (still being written or damaged)" in msg
+
+
+def test_xlsx_name_with_text_content():
+    assert "not a workbook" in refused("w.xlsx", b"tag,season\n1,2025\n")
+
+
+def test_zip_that_is_not_a_workbook(tmp_path):
+    import zipfile
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w") as zf:
+        zf.writestr("readme.txt", "hello")
+    assert "not an XLSX workbook" in refused("w.xlsx", buf.getvalue())
+
+
+def test_xlsx_zip_bomb_is_refused(tmp_path, monkeypatch):
+    from schemas import xlsx_cells
+    data = xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025]])
+    monkeypatch.setattr(xlsx_cells, "MAX_UNPACKED", 1000)
+    assert "unpacks to more than" in refused("w.xlsx", data)
+
+
+def test_openpyxl_parses_xml_with_defusedxml():
+    # Entity-expansion attacks in workbook XML are stopped only when defusedxml is used.
+    from openpyxl.xml import DEFUSEDXML
+    assert DEFUSEDXML is True
+
+
+# -- drop-folder names ------------------------------------------------------------------
+
+@pytest.mark.parametrize("name", [
+    "week3.csv.part", "week3.xlsx.filepart", "week3.csv.crdownload", "week3.tmp", "~$week3.xlsx",
+    ".~lock.week3.xlsx#", ".week3.csv", "intake/.DS_Store", "week3.csv~",
+])
+def test_partial_names(name):
+    assert is_partial_name(name)
+
+
+@pytest.mark.parametrize("name", ["week3.csv", "intake/week3.xlsx", "census_2025.tsv", "my.batch.csv"])
+def test_complete_names(name):
+    assert not is_partial_name(name)
+
+
+# -- anything at all: only SheetError ---------------------------------------------------------
+
+def _read_or_refuse(name: str, data: bytes) -> None:
+    try:
+        sheet = read_sheet(name, data)
+    except SheetError as err:
+        assert str(err) and "\n" not in str(err)
+        return
+    assert len(sheet.frame) == len(sheet.row_numbers) > 0
+    assert all(v is None or isinstance(v, str) for col in sheet.frame.columns for v in sheet.frame[col])
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.binary(max_size=400), st.sampled_from(["b.csv", "b.tsv", "b.xlsx", "b.txt", "b"]))
+def test_any_bytes_read_or_refused(data, name):
+    _read_or_refuse(name, data)
+
+
+_CSV_ALPHABET = st.sampled_from(list('ab01,;\t"\r\n .é') + ["2025", "NA", '""'])
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(_CSV_ALPHABET, max_size=80).map("".join), st.sampled_from(["utf-8", "cp1252", "utf-16"]))
+def test_malformed_csv_text_read_or_refused(text, codec):
+    _read_or_refuse("b.csv", text.encode(codec))
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.binary(min_size=1, max_size=60), st.integers(min_value=0, max_value=10_000))
+def test_damaged_workbook_read_or_refused(patch, where):
+    wb = openpyxl.Workbook()
+    wb.active.append(["tag", "season"])
+    wb.active.append(["1", 2025])
+    buf = io.BytesIO()
+    wb.save(buf)
+    data = bytearray(buf.getvalue())
+    where %= len(data)
+    data[where:where + len(patch)] = patch
+    _read_or_refuse("b.xlsx", bytes(data))
