@@ -29,12 +29,12 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 SEED = 51_2023
 TRUTH_SEED = 7_2025
-TRUTH_N = 2_000_000  # individuals per season for the true values (split evenly over the sites)
+TRUTH_N = 2_100_000  # individuals per season for the true values (700,000 at each site)
 
 # --- the invented population --------------------------------------------------------------
 SITES = {"UR": "Upper Ridge", "BS": "Birch Saddle", "MS": "Mosskettle Scree"}
 SEASONS = ("2023", "2024", "2025")
-N_PER_CELL = 450          # beetles marked per site and season
+N_PER_CELL = 600          # beetles marked per site and season
 PAIRS_PER_CELL = 100      # pairs from last season whose offspring are marked this season
 
 TRAITS = ("elytron", "mandible", "mass")
