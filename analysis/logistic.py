@@ -75,3 +75,67 @@ def fit_logistic(X: np.ndarray, y: np.ndarray) -> LogitFit:
 def logistic_gradient(coef: np.ndarray, p_hat: np.ndarray, w_abs: np.ndarray) -> np.ndarray:
     """Logistic selection gradient b_j * mean(p(1-p)) / mean(W) for the slope coefficients (Janzen & Stern 1998)."""
     return coef[1:] * np.mean(p_hat * (1 - p_hat)) / np.mean(w_abs)
+
+
+def batched_logistic(
+    cells: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]],
+    start: np.ndarray,
+    max_iter: int = 30,
+    tol: float = 1e-10,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Count-weighted logistic fits of many resamples at once (Newton's method, batched).
+
+    ``cells`` holds, per cell, the fixed design X~ (n x k, intercept first), the
+    0/1 outcome y (n), the counts C (B x n) and the affine map T (B x k x k)
+    taking X~ to the resample's standardized design (x = T x~). Coefficients
+    are on the standardized scale, pooled over the cells. Returns
+    (coefficients B x k, mean of p(1-p), mean of y, usable mask), the means
+    weighted by the counts.
+    """
+    beta = start.copy()
+    B, k = beta.shape
+    a, b = np.triu_indices(k)
+    prods = [X[:, a] * X[:, b] for X, _, _, _ in cells]
+    ok = np.ones(B, dtype=bool)
+    for _ in range(max_iter):
+        H = np.zeros((B, k, k))
+        g = np.zeros((B, k))
+        pq_sum = np.zeros(B)
+        n_sum = np.zeros(B)
+        y_sum = np.zeros(B)
+        for (X, y, C, T), prod in zip(cells, prods):
+            theta = np.einsum("bak,ba->bk", T, beta)
+            eta = theta @ X.T
+            ok &= np.abs(eta).max(axis=1, initial=0.0) < ETA_LIMIT
+            p = expit(eta)
+            pq = p * (1 - p)
+            Cpq = C * pq
+            Hz = np.empty((B, k, k))
+            packed = Cpq @ prod
+            Hz[:, a, b] = packed
+            Hz[:, b, a] = packed
+            gz = (C * (y - p)) @ X
+            H += T @ Hz @ np.swapaxes(T, 1, 2)
+            g += np.einsum("bij,bj->bi", T, gz)
+            pq_sum += Cpq.sum(axis=1)
+            n_sum += C.sum(axis=1)
+            y_sum += C @ y
+        H[~ok] = np.eye(k)
+        g[~ok] = 0.0
+        try:
+            step = np.linalg.solve(H, g[..., None])[..., 0]
+        except np.linalg.LinAlgError:
+            step = np.zeros_like(g)
+            for i in range(B):
+                try:
+                    step[i] = np.linalg.solve(H[i], g[i])
+                except np.linalg.LinAlgError:
+                    ok[i] = False
+        beta += step
+        done = np.abs(step).max(axis=1) < tol * np.maximum(1.0, np.abs(beta).max(axis=1))
+        if np.all(done | ~ok):
+            break
+    else:
+        ok &= done
+    beta[~ok] = np.nan
+    return beta, pq_sum / n_sum, y_sum / n_sum, ok

@@ -19,7 +19,9 @@ import pandas as pd
 from analysis.cells import prepare, split_cells
 from analysis.design import Design
 from analysis.fitness import add_totals, total_kind
+from analysis.permute import SeasonPermuter
 from analysis.point import point_block
+from analysis.resample import SeasonResampler, bootstrap_season, percentile_interval, permute_season
 from schemas.errors import FieldslopeError
 
 COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
@@ -86,6 +88,37 @@ def check_frame(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
             raise EstimationError(f"The total {name} needs the column(s) {', '.join(absent)}, which the data lack.")
 
 
+def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, seed, tick) -> list[Note]:
+    """Fill ci_low, ci_high (bootstrap) and p_value (permutation) of a season's rows in place."""
+    notes: list[Note] = []
+    logistic = {(r["site"], r["fitness"]) for r in season_rows if r["quantity"] == "gradient_logistic"}
+    boot: dict = {}
+    perm: dict = {}
+    if B > 0:
+        resampler = SeasonResampler(preps_by_f, traits, pooled, logistic)
+        boot = bootstrap_season(resampler, season, B, seed, lambda k: tick(k, f"bootstrap, season {season}"))
+    if P > 0:
+        permuter = SeasonPermuter(preps_by_f, traits, pooled)
+        perm = permute_season(permuter, season, P, seed, lambda k: tick(k, f"permutations, season {season}"))
+    for r in season_rows:
+        key = (r["site"], r["fitness"], r["quantity"], r["term"])
+        if key in boot:
+            lo, hi, bad = percentile_interval(boot[key])
+            r["ci_low"], r["ci_high"] = lo, hi
+            if bad and np.isnan(lo):
+                notes.append(Note(season, r["site"], r["fitness"], r["quantity"],
+                                  f"{bad} of {B} resamples could not estimate {r['quantity']} {r['term']}, too many for an interval."))
+            elif bad:
+                notes.append(Note(season, r["site"], r["fitness"], r["quantity"],
+                                  f"{bad} of {B} resamples could not estimate {r['quantity']} {r['term']} and were left out of its interval."))
+        if key in perm:
+            r["p_value"] = perm[key]
+    if P > 0 and logistic:
+        notes.append(Note(season, "", "", "gradient_logistic",
+                          "p-values of logistic gradients test the score statistic, which for 0/1 fitness gives the linear gradient's permutation p-value."))
+    return notes
+
+
 def estimate_table(
     frame: pd.DataFrame,
     design: Design,
@@ -118,27 +151,37 @@ def estimate_table(
         seasons = split_cells(data, design, fitness_names)
         rows: list[dict] = []
         notes: list[Note] = []
-        blocks = []  # (season, site, fitness, preps) for resampling
+        total = len(seasons) * (bootstrap + permutations)
+        done = [0]
+
+        def tick(k: int, label: str) -> None:
+            done[0] += k
+            if progress is not None:
+                progress(done[0], total, label)
+
         for season, cells in seasons.items():
+            season_rows, preps_by_f, pooled = [], {}, not (len(cells) == 1 and cells[0].site == ALL)
             for f in fitness_names:
                 kind = total_kind(design, f)
                 preps = [prepare(c, f, kind, design.traits) for c in cells]
+                preps_by_f[f] = preps
                 for pr in preps:
                     notes.extend(Note(season, pr.cell.site, f, q, m) for q, m in pr.notes)
                 units = [(pr.cell.site, [pr]) for pr in preps]
-                if not (len(cells) == 1 and cells[0].site == ALL):
+                if pooled:
                     units.append((ALL, preps))
                 for site, block in units:
-                    where = f"in season {season}, site {site}"
-                    res = point_block(block, design.traits, where)
+                    res = point_block(block, design.traits, f"in season {season}, site {site}")
                     notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
-                    for r in res.rows:
-                        rows.append(
-                            dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
-                                 estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan,
-                                 p_value=np.nan, n=r.n)
-                        )
-                    blocks.append((season, site, f, block, res))
+                    season_rows.extend(
+                        dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
+                             estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=np.nan, n=r.n)
+                        for r in res.rows
+                    )
+            if bootstrap > 0 or permutations > 0:
+                notes.extend(attach_uncertainty(season, season_rows, preps_by_f, design.traits, pooled,
+                                                bootstrap, permutations, seed, tick))
+            rows.extend(season_rows)
     table = pd.DataFrame(rows, columns=COLUMNS)
     table["n"] = table["n"].astype("Int64")
     return Estimates(table=table, notes=tuple(notes))

@@ -1,0 +1,121 @@
+"""Permutation tests: fitness shuffled among the individuals of each cell.
+
+Traits (and hence the standardized design) stay fixed under permutation, so
+every linear and quadratic statistic of all permutations comes from one
+matrix product of the permuted fitness vectors with the fixed design.
+The logistic gradient's statistic is the score (one Newton step from the
+no-selection fit), which for 0/1 fitness is proportional to the linear
+gradient, so its p-value is the linear gradient's.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from analysis.cells import Prepared
+from analysis.point import with_intercept
+from analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
+
+ALL = "all"
+
+
+def standardized(z: np.ndarray) -> np.ndarray:
+    return (z - z.mean(axis=0)) / z.std(axis=0, ddof=1)
+
+
+class SeasonPermuter:
+    def __init__(self, preps: dict[str, list[Prepared]], traits: tuple[str, ...], pooled: bool):
+        self.preps = preps
+        self.traits = traits
+        self.p = len(traits)
+        self.pooled = pooled
+        first = next(iter(preps.values()))
+        self.sites = [pr.cell.site for pr in first]
+        # fixed designs of the complete cases: [1, x, quadratic features]
+        self.design = {}
+        for f, plist in preps.items():
+            for c, pr in enumerate(plist):
+                if pr.multi is not None:
+                    x = standardized(pr.multi.z)
+                    self.design[(f, c)] = with_intercept(np.column_stack([x, quad_features(x)]))
+
+    def statistics(self, fitness_of) -> dict[tuple, np.ndarray]:
+        """Statistics for fitness vectors ``fitness_of(f, c, sample)`` (P x n each), keyed like the table."""
+        out: dict[tuple, np.ndarray] = {}
+        p, d = self.p, 1 + self.p + len(quad_pairs(self.p))
+        for f, plist in self.preps.items():
+            for j, name in enumerate(self.traits):
+                tot = None
+                for c, pr in enumerate(plist):
+                    s = pr.single[j] if pr.single else None
+                    if s is None:
+                        continue
+                    Wp = fitness_of(f, c, s)
+                    z = s.z[:, 0]
+                    x = (z - z.mean()) / z.std(ddof=1)
+                    mW = s.W.mean()
+                    raw = Wp @ z / mW - z.sum()
+                    std = Wp @ x / mW - x.sum()
+                    n = len(z)
+                    out[(self.sites[c], f, "differential", name)] = raw / n
+                    out[(self.sites[c], f, "differential_std", name)] = std / n
+                    add = (raw, std, n)
+                    tot = add if tot is None else tuple(a + b for a, b in zip(tot, add))
+                if self.pooled and tot is not None:
+                    out[(ALL, f, "differential", name)] = tot[0] / tot[2]
+                    out[(ALL, f, "differential_std", name)] = tot[1] / tot[2]
+            U, XtX = {}, {}
+            for c, pr in enumerate(plist):
+                if (f, c) not in self.design:
+                    continue
+                X = self.design[(f, c)]
+                U[c] = fitness_of(f, c, pr.multi) @ X / pr.multi.W.mean()
+                XtX[c] = X.T @ X
+            blocks = [(self.sites[c], [c]) for c in U]
+            if self.pooled and U:
+                blocks.append((ALL, list(U)))
+            for site, cs in blocks:
+                u = sum(U[c] for c in cs)
+                A = sum(XtX[c] for c in cs)
+                try:
+                    lin = np.linalg.solve(A[: 1 + p, : 1 + p], u[:, : 1 + p].T).T[:, 1:]
+                except np.linalg.LinAlgError:
+                    continue
+                for j, name in enumerate(self.traits):
+                    for q in ("gradient", "gradient_raw", "gradient_logistic"):
+                        out[(site, f, q, name)] = lin[:, j]
+                try:
+                    quad = np.linalg.solve(A, u.T).T[:, 1 + p : d]
+                except np.linalg.LinAlgError:
+                    continue
+                for (j, k), term, col in zip(quad_pairs(p), quad_terms(self.traits), quad.T):
+                    out[(site, f, "quadratic" if j == k else "correlational", term)] = col
+                vals, _ = canonical_axes(gamma_matrix(quad, p))
+                for i in range(p):
+                    out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
+        return out
+
+    def observed(self) -> dict[tuple, float]:
+        stats = self.statistics(lambda f, c, s: s.W[None, :])
+        return {k: float(v[0]) for k, v in stats.items()}
+
+    def chunk(self, rng: np.random.Generator, size: int) -> dict[tuple, np.ndarray]:
+        """Statistics of ``size`` permutations of fitness within each cell."""
+        cache: dict[tuple, np.ndarray] = {}
+
+        def fitness_of(f, c, s):
+            key = (f, c, s.rows.tobytes())
+            if key not in cache:
+                cache[key] = rng.permuted(np.broadcast_to(s.W, (size, len(s.W))), axis=1)
+            return cache[key]
+
+        return self.statistics(fitness_of)
+
+
+def permutation_p(observed: float, replicates: np.ndarray) -> float:
+    """Two-sided permutation p-value (1 + #{|T*| >= |T|}) / (1 + P)."""
+    r = replicates[np.isfinite(replicates)]
+    if not len(r) or not np.isfinite(observed):
+        return float("nan")
+    hits = np.count_nonzero(np.abs(r) >= abs(observed) * (1 - 1e-10))
+    return (1 + hits) / (1 + len(r))

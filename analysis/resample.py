@@ -1,0 +1,215 @@
+"""Bootstrap resamples and permutations of one season, vectorized across resamples.
+
+Bootstrap: individuals are resampled within each cell (one count vector per
+cell and resample, shared by every fitness measure and analysis of that
+cell); fitness is re-relativized and traits re-standardized in every
+resample. The pooled estimate of resample b uses resample b of every cell.
+Linear and quadratic estimates come from count-weighted moment sums (one
+matrix product per cell and chunk, see ``moments``); logistic fits from a
+batched Newton iteration with the counts as weights.
+"""
+
+from __future__ import annotations
+
+import zlib
+
+import numpy as np
+
+from analysis.cells import Prepared
+from analysis.logistic import Separation, batched_logistic, fit_logistic
+from analysis.moments import FeatureMatrix, MultiMoments, batched_solve, multi_moments, opp_sums, single_sums
+from analysis.point import stack, with_intercept
+from analysis.quadratic import canonical_axes, gamma_matrix, quad_pairs, quad_terms
+
+ALL = "all"
+CHUNK = 200  # resamples per chunk: bounds memory to CHUNK x cell size numbers
+
+
+def draw_counts(rng: np.random.Generator, n: int, size: int) -> np.ndarray:
+    """How often each of ``n`` individuals is drawn in each of ``size`` resamples of n draws (size x n)."""
+    idx = rng.integers(0, n, size=(size, n))
+    idx += (np.arange(size) * n)[:, None]
+    return np.bincount(idx.ravel(), minlength=size * n).reshape(size, n).astype(np.float64)
+
+
+def counts_from_indices(indices: np.ndarray, n: int) -> np.ndarray:
+    """Counts matrix for given resample indices (size x n draws each); for checks against plain loops."""
+    size = indices.shape[0]
+    flat = (indices + (np.arange(size) * n)[:, None]).ravel()
+    return np.bincount(flat, minlength=size * n).reshape(size, n).astype(np.float64)
+
+
+def chunk_rng(seed: int, season: str, stream: int, chunk: int) -> np.random.Generator:
+    """Generator for one chunk: depends only on seed, season name, stream (0 bootstrap, 1 permutation) and chunk."""
+    return np.random.default_rng(np.random.SeedSequence([seed, zlib.crc32(season.encode()), stream, chunk]))
+
+
+class SeasonResampler:
+    """Replicate estimates of one season's cells (and their pooled block) for chunks of resamples."""
+
+    def __init__(self, preps: dict[str, list[Prepared]], traits: tuple[str, ...], pooled: bool, logistic_blocks: set):
+        self.preps = preps  # fitness -> one Prepared per cell (cells in the same order)
+        self.traits = traits
+        self.p = len(traits)
+        self.pooled = pooled
+        first = next(iter(preps.values()))
+        self.sites = [pr.cell.site for pr in first]
+        self.n_cells = [len(pr.cell.z) for pr in first]
+        self.features = []
+        self.parts: list[dict] = []
+        for c in range(len(self.sites)):
+            fm = FeatureMatrix(self.n_cells[c])
+            parts = {}
+            for f, plist in preps.items():
+                pr = plist[c]
+                if pr.opp is not None:
+                    parts[(f, "opp")] = fm.add(pr.opp, "opp")
+                for j, s in enumerate(pr.single):
+                    if s is not None:
+                        parts[(f, "single", j)] = fm.add(s, "single")
+                if pr.multi is not None:
+                    parts[(f, "multi")] = fm.add(pr.multi, "multi", quadratic=True)
+            self.features.append(fm.matrix())
+            self.parts.append(parts)
+        # logistic starting values (standardized scale) per block that needs them
+        self.logit_start: dict[tuple[str, str], np.ndarray] = {}
+        for site, f in logistic_blocks:
+            block = self.block_cells(f, site)
+            samples = [self.preps[f][c].multi for c in block]
+            _, x, _, W = stack(samples)
+            try:
+                self.logit_start[(site, f)] = fit_logistic(with_intercept(x), W).coef
+            except Separation:
+                continue
+
+    def block_cells(self, f: str, site: str) -> list[int]:
+        if site == ALL:
+            return [c for c in range(len(self.sites)) if self.preps[f][c].multi is not None]
+        return [self.sites.index(site)]
+
+    # ----- bootstrap --------------------------------------------------------------------------
+
+    def boot_chunk(self, counts: list[np.ndarray]) -> dict[tuple, np.ndarray]:
+        """Replicates keyed (site, fitness, quantity, term) for counts (one B x n matrix per cell)."""
+        out: dict[tuple, np.ndarray] = {}
+        moments = [C @ F for C, F in zip(counts, self.features)]
+        for f in self.preps:
+            self.boot_opp(f, moments, out)
+            self.boot_single(f, moments, out)
+            mm = {c: multi_moments(moments[c], self.parts[c][(f, "multi")], self.p, True)
+                  for c in range(len(self.sites)) if (f, "multi") in self.parts[c]}
+            blocks = [(self.sites[c], [c]) for c in mm]
+            if self.pooled and mm:
+                blocks.append((ALL, list(mm)))
+            for site, cs in blocks:
+                self.boot_multi(f, site, [mm[c] for c in cs], out)
+                if (site, f) in self.logit_start:
+                    self.boot_logistic(f, site, cs, counts, mm, out)
+        return out
+
+    def boot_opp(self, f, moments, out):
+        tot_n, tot_w2, tot_ok = 0.0, 0.0, True
+        for c, site in enumerate(self.sites):
+            part = self.parts[c].get((f, "opp"))
+            if part is None:
+                continue
+            n, w2, ok = opp_sums(moments[c], part)
+            out[(site, f, "opportunity", "")] = np.where(ok, w2 / n - 1, np.nan)
+            tot_n, tot_w2, tot_ok = tot_n + n, tot_w2 + w2, tot_ok & ok
+        if self.pooled and not np.isscalar(tot_n):
+            out[(ALL, f, "opportunity", "")] = np.where(tot_ok, tot_w2 / tot_n - 1, np.nan)
+
+    def boot_single(self, f, moments, out):
+        for j, name in enumerate(self.traits):
+            tot = None
+            for c, site in enumerate(self.sites):
+                part = self.parts[c].get((f, "single", j))
+                if part is None:
+                    continue
+                ss = single_sums(moments[c], part)
+                raw, std = ss.s0 * ss.S_num, ss.S_num / ss.s
+                out[(site, f, "differential", name)] = np.where(ss.ok, raw / ss.n, np.nan)
+                out[(site, f, "differential_std", name)] = np.where(ss.ok, std / ss.n, np.nan)
+                add = np.array([raw, std, ss.n, np.where(ss.ok, 0.0, np.nan)])
+                tot = add if tot is None else tot + add
+            if self.pooled and tot is not None:
+                out[(ALL, f, "differential", name)] = tot[0] / tot[2] + tot[3]
+                out[(ALL, f, "differential_std", name)] = tot[1] / tot[2] + tot[3]
+
+    def boot_multi(self, f, site, mms: list[MultiMoments], out):
+        p = self.p
+        Mx = sum(m.Mx for m in mms)
+        vx = sum(m.vx for m in mms)
+        ok = np.logical_and.reduce([m.ok for m in mms])
+        dof = sum(m.n - 1 for m in mms)
+        sd = np.sqrt(sum((m.n - 1)[:, None] * m.sd**2 for m in mms) / dof[:, None])
+        lin = batched_solve(Mx[:, : 1 + p, : 1 + p], vx[:, : 1 + p], ok)[:, 1:]
+        for j, name in enumerate(self.traits):
+            out[(site, f, "gradient", name)] = lin[:, j]
+            out[(site, f, "gradient_raw", name)] = lin[:, j] / sd[:, j]
+        quad = batched_solve(Mx, vx, ok)[:, 1 + p :]
+        self.put_quadratic(site, f, quad, out)
+
+    def put_quadratic(self, site, f, quad, out):
+        for (j, k), term, col in zip(quad_pairs(self.p), quad_terms(self.traits), quad.T):
+            out[(site, f, "quadratic" if j == k else "correlational", term)] = col
+        good = np.all(np.isfinite(quad), axis=1)
+        g = gamma_matrix(np.where(good[:, None], quad, 0.0), self.p)
+        vals, _ = canonical_axes(g)
+        vals[~good] = np.nan
+        for i in range(self.p):
+            out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
+
+    def boot_logistic(self, f, site, cs, counts, mm, out):
+        k = 1 + self.p
+        cells = []
+        for c in cs:
+            part = self.parts[c][(f, "multi")]
+            pr = self.preps[f][c]
+            zt = (pr.multi.z - part.m0) / part.s0
+            cells.append((with_intercept(zt), pr.multi.W, counts[c][:, part.rows], mm[c].T[:, :k, :k]))
+        B = counts[0].shape[0]
+        start = np.tile(self.logit_start[(site, f)], (B, 1))
+        beta, mean_pq, mean_w, ok = batched_logistic(cells, start)
+        ok &= np.logical_and.reduce([mm[c].ok for c in cs])
+        grad = beta[:, 1:] * (mean_pq / mean_w)[:, None]
+        grad[~ok] = np.nan
+        for j, name in enumerate(self.traits):
+            out[(site, f, "gradient_logistic", name)] = grad[:, j]
+
+
+def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int, tick) -> dict[tuple, np.ndarray]:
+    """All bootstrap replicates of a season, drawn chunk by chunk; ``tick(k)`` after each chunk of k."""
+    pieces: dict[tuple, list[np.ndarray]] = {}
+    for i, start in enumerate(range(0, B, CHUNK)):
+        size = min(CHUNK, B - start)
+        rng = chunk_rng(seed, season, 0, i)
+        counts = [draw_counts(rng, n, size) for n in resampler.n_cells]
+        for key, val in resampler.boot_chunk(counts).items():
+            pieces.setdefault(key, []).append(val)
+        tick(size)
+    return {k: np.concatenate(v) for k, v in pieces.items()}
+
+
+def permute_season(permuter, season: str, P: int, seed: int, tick) -> dict[tuple, float]:
+    """Permutation p-values of a season keyed like the table."""
+    from analysis.permute import permutation_p
+
+    observed = permuter.observed()
+    pieces: dict[tuple, list[np.ndarray]] = {}
+    for i, start in enumerate(range(0, P, CHUNK)):
+        size = min(CHUNK, P - start)
+        for key, val in permuter.chunk(chunk_rng(seed, season, 1, i), size).items():
+            pieces.setdefault(key, []).append(val)
+        tick(size)
+    return {k: permutation_p(observed[k], np.concatenate(v)) for k, v in pieces.items() if k in observed}
+
+
+def percentile_interval(replicates: np.ndarray) -> tuple[float, float, int]:
+    """95 % percentile interval over the usable replicates, and how many were unusable."""
+    good = replicates[np.isfinite(replicates)]
+    bad = len(replicates) - len(good)
+    if len(good) < 0.95 * len(replicates) or len(good) < 2:
+        return float("nan"), float("nan"), bad
+    lo, hi = np.quantile(good, [0.025, 0.975])
+    return float(lo), float(hi), bad
