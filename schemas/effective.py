@@ -1,0 +1,145 @@
+"""The effective data: per individual and season, the current value of every field.
+
+Current = the latest non-blank value by batch order, with corrections (resolutions
+with action ``set``) taking their place in that order; then excluded values (and open
+out-of-range ones, and on request open outliers) left out. One SQL query for the
+records, one for corrections, one for flags, then a pandas group-by.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from schemas.protocol import Protocol
+
+
+@dataclass(frozen=True)
+class FieldCol:
+    name: str
+    col: str      # SQL column in ``records``
+    kind: str     # "number" | "text"
+
+
+def output_fields(protocol: Protocol) -> list[str]:
+    """Fields of the effective frame, after ID and season, in the DEVELOPERS.md order."""
+    return [*protocol.groups, *protocol.trait_names, *protocol.component_names, *protocol.parent_cols]
+
+
+def parse_number(text: str) -> float:
+    return float(str(text).strip().replace(",", "."))
+
+
+def latest(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, FieldCol], *,
+           as_of: int | None = None, seasons: list[str] | None = None,
+           sources: bool = False, skip: frozenset[int] = frozenset()) -> pd.DataFrame:
+    """Latest values (with corrections) indexed by (ID, season); with ``sources`` also a
+    ``_src:<field>`` column per field: the record id the value came from, or minus the flag id
+    of the correction that set it. Records in ``skip`` (excluded rows) do not count."""
+    names = list(fields)
+    where, args = [], []
+    if as_of is not None:
+        where.append("seq_batch <= ?")
+        args.append(as_of)
+    if seasons is not None:
+        where.append(f"season IN ({','.join('?' * len(seasons))})")
+        args.extend(seasons)
+    sql = ("SELECT individual, season, seq_batch, id"
+           + "".join(f", {fields[n].col}" for n in names) + " FROM records"
+           + (" WHERE " + " AND ".join(where) if where else "") + " ORDER BY seq_batch, id")
+    rows = conn.execute(sql, args).fetchall()
+    frame = pd.DataFrame(rows, columns=["individual", "season", "_key", "_src", *names])
+    frame["_key"] = frame["_key"].astype(float)
+    if skip:
+        frame = frame[~frame["_src"].isin(list(skip))]
+    corr = _corrections(conn, fields, as_of, seasons)
+    if len(corr):
+        frame = pd.concat([frame, corr], ignore_index=True)
+        frame = frame.sort_values("_key", kind="stable")
+    if sources:
+        for n in names:
+            frame[f"_src:{n}"] = frame["_src"].where(frame[n].notna())
+    frame = frame.drop(columns=["_key", "_src"])
+    last = frame.groupby(["individual", "season"], sort=False).last()
+    last.index = last.index.set_names([protocol.id_col, protocol.season_col])
+    for n in names:
+        if fields[n].kind == "number":
+            last[n] = pd.to_numeric(last[n], errors="coerce").astype(float)
+    return last
+
+
+def _corrections(conn, fields, as_of, seasons) -> pd.DataFrame:
+    sql = ("SELECT f.individual, f.season, f.field, r.new, r.after_batch, f.id FROM resolutions r "
+           "JOIN flags f ON f.id = r.flag_id WHERE r.action = 'set' AND f.quarantine_id IS NULL "
+           "AND f.field <> ''")
+    args: list = []
+    if as_of is not None:
+        sql += " AND r.after_batch <= ?"
+        args.append(as_of)
+    rows = conn.execute(sql + " ORDER BY r.after_batch, r.id", args).fetchall()
+    out = []
+    for ind, season, field, new, after, flag_id in rows:
+        if field not in fields or (seasons is not None and season not in seasons):
+            continue
+        value = parse_number(new) if fields[field].kind == "number" else new
+        out.append({"individual": ind, "season": season, "_key": after + 0.5, "_src": -flag_id, field: value})
+    return pd.DataFrame(out)
+
+
+def flag_states(conn: sqlite3.Connection, as_of: int | None = None) -> pd.DataFrame:
+    """Every flag on stored values with its current status (open, keep, exclude, set)."""
+    cond = "" if as_of is None else f" AND after_batch <= {int(as_of)}"
+    sql = ("SELECT f.id, f.kind, f.individual, f.season, f.field, f.record_id, "
+           f"(SELECT action FROM resolutions WHERE flag_id = f.id{cond} ORDER BY id DESC LIMIT 1) "
+           "FROM flags f WHERE f.quarantine_id IS NULL"
+           + ("" if as_of is None else f" AND f.batch_id <= {int(as_of)}"))
+    frame = pd.DataFrame(conn.execute(sql).fetchall(),
+                         columns=["id", "kind", "individual", "season", "field", "record_id", "status"])
+    frame["status"] = frame["status"].fillna("open")
+    return frame
+
+
+def effective(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, FieldCol], *,
+              without_open_outliers: bool = False, as_of: int | None = None) -> pd.DataFrame:
+    """The effective frame: columns ID, season, groups, traits, fitness components, parents."""
+    states = flag_states(conn, as_of)
+    leave_out = states["status"].eq("exclude") | (states["status"].eq("open") & states["kind"].eq("out_of_range"))
+    if without_open_outliers:
+        leave_out |= states["status"].eq("open") & states["kind"].eq("outlier")
+    drop = states[leave_out]
+    record_level = drop["field"].isin(["", protocol.id_col, protocol.season_col])
+    value_level = drop[~record_level & drop["field"].isin(list(fields))]
+
+    skip = frozenset(int(r) for r in drop[record_level]["record_id"].dropna())
+    last = latest(conn, protocol, fields, as_of=as_of, sources=not value_level.empty, skip=skip)
+    if not value_level.empty:
+        _leave_out(last, value_level)
+        last = last.drop(columns=[c for c in last.columns if c.startswith("_src:")])
+    cols = output_fields(protocol)
+    out = last.reindex(columns=cols).reset_index()
+    for c in protocol.trait_names + protocol.component_names:
+        out[c] = out[c].astype(float)
+    out = out.sort_values([protocol.season_col, protocol.id_col], kind="stable").reset_index(drop=True)
+    return out[[protocol.id_col, protocol.season_col, *cols]]
+
+
+def _leave_out(last: pd.DataFrame, value_level: pd.DataFrame) -> None:
+    """Blank each value whose flag leaves it out, if the current value is the one flagged
+    (from the flagged record, or set by a correction of that flag)."""
+    for field, group in value_level.groupby("field"):
+        src_col = f"_src:{field}"
+        idx = pd.MultiIndex.from_arrays([group["individual"], group["season"]])
+        pos = last.index.get_indexer(idx)
+        ok = pos >= 0
+        pos, group = pos[ok], group[ok]
+        if not len(pos):
+            continue
+        src = last[src_col].to_numpy()[pos]
+        hit = (src == group["record_id"].to_numpy(dtype=float)) | (src == -group["id"].to_numpy(dtype=float))
+        rows = pos[hit]
+        if len(rows):
+            col = last.columns.get_loc(field)
+            last.iloc[rows, col] = np.nan if last[field].dtype.kind == "f" else None

@@ -1,0 +1,47 @@
+"""One individual's history: every value recorded, every flag, every resolution, in time order."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import pandas as pd
+
+from schemas.store_checks import show
+
+if TYPE_CHECKING:  # pragma: no cover
+    from schemas.store import Store
+
+COLUMNS = ["time", "season", "field", "event", "value", "old", "batch", "file", "row", "operator", "detail"]
+_EVENT = {"keep": "kept", "exclude": "excluded", "set": "corrected"}
+
+
+def history(conn, store: "Store", individual: str) -> pd.DataFrame:
+    fields = store.fields
+    names = list(fields)
+    rows = conn.execute(
+        "SELECT b.received, r.season, r.batch_id, b.file_name, r.row, b.operator, r.correction_id"
+        + "".join(f", r.{fields[n].col}" for n in names)
+        + " FROM records r JOIN batches b ON b.id = r.batch_id WHERE r.individual = ? ORDER BY r.seq_batch, r.id",
+        (individual,)).fetchall()
+    events: list[tuple] = []
+    for rec in rows:
+        when, season, batch, file, row, operator, correction = rec[:7]
+        detail = "joined after a correction" if correction is not None else ""
+        for name, value in zip(names, rec[7:]):
+            if value is not None:
+                events.append((when, 0, season, name, "recorded", show(value), "", batch, file, row, operator, detail))
+    for when, season, field, kind, value, message, batch, file, row in conn.execute(
+            "SELECT f.created, f.season, f.field, f.kind, f.value, f.message, f.batch_id, b.file_name, f.row "
+            "FROM flags f JOIN batches b ON b.id = f.batch_id WHERE f.individual = ? ORDER BY f.id", (individual,)):
+        events.append((when, 1, season, field, f"flagged {kind}", value, "", batch, file, row, "", message))
+    for when, season, field, action, old, new, operator, reason, flag_id in conn.execute(
+            "SELECT r.created, f.season, f.field, r.action, r.old, r.new, r.operator, r.reason, f.id "
+            "FROM resolutions r JOIN flags f ON f.id = r.flag_id WHERE f.individual = ? ORDER BY r.id",
+            (individual,)):
+        events.append((when, 2, season, field, _EVENT[action], new or "", old or "", None, "", None, operator,
+                       f"flag {flag_id}: {reason}"))
+    frame = pd.DataFrame(events, columns=["time", "_order", *COLUMNS[1:]])
+    frame = frame.sort_values(["time", "_order"], kind="stable").drop(columns="_order").reset_index(drop=True)
+    frame["batch"] = frame["batch"].astype("Int64")
+    frame["row"] = frame["row"].astype("Int64")
+    return frame[COLUMNS]

@@ -1,0 +1,113 @@
+"""Quarantined rows: rows with hard errors kept (under --accept-valid) with their raw cells,
+visible as flags of kind ``quarantined`` and fixable one cell at a time. When every error
+of a row is fixed, the row joins the record; the corrections stay audited."""
+
+from __future__ import annotations
+
+import json
+import re
+from typing import TYPE_CHECKING
+
+import pandas as pd
+
+from schemas.errors import SheetError
+from schemas.records import CheckReport, FlagNote, RowError, Sheet
+from schemas.store_types import RecordError, Resolution
+
+if TYPE_CHECKING:  # pragma: no cover
+    from schemas.store import Store
+
+_POINT_NUMBER = re.compile(r"^[+-]?\d*\.\d+$")
+
+
+class QuarantineFix:
+    def __init__(self, store: "Store"):
+        self.store = store
+
+    def quarantine_rows(self, conn, batch_id: int, report: CheckReport, errors: list[RowError],
+                        bad_rows: list[int], created: str) -> None:
+        sheet, p = report.sheet, self.store.protocol
+        columns = [str(c) for c in sheet.frame.columns]
+        cells = sheet.frame.to_numpy(dtype=object)
+        pos_of = {r: i for i, r in enumerate(sheet.row_numbers)}
+        by_row: dict[int, list[RowError]] = {}
+        for e in errors:
+            by_row.setdefault(e.row, []).append(e)
+        for r in bad_rows:
+            raw = [None if v is None or (isinstance(v, float) and v != v) else str(v) for v in cells[pos_of[r]]]
+            row_cells = dict(zip(columns, raw))
+            ind = row_cells.get(p.id_col) or ""
+            season = row_cells.get(p.season_col) or ""
+            payload = json.dumps({"columns": columns, "cells": raw, "decimal": sheet.decimal, "file": sheet.name})
+            qid = conn.execute("INSERT INTO quarantine(batch_id, row, individual, season, cells, errors) "
+                               "VALUES (?,?,?,?,?,?)",
+                               (batch_id, r, ind, season, payload,
+                                json.dumps([e.__dict__ for e in by_row[r]]))).lastrowid
+            notes = [FlagNote(r, ind, season, e.column, "quarantined", e.value,
+                              f"row {r} was quarantined: {e.sentence()}; set the right value "
+                              "(fieldslope resolve FLAG --set VALUE) or leave the row out (--exclude)")
+                     for e in by_row[r]]
+            self.store._insert_flags(conn, batch_id, notes, {}, created, quarantine_id=qid)
+
+    def resolve(self, conn, flag_id: int, qid: int, field: str, flagged: str, action: str, value: str | None,
+                reason: str, operator: str) -> Resolution:
+        from schemas.store import _Plan, now
+
+        batch_id, row, payload, _ = conn.execute(
+            "SELECT batch_id, row, cells, errors FROM quarantine WHERE id = ?", (qid,)).fetchone()
+        joined = conn.execute("SELECT 1 FROM records WHERE batch_id = ? AND row = ? AND correction_id IS NOT NULL",
+                              (batch_id, row)).fetchone()
+        if joined:
+            raise RecordError(f"row {row} of batch {batch_id} has already joined the record; correct its values "
+                              "through their own flags.")
+        if action == "keep":
+            raise RecordError("a quarantined cell cannot be kept as it is; give the right value with --set or "
+                              "leave the row out with --exclude.")
+        after = self.store.last_batch_id(conn)
+        insert = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
+                  "VALUES (?,?,?,?,?,?,?,?)")
+        if action == "exclude":
+            conn.execute(insert, (flag_id, "exclude", flagged, None, reason, operator, now(), after))
+            return Resolution(flag_id, "exclude", old=flagged,
+                              message=f"flag {flag_id}: row {row} of batch {batch_id} stays out of the record.")
+        data = json.loads(payload)
+        fixes = dict(conn.execute(
+            "SELECT f.field, r.new FROM resolutions r JOIN flags f ON f.id = r.flag_id "
+            "WHERE f.quarantine_id = ? AND r.action = 'set' ORDER BY r.id", (qid,)).fetchall())
+        typed = str(value).strip()
+        if data["decimal"] == "," and _POINT_NUMBER.match(typed):
+            typed = typed.replace(".", ",")
+        fixes[field] = typed
+        columns, cells = list(data["columns"]), list(data["cells"])
+        for col, new in fixes.items():
+            if col not in columns:
+                columns.append(col)
+                cells.append(None)
+            cells[columns.index(col)] = new
+        sheet = Sheet(data["file"], pd.DataFrame([cells], columns=columns, dtype=object), [row], "utf-8", ",",
+                      data["decimal"])
+        try:
+            plan = _Plan(data["file"], b"", None, self._check(sheet))
+        except SheetError as exc:
+            raise RecordError(f"row {row} cannot be checked with that value ({exc}); nothing was changed.") from None
+        outcome = self.store._evaluate(conn, plan, accept_valid=False)
+        still = [e for e in outcome.errors if e.column == field]
+        if still:
+            raise RecordError(f"{value!r} for {field} is still not usable: {still[0].reason}; nothing was changed.")
+        res_id = conn.execute(insert, (flag_id, "set", flagged, str(value).strip(), reason, operator, now(),
+                                       after)).lastrowid
+        if outcome.errors:
+            left = tuple(e.sentence() for e in outcome.errors)
+            return Resolution(flag_id, "set", old=flagged, new=str(value).strip(), remaining=left,
+                              message=f"flag {flag_id}: {field} fixed; row {row} still has "
+                                      f"{len(left)} error(s): {'; '.join(left)}.")
+        record_ids = self.store._insert_records(conn, batch_id, after, outcome.valid, lambda *a: None,
+                                                correction_id=res_id)
+        self.store._insert_flags(conn, batch_id, outcome.flags, record_ids, now())
+        return Resolution(flag_id, "set", old=flagged, new=str(value).strip(), joined=True,
+                          message=f"flag {flag_id}: {field} set to {str(value).strip()}; row {row} of batch "
+                                  f"{batch_id} is now valid and joined the record.")
+
+    def _check(self, sheet: Sheet) -> CheckReport:
+        from schemas.validate import check_sheet
+        return check_sheet(self.store.protocol, sheet)

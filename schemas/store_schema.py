@@ -1,0 +1,227 @@
+"""The record store's tables, its versioned schema and the way a connection is opened.
+
+Raw rows (batches, records, quarantine) and audit rows (flags, resolutions,
+heritability entries) are append-only: triggers abort any UPDATE or DELETE.
+Measured values live in ``records``, one row per sheet row, one SQL column per
+protocol field (the ``fields`` table maps field names to column names), so the
+effective data is one query and one pandas group-by.
+"""
+
+from __future__ import annotations
+
+import os
+import sqlite3
+import time
+from pathlib import Path
+from typing import Callable
+
+from schemas.errors import StoreError
+
+SCHEMA_VERSION = 1
+BUSY_TIMEOUT_S = 5.0
+
+_APPEND_ONLY = ("batches", "records", "quarantine", "flags", "resolutions", "heritability", "fields")
+
+_V1 = """
+CREATE TABLE batches(
+    id INTEGER PRIMARY KEY,
+    file_name TEXT NOT NULL,
+    sha256 TEXT NOT NULL,
+    raw BLOB NOT NULL,
+    encoding TEXT NOT NULL DEFAULT '',
+    delimiter TEXT NOT NULL DEFAULT '',
+    operator TEXT NOT NULL,
+    received TEXT NOT NULL,
+    outcome TEXT NOT NULL CHECK (outcome IN ('stored', 'partial', 'refused')),
+    n_rows INTEGER NOT NULL DEFAULT 0,
+    n_stored INTEGER NOT NULL DEFAULT 0,
+    n_quarantined INTEGER NOT NULL DEFAULT 0,
+    errors TEXT NOT NULL DEFAULT '[]',
+    message TEXT NOT NULL DEFAULT ''
+);
+CREATE UNIQUE INDEX batches_taken_once ON batches(sha256) WHERE outcome <> 'refused';
+
+CREATE TABLE fields(
+    name TEXT PRIMARY KEY,
+    col TEXT NOT NULL UNIQUE,
+    kind TEXT NOT NULL CHECK (kind IN ('number', 'text'))
+);
+
+CREATE TABLE resolutions(
+    id INTEGER PRIMARY KEY,
+    flag_id INTEGER NOT NULL REFERENCES flags(id),
+    action TEXT NOT NULL CHECK (action IN ('keep', 'exclude', 'set')),
+    old TEXT,
+    new TEXT,
+    reason TEXT NOT NULL CHECK (length(trim(reason)) > 0),
+    operator TEXT NOT NULL,
+    created TEXT NOT NULL,
+    after_batch INTEGER NOT NULL
+);
+
+CREATE TABLE records(
+    id INTEGER PRIMARY KEY,
+    batch_id INTEGER NOT NULL REFERENCES batches(id),
+    seq_batch INTEGER NOT NULL,
+    row INTEGER NOT NULL,
+    individual TEXT NOT NULL,
+    season TEXT NOT NULL,
+    correction_id INTEGER REFERENCES resolutions(id)
+);
+CREATE INDEX records_individual ON records(individual, season);
+CREATE INDEX records_batch ON records(batch_id);
+
+CREATE TABLE quarantine(
+    id INTEGER PRIMARY KEY,
+    batch_id INTEGER NOT NULL REFERENCES batches(id),
+    row INTEGER NOT NULL,
+    individual TEXT NOT NULL DEFAULT '',
+    season TEXT NOT NULL DEFAULT '',
+    cells TEXT NOT NULL,
+    errors TEXT NOT NULL
+);
+
+CREATE TABLE flags(
+    id INTEGER PRIMARY KEY,
+    kind TEXT NOT NULL,
+    individual TEXT NOT NULL,
+    season TEXT NOT NULL,
+    field TEXT NOT NULL DEFAULT '',
+    value TEXT NOT NULL DEFAULT '',
+    message TEXT NOT NULL,
+    batch_id INTEGER NOT NULL REFERENCES batches(id),
+    record_id INTEGER REFERENCES records(id),
+    row INTEGER,
+    quarantine_id INTEGER REFERENCES quarantine(id),
+    created TEXT NOT NULL
+);
+CREATE INDEX flags_individual ON flags(individual, season);
+CREATE INDEX resolutions_flag ON resolutions(flag_id);
+
+CREATE TABLE heritability(
+    id INTEGER PRIMARY KEY,
+    trait TEXT NOT NULL,
+    value REAL NOT NULL,
+    se REAL,
+    source TEXT NOT NULL,
+    operator TEXT NOT NULL,
+    created TEXT NOT NULL
+);
+""" + "".join(
+    f"""
+CREATE TRIGGER {t}_no_update BEFORE UPDATE ON {t}
+BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot be changed'); END;
+CREATE TRIGGER {t}_no_delete BEFORE DELETE ON {t}
+BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot be deleted'); END;
+"""
+    for t in _APPEND_ONLY
+)
+
+# MIGRATIONS[v] brings a database from version v to v + 1.
+MIGRATIONS: dict[int, str] = {0: _V1}
+
+
+def connect(path: Path, readonly: bool = False) -> sqlite3.Connection:
+    """A connection with the house settings: autocommit, WAL, FULL sync, foreign keys, busy timeout."""
+    if readonly:
+        conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
+                               isolation_level=None, check_same_thread=False)
+    else:
+        conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT_S, isolation_level=None,
+                               check_same_thread=False)
+    conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+    conn.execute("PRAGMA foreign_keys = ON")
+    if not readonly:
+        mode = conn.execute("PRAGMA journal_mode").fetchone()[0]
+        if mode != "wal":
+            retry_locked(lambda: conn.execute("PRAGMA journal_mode = WAL"))
+    conn.execute("PRAGMA synchronous = FULL")
+    return conn
+
+
+def create_file(path: Path) -> None:
+    """Create an empty database file, group-writable (0660), and bring it to the current schema."""
+    fd = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o660)
+    os.close(fd)
+    os.chmod(path, 0o660)
+    conn = connect(path)
+    try:
+        migrate(conn, path)
+    finally:
+        conn.close()
+
+
+def migrate(conn: sqlite3.Connection, path: Path) -> None:
+    """Bring the schema to SCHEMA_VERSION; back up a non-empty database first."""
+    version = conn.execute("PRAGMA user_version").fetchone()[0]
+    if version > SCHEMA_VERSION:
+        raise StoreError(f"{path}: this study was written by a newer fieldslope (schema {version}); "
+                         "update fieldslope to open it.")
+    if version == SCHEMA_VERSION:
+        return
+    has_tables = conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'table'").fetchone()[0]
+    if has_tables:
+        backup(conn, path.with_name(f"{path.name}.v{version}-{time.strftime('%Y%m%dT%H%M%S')}.bak"))
+    while version < SCHEMA_VERSION:
+        step = MIGRATIONS[version]
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            for statement in _statements(step):
+                conn.execute(statement)
+            conn.execute(f"PRAGMA user_version = {version + 1}")
+            conn.execute("COMMIT")
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+        version += 1
+
+
+def _statements(script: str) -> list[str]:
+    """Split a DDL script into complete statements (trigger bodies contain ';')."""
+    out, buf = [], ""
+    for line in script.splitlines(keepends=True):
+        buf += line
+        if sqlite3.complete_statement(buf):
+            if buf.strip():
+                out.append(buf.strip())
+            buf = ""
+    if buf.strip():
+        out.append(buf.strip())
+    return out
+
+
+def backup(conn: sqlite3.Connection, target: Path) -> Path:
+    """Copy a live database with the backup API, fsync the copy and check it before relying on it."""
+    dest = sqlite3.connect(str(target))
+    try:
+        conn.backup(dest)
+        ok = dest.execute("PRAGMA integrity_check").fetchone()[0]
+    finally:
+        dest.close()
+    fd = os.open(target, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+    if ok != "ok":
+        raise StoreError(f"{target}: the backup taken before upgrading the store failed its check ({ok}); "
+                         "the study was left as it was.")
+    return target
+
+
+def retry_locked(op: Callable, attempts: int = 8):
+    """Run ``op``; on 'database is locked/busy' wait with backoff and retry, then give a clear StoreError."""
+    delay = 0.05
+    for i in range(attempts):
+        try:
+            return op()
+        except sqlite3.OperationalError as exc:
+            text = str(exc).lower()
+            if "locked" not in text and "busy" not in text:
+                raise
+            if i == attempts - 1:
+                raise StoreError("the record store is busy (another fieldslope is writing to it); "
+                                 "try again in a moment.") from None
+            time.sleep(delay)
+            delay = min(delay * 2, 1.0)
+    return None  # pragma: no cover

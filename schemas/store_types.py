@@ -1,0 +1,89 @@
+"""Plain records the store hands out (immutable, safe to pass between threads)."""
+
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass, field
+
+from schemas.errors import FieldslopeError
+from schemas.records import FlagNote, RowError
+
+
+class RecordError(FieldslopeError):
+    """A request the record cannot satisfy: an unknown flag, an unusable value, a missing reason."""
+
+
+@dataclass(frozen=True)
+class ImportResult:
+    """What happened to one batch (or would happen, for a check)."""
+
+    file_name: str
+    outcome: str                  # stored | partial | refused | duplicate
+    batch_id: int | None = None   # the new batch (None for a check); the earlier one for a duplicate
+    n_rows: int = 0
+    n_stored: int = 0
+    n_quarantined: int = 0
+    errors: tuple[RowError, ...] = ()
+    flags: tuple[FlagNote, ...] = ()
+    message: str = ""
+    checked_only: bool = False
+
+    @property
+    def ok(self) -> bool:
+        return self.outcome != "refused"
+
+    def flag_counts(self) -> dict[str, int]:
+        return dict(Counter(f.kind for f in self.flags))
+
+
+@dataclass(frozen=True)
+class BatchInfo:
+    id: int
+    file_name: str
+    sha256: str
+    operator: str
+    received: str
+    outcome: str
+    n_rows: int
+    n_stored: int
+    n_quarantined: int
+    n_errors: int
+    message: str
+    encoding: str = ""
+    delimiter: str = ""
+
+
+@dataclass(frozen=True)
+class StoredFlag:
+    id: int
+    kind: str
+    individual: str
+    season: str
+    field: str
+    value: str
+    message: str
+    batch_id: int
+    file_name: str
+    row: int | None
+    created: str
+    status: str = "open"          # open | keep | exclude | set
+    resolved_by: str = ""
+    resolved_at: str = ""
+    reason: str = ""
+    new_value: str = ""
+    quarantined: bool = False
+
+    @property
+    def is_open(self) -> bool:
+        return self.status == "open"
+
+
+@dataclass(frozen=True)
+class Resolution:
+    flag_id: int
+    action: str
+    old: str = ""
+    new: str = ""
+    joined: bool = False          # a quarantined row became valid and joined the record
+    message: str = ""
+    remaining: tuple[str, ...] = field(default_factory=tuple)   # errors left on a quarantined row

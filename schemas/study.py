@@ -1,0 +1,167 @@
+"""A study folder: ``protocol.toml``, the ``intake/`` drop folder and the record store."""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import shutil
+from dataclasses import dataclass
+from pathlib import Path
+
+from schemas.errors import FieldslopeError, StoreError
+from schemas.protocol import Protocol, load_protocol
+from schemas.store import Progress, Store
+from schemas.store_types import ImportResult
+
+PROTOCOL_FILE = "protocol.toml"
+INTAKE_DIR = "intake"
+DB_FILE = "fieldslope.sqlite"
+ENV_VAR = "FIELDSLOPE_STUDY"
+
+
+class StudyError(FieldslopeError):
+    """The study folder is missing, incomplete or already taken."""
+
+
+def default_study_dir() -> Path:
+    from platformdirs import user_data_dir
+    return Path(user_data_dir("fieldslope")) / "study"
+
+
+def resolve_study_dir(arg: str | os.PathLike | None) -> Path:
+    """The study folder: the argument, else $FIELDSLOPE_STUDY, else the user data folder's ``study``."""
+    if arg:
+        return Path(arg).expanduser()
+    env = os.environ.get(ENV_VAR, "").strip()
+    if env:
+        return Path(env).expanduser()
+    return default_study_dir()
+
+
+def is_study(path: str | os.PathLike) -> bool:
+    path = Path(path)
+    return (path / PROTOCOL_FILE).is_file() and (path / DB_FILE).is_file()
+
+
+@dataclass(frozen=True)
+class IntakeFile:
+    path: Path
+    size: int
+    status: str          # new | arriving | taken in | partial | refused
+    batch_id: int | None = None
+
+    @property
+    def name(self) -> str:
+        return self.path.name
+
+
+class Study:
+    def __init__(self, root: Path, protocol: Protocol, store: Store):
+        self.root, self.protocol, self.store = root, protocol, store
+        self._sizes: dict[str, tuple[int, int]] = {}
+        self._digests: dict[tuple[str, int, int], str] = {}
+
+    @property
+    def intake_dir(self) -> Path:
+        return self.root / INTAKE_DIR
+
+    @property
+    def db_path(self) -> Path:
+        return self.root / DB_FILE
+
+    @classmethod
+    def create(cls, root: str | os.PathLike, protocol_file: str | os.PathLike) -> "Study":
+        """Make a study folder from a protocol file; refuse a folder that already holds a study."""
+        root = Path(root).expanduser()
+        protocol = load_protocol(protocol_file)          # check before touching the folder
+        if (root / PROTOCOL_FILE).exists() or (root / DB_FILE).exists():
+            raise StudyError(f"{root}: this folder already holds a study; open it with --study {root}, "
+                             "or choose a new folder.")
+        if root.exists() and not root.is_dir():
+            raise StudyError(f"{root}: is a file, not a folder; choose a folder for the study.")
+        try:
+            root.mkdir(parents=True, exist_ok=True)
+            (root / INTAKE_DIR).mkdir(exist_ok=True)
+            tmp = root / (PROTOCOL_FILE + ".tmp")
+            shutil.copyfile(protocol_file, tmp)
+            os.replace(tmp, root / PROTOCOL_FILE)
+        except OSError as exc:
+            raise StudyError(f"{root}: cannot create the study folder ({exc.strerror}); check the path and "
+                             "permissions.") from None
+        store = Store.create(root / DB_FILE, protocol)
+        return cls(root, load_protocol(root / PROTOCOL_FILE), store)
+
+    @classmethod
+    def open(cls, root: str | os.PathLike, readonly: bool = False) -> "Study":
+        root = Path(root).expanduser()
+        if not root.exists():
+            raise StudyError(f"{root}: no study folder here; create one with "
+                             f"fieldslope init {root} --protocol FILE, or pick one with --study DIR.")
+        if not (root / PROTOCOL_FILE).is_file() or not (root / DB_FILE).is_file():
+            missing = PROTOCOL_FILE if not (root / PROTOCOL_FILE).is_file() else DB_FILE
+            raise StudyError(f"{root}: not a fieldslope study (no {missing}); create one with "
+                             f"fieldslope init DIR --protocol FILE, or pick another folder with --study DIR.")
+        protocol = load_protocol(root / PROTOCOL_FILE)
+        return cls(root, protocol, Store(root / DB_FILE, protocol, readonly=readonly))
+
+    def close(self) -> None:
+        self.store.close()
+
+    def __enter__(self) -> "Study":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    # -- the drop folder ------------------------------------------------------
+    def intake_files(self) -> list[IntakeFile]:
+        """Files in ``intake/`` with their status. A file counts as arrived only when its size
+        and modification time are the same at two looks; temp and lock names are skipped."""
+        from schemas.readers import is_partial_name
+
+        try:
+            entries = sorted(p for p in self.intake_dir.iterdir() if p.is_file() and not is_partial_name(p.name))
+        except FileNotFoundError:
+            return []
+        known = {b.sha256: b for b in reversed(self.store.batches())}
+        taken = {b.sha256: b for b in self.store.batches() if b.outcome != "refused"}
+        known.update(taken)
+        out, seen = [], {}
+        for path in entries:
+            try:
+                st = path.stat()
+            except OSError:
+                continue
+            look = (st.st_size, st.st_mtime_ns)
+            seen[path.name] = look
+            if self._sizes.get(path.name) != look:
+                out.append(IntakeFile(path, st.st_size, "arriving"))
+                continue
+            digest = self._digest(path, look)
+            batch = known.get(digest) if digest else None
+            if batch is None:
+                out.append(IntakeFile(path, st.st_size, "new"))
+            else:
+                status = {"stored": "taken in", "partial": "partial", "refused": "refused"}[batch.outcome]
+                out.append(IntakeFile(path, st.st_size, status, batch.id))
+        self._sizes = seen
+        return out
+
+    def _digest(self, path: Path, look: tuple[int, int]) -> str | None:
+        key = (path.name, *look)
+        if key not in self._digests:
+            try:
+                self._digests[key] = hashlib.sha256(path.read_bytes()).hexdigest()
+            except OSError:
+                return None
+        return self._digests[key]
+
+    def import_intake(self, operator: str | None = None, accept_valid: bool = False,
+                      progress: Progress | None = None) -> list[ImportResult]:
+        """Import every intake file whose status is ``new`` (call intake_files() first)."""
+        results = []
+        for item in self.intake_files():
+            if item.status == "new":
+                results.append(self.store.import_file(item.path, operator=operator, accept_valid=accept_valid,
+                                                      progress=progress))
+        return results

@@ -1,0 +1,89 @@
+"""Shared fixtures: an invented species' protocol, a fresh study folder, a batch writer."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+# An invented leafhopper at two invented saltmarsh sites (test data only).
+PROTOCOL_TEXT = """\
+[study]
+name = "Saltbush hoppers"
+id = "tag"
+season = "season"
+groups = ["site"]
+
+[traits.wing]
+unit = "mm"
+min = 3.0
+max = 6.0
+label = "forewing length"
+
+[traits.tibia]
+unit = "mm"
+min = 1.0
+max = 2.5
+
+[fitness.survived]
+kind = "binary"
+[fitness.clutch]
+kind = "count"
+[fitness.total]
+product = ["survived", "clutch"]
+
+[parents]
+mother = "dam"
+father = "sire"
+
+[checks]
+outlier_z = 4.0
+missing = ["NA"]
+[checks.allowed]
+site = ["Gull Flat", "Reed Bend"]
+"""
+
+
+@pytest.fixture
+def protocol_text() -> str:
+    return PROTOCOL_TEXT
+
+
+@pytest.fixture
+def protocol_file(tmp_path: Path, protocol_text: str) -> Path:
+    path = tmp_path / "protocol-src.toml"
+    path.write_text(protocol_text, encoding="utf-8")
+    return path
+
+
+@pytest.fixture
+def study(tmp_path: Path, protocol_file: Path):
+    from schemas.study import Study
+
+    s = Study.create(tmp_path / "study", protocol_file)
+    yield s
+    s.close()
+
+
+@pytest.fixture
+def write_batch(tmp_path: Path):
+    """write_batch(text_or_rows, name="batch.csv") -> Path. ``rows`` is a list of dicts (header from the
+    first) or the file's text; bytes are written as they are."""
+    folder = tmp_path / "batches"
+    folder.mkdir(exist_ok=True)
+
+    def write(content, name: str = "batch.csv") -> Path:
+        path = folder / name
+        if isinstance(content, bytes):
+            path.write_bytes(content)
+        elif isinstance(content, str):
+            path.write_text(content, encoding="utf-8")
+        else:
+            rows = list(content)
+            header = list(rows[0])
+            lines = [",".join(header)] + [",".join("" if r.get(h) is None else str(r[h]) for h in header)
+                                          for r in rows]
+            path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        return path
+
+    return write
