@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.cells import prepare, split_cells
+from analysis.derived import heritabilities, response_rows, temporal_rows
 from analysis.design import Design
 from analysis.fitness import add_totals, total_kind
 from analysis.permute import SeasonPermuter
@@ -113,9 +114,6 @@ def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, se
                                   f"{bad} of {B} resamples could not estimate {r['quantity']} {r['term']} and were left out of its interval."))
         if key in perm:
             r["p_value"] = perm[key]
-    if P > 0 and logistic:
-        notes.append(Note(season, "", "", "gradient_logistic",
-                          "p-values of logistic gradients test the score statistic, which for 0/1 fitness gives the linear gradient's permutation p-value."))
     return notes
 
 
@@ -149,8 +147,10 @@ def estimate_table(
     with np.errstate(all="ignore"):
         data = add_totals(frame, design)
         seasons = split_cells(data, design, fitness_names)
+        h_rows, h_notes, used_h2 = heritabilities(data, design, h2)
         rows: list[dict] = []
-        notes: list[Note] = []
+        notes: list[Note] = [Note(*n) for n in h_notes]
+        rg_assumed = False
         total = len(seasons) * (bootstrap + permutations)
         done = [0]
 
@@ -178,10 +178,25 @@ def estimate_table(
                              estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=np.nan, n=r.n)
                         for r in res.rows
                     )
+                    extra, assumed = response_rows(season, site, f, res, design.traits, used_h2, genetic_correlations)
+                    season_rows.extend(extra)
+                    rg_assumed |= assumed
             if bootstrap > 0 or permutations > 0:
                 notes.extend(attach_uncertainty(season, season_rows, preps_by_f, design.traits, pooled,
                                                 bootstrap, permutations, seed, tick))
             rows.extend(season_rows)
+        if len(seasons) > 1:
+            t_rows, t_notes = temporal_rows(rows, list(seasons))
+            rows.extend(t_rows)
+            notes.extend(Note(*n) for n in t_notes)
+        rows.extend(h_rows)
+        if permutations > 0 and any(r["quantity"] == "gradient_logistic" for r in rows):
+            notes.append(Note(ALL, ALL, "", "gradient_logistic",
+                              "p-values of logistic gradients test the score statistic, which for 0/1 fitness "
+                              "gives the linear gradient's permutation p-value."))
+        if rg_assumed:
+            notes.append(Note(ALL, ALL, "", "response_multi",
+                              "Genetic correlations not entered are taken equal to the phenotypic correlations of each cell."))
     table = pd.DataFrame(rows, columns=COLUMNS)
     table["n"] = table["n"].astype("Int64")
     return Estimates(table=table, notes=tuple(notes))

@@ -1,0 +1,111 @@
+"""Rows derived from other estimates: heritability, responses to selection, selection across seasons."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from analysis.design import Design
+from analysis.heritability import parent_offspring
+from analysis.point import BlockResult
+from analysis.response import breeders_response, genetic_covariance, multivariate_response, response_se
+from analysis.seasons import combine, sign_changes
+
+ALL = "all"
+
+
+def row(season, site, fitness, quantity, term, estimate, se=np.nan, p=np.nan, n=None) -> dict:
+    return dict(season=season, site=site, fitness=fitness, quantity=quantity, term=term, estimate=float(estimate),
+                se=float(se), ci_low=np.nan, ci_high=np.nan, p_value=float(p), n=n)
+
+
+def heritabilities(data: pd.DataFrame, design: Design, entered: dict | None):
+    """(rows, notes, used) where used maps trait -> (h2, se or None) for the responses."""
+    rows, notes, used = [], [], {}
+    entered = entered or {}
+    for trait in design.traits:
+        fit, why = parent_offspring(data, design, trait)
+        if fit is not None:
+            rows.append(row(ALL, ALL, "", "heritability", trait, fit.estimate, fit.se, n=fit.n_families))
+            notes.append((ALL, ALL, "", "heritability", fit.describe()))
+            used[trait] = (fit.estimate, fit.se)
+            if not 0 <= fit.estimate <= 1:
+                notes.append((ALL, ALL, "", "heritability",
+                              f"The estimated heritability of {trait} ({fit.estimate:.3g}) lies outside 0 to 1; "
+                              "its responses use it as it is, and no multivariate response is given."))
+            continue
+        if trait in entered:
+            value, se, source = entered[trait]
+            used[trait] = (float(value), None if se is None else float(se))
+            notes.append((ALL, ALL, "", "response",
+                          f"Responses of {trait} use the entered heritability {value:g} ({source}), "
+                          f"as it cannot be estimated here: {why}."))
+        else:
+            notes.append((ALL, ALL, "", "response",
+                          f"No heritability for {trait} ({why}); enter one to get its response to selection."))
+    return rows, notes, used
+
+
+def correlation_matrix(traits, P: np.ndarray, given: dict | None) -> tuple[np.ndarray, bool]:
+    """Genetic correlations: given pairs, the rest taken equal to the phenotypic ones (True if any was)."""
+    sd = np.sqrt(np.diag(P))
+    rg = P / np.outer(sd, sd)
+    assumed = False
+    for j in range(len(traits)):
+        for k in range(j + 1, len(traits)):
+            val = None
+            if given:
+                val = given.get((traits[j], traits[k]), given.get((traits[k], traits[j])))
+            if val is None:
+                assumed = True
+            else:
+                rg[j, k] = rg[k, j] = val
+    return rg, assumed
+
+
+def response_rows(season, site, fitness, res: BlockResult, traits, used: dict, rg_given) -> tuple[list, bool]:
+    """response, response_pct and response_multi rows of one block; True if phenotypic r were assumed for r_g."""
+    found = {(r.quantity, r.term): r for r in res.rows}
+    out = []
+    for name in traits:
+        S, mean = found.get(("differential", name)), found.get(("mean", name))
+        if name not in used or S is None:
+            continue
+        h2, h2_se = used[name]
+        R = breeders_response(h2, S.estimate)
+        se = response_se(h2, h2_se, S.estimate, S.se)
+        out.append(row(season, site, fitness, "response", name, R, se, n=S.n))
+        if mean is not None and mean.estimate != 0:
+            out.append(row(season, site, fitness, "response_pct", name, 100 * R / mean.estimate,
+                           100 * se / abs(mean.estimate), n=S.n))
+    assumed = False
+    if res.P is not None and all(t in used and 0 <= used[t][0] <= 1 for t in traits):
+        rg, assumed = correlation_matrix(traits, res.P, rg_given)
+        G = genetic_covariance(res.P, np.array([used[t][0] for t in traits]), rg)
+        dz = multivariate_response(G, res.beta_raw)
+        out.extend(row(season, site, fitness, "response_multi", t, dz[j], n=res.n_multi) for j, t in enumerate(traits))
+    return out, assumed
+
+
+def temporal_rows(table_rows: list[dict], season_order: list[str]) -> tuple[list[dict], list[tuple]]:
+    """Across-season rows per site, fitness and trait from the seasons' gradients."""
+    rows, notes = [], []
+    rank = {s: i for i, s in enumerate(season_order)}
+    series: dict[tuple, list] = {}
+    for r in table_rows:
+        if r["quantity"] == "gradient" and r["season"] in rank and np.isfinite(r["estimate"]) and r["se"] > 0:
+            series.setdefault((r["site"], r["fitness"], r["term"]), []).append(r)
+    for (site, fitness, term), rs in series.items():
+        rs = sorted(rs, key=lambda r: rank[r["season"]])
+        if len(rs) < 2:
+            notes.append((ALL, site, fitness, "gradient_mean",
+                          f"Gradients of {term} at site {site} exist for one season only, so nothing is combined across seasons."))
+            continue
+        b = np.array([r["estimate"] for r in rs])
+        c = combine(b, np.array([r["se"] for r in rs]))
+        n = int(sum(r["n"] for r in rs))
+        rows.append(row(ALL, site, fitness, "gradient_mean", term, c.mean, c.se, n=n))
+        rows.append(row(ALL, site, fitness, "gradient_tau2", term, c.tau2, n=n))
+        rows.append(row(ALL, site, fitness, "gradient_q", term, c.q, p=c.q_p, n=n))
+        rows.append(row(ALL, site, fitness, "sign_changes", term, sign_changes(b), n=n))
+    return rows, notes

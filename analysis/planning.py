@@ -1,0 +1,36 @@
+"""Planning a season: how many individuals a gradient of given precision needs."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import stats
+
+
+def variance_inflation(correlation: np.ndarray) -> np.ndarray:
+    """Variance inflation factor of each trait: the diagonal of the inverse trait correlation matrix."""
+    return np.diag(np.linalg.inv(np.atleast_2d(correlation)))
+
+
+def individuals_for_gradient(
+    half_width: float, residual_variance: float, vif: float = 1.0, n_traits: int = 1, level: float = 0.95
+) -> int:
+    """Individuals needed so that the ``level`` interval of a gradient is +- ``half_width``.
+
+    For standardized traits the OLS standard error of a gradient is about
+    sqrt(residual_variance * VIF / (n - n_traits - 1)), with
+    ``residual_variance`` the residual variance of relative fitness; the
+    interval is t * se with t from n - n_traits - 1 degrees of freedom.
+    Starts from the normal-theory lower bound and steps up to the smallest n
+    that is narrow enough.
+    """
+    if half_width <= 0 or residual_variance <= 0 or vif < 1 - 1e-9:
+        raise ValueError("half width and residual variance must be positive and VIF at least 1")
+    z = stats.norm.ppf(0.5 + level / 2)
+    n = max(n_traits + 3, math.ceil((z / half_width) ** 2 * residual_variance * vif) + n_traits + 1)
+    while True:
+        df = n - n_traits - 1
+        if stats.t.ppf(0.5 + level / 2, df) * math.sqrt(residual_variance * vif / df) <= half_width:
+            return n
+        n += 1
