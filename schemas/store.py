@@ -460,11 +460,11 @@ class Store:
             "SELECT id, trait, value, se, source, operator, created FROM heritability ORDER BY id").fetchall())
         return pd.DataFrame(rows, columns=["id", "trait", "value", "se", "source", "operator", "created"])
 
-    def heritability(self) -> dict[str, tuple[float, float | None]]:
-        """The latest entry per trait: trait -> (h², se)."""
+    def heritability(self) -> dict[str, tuple[float, float | None, str]]:
+        """The latest entry per trait: trait -> (h², se or None, source), as estimate_table's ``h2``."""
         frame = self.heritability_entries()
-        return {t: (float(v), None if pd.isna(s) else float(s))
-                for t, v, s in zip(frame["trait"], frame["value"], frame["se"])}
+        return {t: (float(v), None if pd.isna(s) else float(s), str(src))
+                for t, v, s, src in zip(frame["trait"], frame["value"], frame["se"], frame["source"])}
 
 
 def _read_file(path: Path) -> bytes:

@@ -1,4 +1,8 @@
-"""The ``fieldslope`` command line (the dashboard is started from here too)."""
+"""The ``fieldslope`` command line (the dashboard is started from here too).
+
+Exit status: 0 done, 1 a refused batch or a failed operation, 2 a usage error;
+every failure is one line on stderr (``--debug`` adds the traceback).
+"""
 
 from __future__ import annotations
 
@@ -10,20 +14,130 @@ from schemas.errors import FieldslopeError
 VERSION = "0.1.0"
 
 
+class UsageError(Exception):
+    """Bad arguments: exit status 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str):  # one line, exit status 2 (argparse would print the usage block)
+        raise UsageError(f"{message}; see fieldslope {self.prog.split(' ', 1)[1] + ' ' if ' ' in self.prog else ''}"
+                         "--help")
+
+
+def _common(parser: argparse.ArgumentParser, top: bool) -> None:
+    default = None if top else argparse.SUPPRESS
+    parser.add_argument("--study", metavar="DIR", default=default,
+                        help="the study folder (default: $FIELDSLOPE_STUDY, else the user data folder)")
+    parser.add_argument("--debug", action="store_true", default=False if top else argparse.SUPPRESS,
+                        help="show the full traceback of a failure")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="fieldslope", description="Measure selection during a field season.")
+    parser = _Parser(prog="fieldslope", description="Measure selection during a field season. "
+                     "With no command, opens the dashboard.")
     parser.add_argument("--version", action="version", version=f"fieldslope {VERSION}")
+    _common(parser, top=True)
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    def command(name: str, text: str) -> argparse.ArgumentParser:
+        p = sub.add_parser(name, help=text, description=text)
+        _common(p, top=False)
+        return p
+
+    p = command("init", "create a study folder from a protocol file")
+    p.add_argument("dir", metavar="DIR")
+    p.add_argument("--protocol", metavar="FILE", required=True)
+
+    p = command("check", "check batch files against the protocol and the record; store nothing")
+    p.add_argument("files", metavar="FILE", nargs="+")
+    p.add_argument("--accept-valid", action="store_true", help="report as an import with --accept-valid would")
+
+    p = command("import", "take in batch files")
+    p.add_argument("files", metavar="FILE", nargs="+")
+    p.add_argument("--accept-valid", action="store_true",
+                   help="store the valid rows and quarantine rows with errors (default: refuse the whole batch)")
+    p.add_argument("--operator", metavar="NAME", help="who takes the batch in (default: your login name)")
+
+    p = command("flags", "list open flags")
+    p.add_argument("--all", action="store_true", help="resolved flags too")
+
+    p = command("resolve", "keep, exclude or correct the value behind a flag")
+    p.add_argument("flag", metavar="FLAG", type=_flag_id)
+    how = p.add_mutually_exclusive_group(required=True)
+    how.add_argument("--keep", action="store_true", help="the value is right")
+    how.add_argument("--exclude", action="store_true", help="leave the value (or row) out of the estimates")
+    how.add_argument("--set", metavar="VALUE", help="replace the value (the old one stays on record)")
+    p.add_argument("--reason", metavar="TEXT", required=True, help="why (kept with the change)")
+    p.add_argument("--operator", metavar="NAME", help="who resolves it (default: your login name)")
+
+    p = command("history", "one individual's values, flags and changes")
+    p.add_argument("individual", metavar="ID")
+
+    p = command("estimate", "write the estimates table")
+    p.add_argument("--format", choices=("table", "csv", "json"), default="table")
+    p.add_argument("--bootstrap", metavar="N", type=_count, default=2000,
+                   help="bootstrap resamples and permutations (0 = point estimates only; default 2000)")
+    p.add_argument("--seed", metavar="N", type=int, default=None, help="random seed (default: fixed)")
+    p.add_argument("--season", metavar="S", help="only this season's rows")
+    p.add_argument("--site", metavar="S", help="only this site's rows (or 'all' for pooled rows)")
+    p.add_argument("--fitness", metavar="NAME", help="only this fitness component or total")
+    p.add_argument("--without-open-outliers", action="store_true",
+                   help="leave out values with open outlier flags too (sensitivity)")
+    p.add_argument("--output", metavar="FILE", help="write to FILE instead of the screen")
+
+    p = command("demo", "the demo season (an invented study)")
+    p.add_argument("--headless", action="store_true", help="no dashboard: take in the batches, print estimates")
     return parser
 
 
-def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+def _flag_id(text: str) -> int:
     try:
-        parser.parse_args(argv)
+        value = int(text.lstrip("#"))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a flag number (see fieldslope flags)") from None
+    if value <= 0:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a flag number (see fieldslope flags)")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"{text!r} must be 0 or more")
+    return value
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else list(argv)
+    debug = "--debug" in argv
+    try:
+        args = build_parser().parse_args(argv)
+        from tui import cli_commands
+
+        return cli_commands.run(args)
+    except UsageError as exc:
+        print(f"fieldslope: {exc}", file=sys.stderr)
+        return 2
     except FieldslopeError as exc:
+        if debug:
+            import traceback
+            traceback.print_exc()
         print(f"fieldslope: {exc}", file=sys.stderr)
         return 1
-    return 0
+    except KeyboardInterrupt:
+        print("fieldslope: interrupted; nothing half-done was kept.", file=sys.stderr)
+        return 1
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # a bug: still one line, unless --debug
+        if debug:
+            raise
+        print(f"fieldslope: unexpected failure ({type(exc).__name__}: {exc}); run again with --debug "
+              "and report it.", file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":

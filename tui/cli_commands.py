@@ -1,0 +1,193 @@
+"""What each ``fieldslope`` subcommand does (the parser lives in ``tui.cli``)."""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+from dataclasses import replace
+from pathlib import Path
+
+from schemas.errors import FieldslopeError
+from schemas.study import Study, is_study, resolve_study_dir
+from tui import cli_format as fmt
+
+
+def run(args) -> int:
+    command = args.command
+    if command is None:
+        return dashboard(args)
+    return {"init": init, "check": check, "import": import_, "flags": flags, "resolve": resolve,
+            "history": history, "estimate": estimate, "demo": demo}[command](args)
+
+
+def _open(args, readonly: bool = False) -> Study:
+    return Study.open(resolve_study_dir(args.study), readonly=readonly)
+
+
+def init(args) -> int:
+    study = Study.create(args.dir, args.protocol)
+    study.close()
+    print(f"created a study in {study.root}: drop batch files into {study.intake_dir} or use "
+          "fieldslope import FILE")
+    return 0
+
+
+def _report(result, err=sys.stderr, out=sys.stdout) -> None:
+    for line in fmt.error_lines(result.errors):
+        print(line, file=out)
+    if result.outcome == "refused":
+        print(f"fieldslope: {result.message}", file=err)
+        return
+    print(result.message, file=out)
+    if result.outcome != "duplicate":
+        print(fmt.flag_summary(result.flags), file=out)
+
+
+def check(args) -> int:
+    status = 0
+    with _open(args) as study:
+        for name in args.files:
+            result = study.store.check_file(name, accept_valid=args.accept_valid)
+            if result.outcome in ("stored", "partial"):
+                verb = "would store" if result.outcome == "stored" else "would store (quarantining the rest)"
+                result = replace(result, message=f"{result.file_name}: {verb} {result.n_stored} of "
+                                                 f"{result.n_rows} rows.")
+            _report(result)
+            status = max(status, 0 if result.ok else 1)
+    return status
+
+
+def import_(args) -> int:
+    status = 0
+    with _open(args) as study:
+        for name in args.files:
+            progress = fmt.Progress(f"importing {Path(name).name}")
+            try:
+                result = study.store.import_file(name, operator=args.operator, accept_valid=args.accept_valid,
+                                                 progress=progress)
+            finally:
+                progress.done()
+            _report(result)
+            status = max(status, 0 if result.ok else 1)
+    return status
+
+
+def flags(args) -> int:
+    with _open(args) as study:
+        fmt.print_flags(study.store.flags(include_resolved=args.all))
+    return 0
+
+
+def resolve(args) -> int:
+    action = "keep" if args.keep else "exclude" if args.exclude else "set"
+    with _open(args) as study:
+        res = study.store.resolve_flag(args.flag, action, value=args.set, reason=args.reason,
+                                       operator=args.operator)
+    print(res.message)
+    return 0
+
+
+def history(args) -> int:
+    with _open(args) as study:
+        frame = study.store.history(args.individual)
+    if frame.empty:
+        raise FieldslopeError(f"{args.individual!r} is not on record; check the ID (IDs are compared as text, "
+                              "leading zeros included).")
+    fmt.print_history(frame, args.individual)
+    return 0
+
+
+def estimate(args) -> int:
+    from tui.bridge import estimates_for_frame
+
+    with _open(args) as study:
+        protocol = study.protocol
+        frame = study.store.effective_frame(without_open_outliers=args.without_open_outliers)
+        h2 = study.store.heritability()
+    if frame.empty:
+        raise FieldslopeError("no records yet; take in batch files with fieldslope import FILE first.")
+    _check_choice("season", args.season, sorted(frame[protocol.season_col].dropna().astype(str).unique()))
+    if protocol.groups and args.site is not None and args.site != "all":
+        _check_choice("site", args.site, sorted(frame[protocol.groups[0]].dropna().astype(str).unique()))
+    _check_choice("fitness", args.fitness, list(protocol.fitness))
+    progress = fmt.Progress("estimating")
+    try:
+        est = estimates_for_frame(frame, protocol, bootstrap=args.bootstrap, seed=args.seed, h2=h2 or None,
+                                  progress=progress)
+    finally:
+        progress.done()
+    table = est.table
+    for col, value in (("season", args.season), ("site", args.site), ("fitness", args.fitness)):
+        if value is not None:
+            table = table[table[col].astype(str) == value]
+    table = table.reset_index(drop=True)
+    notes = [n for n in est.notes if _note_matches(n, args)]
+    if args.format == "csv":
+        from schemas.export import frame_to_safe_csv
+        text = frame_to_safe_csv(table)
+    elif args.format == "json":
+        text = json.dumps(_json_rows(table), indent=1, allow_nan=False) + "\n"
+    else:
+        text = fmt.estimates_text(table, notes)
+    if args.output:
+        _write_atomic(Path(args.output), text)
+        print(f"wrote {len(table)} estimates to {args.output}", file=sys.stderr)
+    else:
+        sys.stdout.write(text)
+    return 0
+
+
+def _note_matches(note, args) -> bool:
+    return all(value is None or getattr(note, attr) in ("", value)
+               for attr, value in (("season", args.season), ("site", args.site), ("fitness", args.fitness)))
+
+
+def _check_choice(what: str, value: str | None, choices: list[str]) -> None:
+    if value is not None and value not in choices:
+        raise FieldslopeError(f"there is no {what} {value!r} on record; choose one of {', '.join(choices)}.")
+
+
+def _json_rows(table) -> list[dict]:
+    import math
+
+    out = []
+    for rec in table.to_dict(orient="records"):
+        row = {}
+        for key, value in rec.items():
+            if hasattr(value, "item"):
+                value = value.item()
+            if isinstance(value, float) and not math.isfinite(value):
+                value = None
+            row[key] = value
+        out.append(row)
+    return out
+
+
+def _write_atomic(path: Path, text: str) -> None:
+    tmp = path.with_name(path.name + ".part")
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except OSError as exc:
+        raise FieldslopeError(f"{path}: cannot write the output ({exc.strerror}); check the folder.") from None
+
+
+def demo(args) -> int:
+    from tui.demo import run_demo
+
+    return int(run_demo(Path(args.study).expanduser() if args.study else None, args.headless) or 0)
+
+
+def dashboard(args) -> int:
+    root = resolve_study_dir(args.study)
+    if not is_study(root):
+        raise FieldslopeError(f"{root}: no study here; create one with fieldslope init DIR --protocol FILE, "
+                              "pick one with --study DIR, or try fieldslope demo.")
+    from tui.app import run_app
+
+    run_app(root)
+    return 0

@@ -1,0 +1,130 @@
+"""Plain-text output of the command line, 80 columns wide."""
+
+from __future__ import annotations
+
+import math
+import sys
+import textwrap
+from collections import Counter
+from typing import Iterable, TextIO
+
+import pandas as pd
+
+WIDTH = 80
+MAX_LISTED = 50
+
+
+def cut(text: object, width: int) -> str:
+    text = "" if text is None or (isinstance(text, float) and math.isnan(text)) else str(text)
+    return text if len(text) <= width else text[: width - 1] + "…"
+
+
+def wrap(text: str, indent: str = "    ") -> str:
+    return textwrap.fill(text, WIDTH, initial_indent=indent, subsequent_indent=indent, break_on_hyphens=False)
+
+
+def number(value, width: int) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)) or pd.isna(value):
+        return " " * width
+    text = f"{value:.4g}"
+    return f"{text:>{width}}"
+
+
+def p_text(value) -> str:
+    if value is None or pd.isna(value):
+        return ""
+    return "<0.001" if value < 0.001 else f"{value:.3f}"
+
+
+def error_lines(errors: Iterable, limit: int = MAX_LISTED) -> list[str]:
+    errors = list(errors)
+    lines = [e.sentence() for e in errors[:limit]]
+    if len(errors) > limit:
+        lines.append(f"… and {len(errors) - limit} more errors (the first {limit} are shown)")
+    return lines
+
+
+def flag_summary(flags: Iterable) -> str:
+    counts = Counter(f.kind for f in flags)
+    if not counts:
+        return "no flags"
+    parts = ", ".join(f"{n} {kind}" for kind, n in sorted(counts.items()))
+    return f"flags: {parts} (list them with fieldslope flags)"
+
+
+def print_flags(flags, out: TextIO = sys.stdout) -> None:
+    if not flags:
+        print("no open flags", file=out)
+        return
+    for f in flags:
+        what = f"{f.field} = {f.value}" if f.field and f.value else (f.field or f.value or "record")
+        status = f.status if f.status == "open" else f"{f.status} by {f.resolved_by}"
+        head = f"#{f.id:<5} {f.kind:<20} {f.individual} {f.season} {what}"
+        print(cut(head, WIDTH - 22) + f"  [{cut(status, 18)}]", file=out)
+        print(wrap(f"{f.message} ({f.file_name}, row {f.row})"), file=out)
+        if f.status != "open" and f.reason:
+            change = f"set to {f.new_value}; " if f.status == "set" else ""
+            print(wrap(f"{change}why: {f.reason} ({f.resolved_at})"), file=out)
+
+
+def print_history(frame: pd.DataFrame, individual: str, out: TextIO = sys.stdout) -> None:
+    print(f"{individual}: {len(frame)} events", file=out)
+    for r in frame.itertuples(index=False):
+        when = str(r.time).replace("T", " ")[:16]
+        value = cut(r.value, 12)
+        if r.event == "corrected":
+            value = f"{cut(r.old or 'blank', 10)} → {cut(r.value, 10)}"
+        src = f"{cut(r.file, 16)} r{r.row}" if r.file else ""
+        who = cut(r.operator, 10)
+        line = f"{when} {cut(r.season, 6):<6} {cut(r.field, 10):<10} {cut(r.event, 18):<18} {value}"
+        line = cut(line, WIDTH - len(src) - len(who) - 2)
+        print(f"{line:<{WIDTH - len(src) - len(who) - 2}} {src} {who}".rstrip(), file=out)
+        if r.detail:
+            print(wrap(str(r.detail)), file=out)
+
+
+_HEAD = f"{'quantity':<17} {'term':<10} {'estimate':>9} {'se':>8} {'ci_low':>9} {'ci_high':>9} {'p':>6} {'n':>5}"
+
+
+def estimates_text(table: pd.DataFrame, notes=()) -> str:
+    """The estimates table in blocks of season · site · fitness; every line fits 80 columns."""
+    lines: list[str] = []
+    if table.empty:
+        lines.append("no estimates (see the notes below)")
+    for (season, site, fitness), block in table.groupby(["season", "site", "fitness"], sort=False):
+        lines += ["", f"season {season} · site {site} · fitness {fitness}", _HEAD]
+        for r in block.itertuples(index=False):
+            n = "" if pd.isna(r.n) else str(int(r.n))
+            lines.append(f"{cut(r.quantity, 17):<17} {cut(r.term, 10):<10} {number(r.estimate, 9)} "
+                         f"{number(r.se, 8)} {number(r.ci_low, 9)} {number(r.ci_high, 9)} "
+                         f"{p_text(r.p_value):>6} {n:>5}")
+    if notes:
+        lines += ["", "notes:"]
+        for note in notes:
+            where = " · ".join(str(x) for x in (note.season, note.site, note.fitness, note.quantity) if x)
+            lines.append(wrap(f"{where}: {note.message}" if where else note.message, indent="  "))
+    return "\n".join(lines).lstrip("\n") + "\n"
+
+
+class Progress:
+    """A one-line progress display on stderr, shown only when stderr is a terminal."""
+
+    def __init__(self, label: str, stream: TextIO = sys.stderr):
+        self.label, self.stream = label, stream
+        self.live = hasattr(stream, "isatty") and stream.isatty()
+        self._last = -1
+
+    def __call__(self, done: int, total: int, stage: str = "") -> None:
+        if not self.live or total <= 0:
+            return
+        pct = int(100 * done / total)
+        if pct == self._last:
+            return
+        self._last = pct
+        self.stream.write("\r" + cut(f"{self.label}: {stage} {pct}%", WIDTH - 1).ljust(WIDTH - 1))
+        self.stream.flush()
+
+    def done(self) -> None:
+        if self.live and self._last >= 0:
+            self.stream.write("\r" + " " * (WIDTH - 1) + "\r")
+            self.stream.flush()
