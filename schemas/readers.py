@@ -209,14 +209,8 @@ def _column_label(index: int) -> str:
 
 
 def _clean(cells: list) -> list[str | None]:
-    out: list[str | None] = []
-    for cell in cells:
-        if cell is None:
-            out.append(None)
-        else:
-            text = cell.strip()
-            out.append(text or None)
-    return out
+    """Stripped text, None for a blank cell."""
+    return [(cell.strip() or None) if cell else None for cell in cells]
 
 
 def _rows_phrase(rows: list[int]) -> str:

@@ -1,0 +1,131 @@
+"""Speed of reading and checking a batch: 100,000 rows x 10 columns (CSV), and a smaller XLSX.
+
+Prints rows per second for read_sheet, check_sheet and both. The whole import
+(with the store) should reach 50,000 rows/s, so this part must be well faster.
+
+    python benchmarks/bench_intake_checks.py [--rows N]
+"""
+
+from __future__ import annotations
+
+import argparse
+import io
+import sys
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from schemas.protocol import parse_protocol  # noqa: E402
+from schemas.readers import read_sheet  # noqa: E402
+from schemas.validate import check_sheet  # noqa: E402
+
+PROTOCOL = parse_protocol("""\
+[study]
+id = "ring"
+season = "year"
+groups = ["field"]
+[traits.elytra]
+unit = "mm"
+min = 3.0
+max = 9.0
+[traits.horn]
+[traits.pronotum]
+[fitness.survived]
+kind = "binary"
+[fitness.clutch]
+kind = "count"
+[fitness.gain]
+kind = "continuous"
+[parents]
+mother = "dam"
+[checks]
+missing = ["NA"]
+[checks.allowed]
+field = ["Cinder Flat", "Moss Gully"]
+""")
+COLUMNS = ["ring", "year", "field", "elytra", "horn", "pronotum", "survived", "clutch", "gain", "dam"]
+
+
+def make_rows(n: int, seed: int = 7) -> list[list[str]]:
+    rng = np.random.default_rng(seed)
+    fields = np.where(rng.random(n) < 0.5, "Cinder Flat", "Moss Gully")
+    elytra = rng.normal(6, 0.8, n).round(2)
+    horn = rng.normal(1, 0.2, n).round(3)
+    pron = rng.normal(2, 0.3, n).round(3)
+    surv = rng.integers(0, 2, n)
+    clutch = rng.poisson(3, n)
+    gain = rng.gamma(2, 0.5, n).round(3)
+    rows = []
+    for i in range(n):
+        rows.append([f"R{i:06d}", "2025", fields[i], f"{elytra[i]}", f"{horn[i]}", f"{pron[i]}", f"{surv[i]}",
+                     f"{clutch[i]}", f"{gain[i]}", "NA" if i % 7 else f"R{i // 7:06d}"])
+    for i in range(0, n, 997):          # a sprinkle of bad cells, as in real sheets
+        rows[i][3] = "5..2"
+    return rows
+
+
+def csv_bytes(rows: list[list[str]]) -> bytes:
+    lines = [",".join(COLUMNS)] + [",".join(r) for r in rows]
+    return ("\n".join(lines) + "\n").encode()
+
+
+def xlsx_bytes(rows: list[list[str]]) -> bytes:
+    import openpyxl
+    wb = openpyxl.Workbook(write_only=True)
+    ws = wb.create_sheet()
+    ws.append(COLUMNS)
+    for r in rows:
+        ws.append([r[0], int(r[1]), r[2], *(float(v) if v not in ("5..2",) else v for v in r[3:6]),
+                   int(r[6]), int(r[7]), float(r[8]), r[9]])
+    buf = io.BytesIO()
+    wb.save(buf)
+    return buf.getvalue()
+
+
+def timed(label: str, n: int, fn, repeat: int = 3):
+    best, result = float("inf"), None
+    for _ in range(repeat):
+        t = time.perf_counter()
+        result = fn()
+        best = min(best, time.perf_counter() - t)
+    print(f"  {label:<28} {best * 1000:8.0f} ms   {n / best:>10,.0f} rows/s")
+    return result, best
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rows", type=int, default=100_000)
+    ap.add_argument("--xlsx-rows", type=int, default=20_000)
+    args = ap.parse_args()
+
+    rows = make_rows(args.rows)
+    data = csv_bytes(rows)
+    print(f"CSV: {args.rows:,} rows x {len(COLUMNS)} columns, {len(data) / 2**20:.1f} MB (best of 3)")
+    sheet, t_read = timed("read_sheet", args.rows, lambda: read_sheet("bench.csv", data))
+    check_sheet(PROTOCOL, sheet)  # first call builds and caches the schema
+    report, t_check = timed("check_sheet", args.rows, lambda: check_sheet(PROTOCOL, sheet))
+    total = t_read + t_check
+    print(f"  {'read + check':<28} {total * 1000:8.0f} ms   {args.rows / total:>10,.0f} rows/s")
+    print(f"  errors {len(report.errors):,}, flags {len(report.flags):,}, valid rows {len(report.valid):,}")
+
+    tracemalloc.start()
+    check_sheet(PROTOCOL, read_sheet("bench.csv", data))
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    print(f"  peak Python memory (read + check): {peak / 2**20:.0f} MB")
+
+    xrows = rows[: args.xlsx_rows]
+    xdata = xlsx_bytes(xrows)
+    print(f"XLSX: {len(xrows):,} rows, {len(xdata) / 2**20:.1f} MB")
+    xsheet, t_xread = timed("read_sheet", len(xrows), lambda: read_sheet("bench.xlsx", xdata), repeat=1)
+    _, t_xcheck = timed("check_sheet", len(xrows), lambda: check_sheet(PROTOCOL, xsheet), repeat=1)
+    print(f"  {'read + check':<28} {(t_xread + t_xcheck) * 1000:8.0f} ms   "
+          f"{len(xrows) / (t_xread + t_xcheck):>10,.0f} rows/s")
+
+
+if __name__ == "__main__":
+    main()
