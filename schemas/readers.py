@@ -30,6 +30,7 @@ _ZIP_MAGIC = b"PK\x03\x04"
 _OLE_MAGIC = b"\xd0\xcf\x11\xe0"
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+$")
 _DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+$")
+_SEP_DIRECTIVE = re.compile(r'"?sep=([,;\t])"?[ ,;\t]*(?:\r\n|\r|\n)', re.IGNORECASE)
 _NON_ASCII_IN_WORD = re.compile(r"(?<=[^\W\d_])[^\x00-\x7f](?=[^\W\d_])")
 _LEGACY_NOTE = {
     enc: f"not UTF-8: read as {what}; if accented letters look wrong, save the sheet as 'CSV UTF-8'."
@@ -62,15 +63,20 @@ def read_sheet(name: str, data: bytes) -> Sheet:
         )
     ext = PurePath(name).suffix.lower()
     if data.startswith(_ZIP_MAGIC) or (ext in (".xlsx", ".xlsm") and _ZIP_MAGIC.startswith(data[:4])):
-        rows = read_xlsx_rows(label, data, MAX_ROWS)
-        return _assemble(label, rows, encoding="xlsx", delimiter="", pad_short=True)
+        rows, notes = read_xlsx_rows(label, data, MAX_ROWS)
+        sheet = _assemble(label, rows, encoding="xlsx", delimiter="", pad_short=True)
+        return Sheet(sheet.name, sheet.frame, sheet.row_numbers, "xlsx", "", notes=tuple(notes))
     if data.startswith(_OLE_MAGIC):
         raise SheetError(f"{label}: this is an old Excel (.xls) workbook; save it as .xlsx or CSV and import that.")
     if ext in (".xlsx", ".xlsm"):
         raise SheetError(f"{label}: the name ends in {ext} but the content is not a workbook; "
                          "save the sheet again as .xlsx or as CSV.")
     text, encoding = _decode(label, data)
-    sep = _guess_separator(text, ext)
+    directive = _SEP_DIRECTIVE.match(text)
+    if directive:                      # Excel's "sep=;" first line: not a row of the sheet
+        sep, text = directive.group(1), text[directive.end():]
+    else:
+        sep = _guess_separator(text, ext)
     records = _csv_records(label, text, sep)
     sheet = _assemble(label, records, encoding=encoding, delimiter=sep)
     decimal = "," if sep != "," and _uses_decimal_comma(sheet.frame) else "."
@@ -156,7 +162,7 @@ def _guess_separator(text: str, ext: str) -> str:
 def _csv_records(label: str, text: str, sep: str) -> Iterator[tuple[int, list[str]]]:
     """Yield (sheet row, cells) for each record; sheet rows count records as a spreadsheet does."""
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=sep, quotechar='"', strict=True)
-    row = 0
+    row = width = 0
     while True:
         start = reader.line_num + 1
         try:
@@ -167,7 +173,23 @@ def _csv_records(label: str, text: str, sep: str) -> Iterator[tuple[int, list[st
             yield from _raise_csv_error(label, str(exc), start, reader.line_num, sep)
             return
         row += 1
+        if reader.line_num > start and width:
+            _refuse_swallowed_rows(label, cells, sep, width, start, reader.line_num)
+        elif not width and any(c.strip() for c in cells):
+            width = len(cells)
         yield row, cells
+
+
+def _refuse_swallowed_rows(label: str, cells: list[str], sep: str, width: int, start: int, end: int) -> None:
+    """A stray quote closed by another far below turns whole rows into one cell: refuse that."""
+    need = max(2, width - 1)
+    for cell in cells:
+        if "\n" in cell or "\r" in cell:
+            if any(line.count(sep) >= need for line in cell.splitlines()):
+                raise SheetError(
+                    f"{label}: the quote opened on line {start} runs to line {end} and takes in lines that look "
+                    "like rows; remove the stray quote (\") or close it where the cell ends."
+                )
 
 
 def _raise_csv_error(label: str, problem: str, start: int, line: int, sep: str) -> Iterator:

@@ -61,10 +61,14 @@ class _Roles:
         for c in columns:
             if c in known:
                 continue
-            if c.lower() in OPTIONAL_TEXT and c.lower() not in self.extra.values():
-                self.extra[c] = c.lower()
-            else:
+            if c.lower() not in OPTIONAL_TEXT:
                 unknown.append(c)
+                continue
+            twin = [k for k, v in self.extra.items() if v == c.lower()]
+            if twin:
+                raise SheetError(f"{label}: columns {twin[0]!r} and {c!r} are the same column in another case; "
+                                 "merge them into one.")
+            self.extra[c] = c.lower()
         if unknown:
             raise SheetError(_unknown_sentence(protocol, label, unknown))
 

@@ -11,8 +11,6 @@ import io
 import math
 import warnings
 import zipfile
-from collections.abc import Iterator
-
 from schemas.errors import SheetError
 
 MAX_UNPACKED = 500 * 1024 * 1024   # a workbook unpacking to more than this is refused (zip bomb)
@@ -61,12 +59,16 @@ def _check_archive(label: str, data: bytes) -> None:
                          "save the sheet as CSV or split it.")
 
 
-def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> Iterator[tuple[int, list[str | None]]]:
-    """Yield (sheet row, cells) for the first worksheet; raise SheetError when unreadable."""
+def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> tuple[list[tuple[int, list[str | None]]], list[str]]:
+    """(rows as (sheet row, cells), notes) for the first worksheet; raise SheetError when unreadable.
+
+    The notes say what was left out, e.g. further worksheets.
+    """
     _check_archive(label, data)
     import openpyxl  # slow import: only when a workbook arrives
 
     rows: list[tuple[int, list[str | None]]] = []
+    notes: list[str] = []
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -75,6 +77,11 @@ def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> Iterator[tuple[int
                 if not wb.worksheets:
                     raise SheetError(f"{label}: the workbook has no worksheet; save the sheet with its data.")
                 ws = wb.worksheets[0]
+                if len(wb.worksheets) > 1:
+                    others = ", ".join(repr(w.title) for w in wb.worksheets[1:4])
+                    more = " and more" if len(wb.worksheets) > 4 else ""
+                    notes.append(f"only the first worksheet ({ws.title!r}) was read; the workbook also has "
+                                 f"{others}{more}: import each as its own file if it holds records.")
                 if hasattr(ws, "reset_dimensions"):
                     ws.reset_dimensions()   # stored dimensions may be wrong; read what is there
                 for number, values in enumerate(ws.iter_rows(min_row=1, values_only=True), start=1):
@@ -87,4 +94,4 @@ def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> Iterator[tuple[int
         raise
     except Exception:  # noqa: BLE001 - any parser failure of a damaged workbook means the same to the user
         raise SheetError(f"{label}: {_INCOMPLETE}") from None
-    yield from rows
+    return rows, notes

@@ -315,3 +315,28 @@ def test_damaged_workbook_read_or_refused(patch, where):
     where %= len(data)
     data[where:where + len(patch)] = patch
     _read_or_refuse("b.xlsx", bytes(data))
+
+
+def test_excel_sep_directive_line():
+    sheet = read_sheet("b.csv", b"sep=;\r\ntag;season;femur\r\n1;2025;11,5\r\n")
+    assert (sheet.delimiter, sheet.decimal) == (";", ",")
+    assert list(sheet.frame.columns) == ["tag", "season", "femur"] and sheet.row_numbers == [2]
+
+
+def test_stray_quote_closed_far_below_is_refused():
+    text = 'tag,season,notes\n1,2025,"wet\n2,2025,dry\n3,2025,cold"\n4,2025,ok\n'
+    msg = refused("b.csv", text.encode())
+    assert "line 2" in msg and "line 4" in msg and "stray quote" in msg
+
+
+def test_xlsx_other_worksheets_are_noted(tmp_path):
+    wb = openpyxl.Workbook()
+    wb.active.title = "week 3"
+    wb.active.append(["tag", "season"])
+    wb.active.append(["1", 2025])
+    wb.create_sheet("lookup")
+    path = tmp_path / "b.xlsx"
+    wb.save(path)
+    sheet = read_sheet("b.xlsx", path.read_bytes())
+    assert len(sheet.frame) == 1
+    assert sheet.notes and "'week 3'" in sheet.notes[0] and "'lookup'" in sheet.notes[0]

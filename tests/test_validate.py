@@ -343,3 +343,23 @@ def test_any_header_checks_or_refuses(columns):
         assert str(err).startswith("h.csv: ")
         return
     assert len(report.valid) + len(report.bad_rows) == 1
+
+
+def test_optional_column_twice_in_another_case_is_refused():
+    assert "'Notes' and 'notes'" in refusal(["R1,2025,a,b"], "ring,year,Notes,notes")
+
+
+_TOKENS = st.sampled_from(["ring", "year", "elytra", "clutch", "field", "R1", "0007", "2025", "NA", "5,5", "1.5",
+                           "-1", "x", "Moss Gully", ",", ";", "\t", "\n", "\r\n", '"', " ", "é"])
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(_TOKENS, max_size=60).map("".join), st.sampled_from(["utf-8", "cp1252", "utf-16"]))
+def test_any_text_file_read_and_checked_or_refused(text, codec):
+    try:
+        sheet = read_sheet("h.csv", ("ring,year,elytra,clutch\n" + text).encode(codec))
+        report = check_sheet(PROTOCOL, sheet)
+    except SheetError as err:
+        assert str(err).startswith("h.csv") and "\n" not in str(err)
+        return
+    assert len(report.valid) + len(report.bad_rows) == len(sheet.frame)
