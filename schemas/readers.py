@@ -88,13 +88,14 @@ def read_sheet(name: str, data: bytes) -> Sheet:
 
 def _decode(label: str, data: bytes) -> tuple[str, str]:
     """Decode the bytes; return (text, encoding used). Never silently garbles letters."""
-    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+    utf16 = "utf-16" if data.startswith((b"\xff\xfe", b"\xfe\xff")) else _bomless_utf16(data)
+    if utf16:
         try:
-            return data.decode("utf-16"), "utf-16"
+            text, encoding = data.decode(utf16), utf16
         except UnicodeDecodeError as exc:
             raise SheetError(f"{label}: the UTF-16 text is damaged near byte {exc.start}; "
                              "export the sheet again.") from None
-    if data.startswith(b"\xef\xbb\xbf"):
+    elif data.startswith(b"\xef\xbb\xbf"):
         try:
             text, encoding = data.decode("utf-8-sig"), "utf-8-sig"
         except UnicodeDecodeError as exc:
@@ -109,6 +110,20 @@ def _decode(label: str, data: bytes) -> tuple[str, str]:
         raise SheetError(f"{label}: the file holds NUL bytes, so it is not a text sheet; "
                          "export it as CSV, TSV or XLSX.")
     return text, encoding
+
+
+def _bomless_utf16(data: bytes) -> str | None:
+    """UTF-16 without its byte-order mark: mostly-ASCII text has a NUL in every other byte."""
+    sample = data[:4000]
+    if len(sample) < 8 or len(data) % 2:
+        return None
+    even, odd = sample[0::2], sample[1::2]
+    even_nul, odd_nul = even.count(0) / len(even), odd.count(0) / len(odd)
+    if odd_nul > 0.5 and even_nul < 0.02:
+        return "utf-16-le"
+    if even_nul > 0.5 and odd_nul < 0.02:
+        return "utf-16-be"
+    return None
 
 
 def _decode_legacy(data: bytes) -> tuple[str, str]:

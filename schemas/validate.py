@@ -196,6 +196,9 @@ def _to_numbers(text: pd.Series, decimal: str) -> tuple[pd.Series, pd.Series, st
 def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
     """Check one sheet; raise :class:`SheetError` when the file must be refused whole."""
     frame = sheet.frame.reset_index(drop=True)
+    if frame.columns.duplicated().any() or len(sheet.row_numbers) != len(frame):
+        raise SheetError(f"{sheet.name}: the sheet's columns or row numbers are inconsistent "
+                         "(a column named twice); read the file again with read_sheet.")
     roles = _Roles(protocol, [str(c) for c in frame.columns], sheet.name)
     rows = np.asarray(sheet.row_numbers, dtype=np.int64)
     codes = [c for c in protocol.missing_codes if c]

@@ -59,6 +59,41 @@ def _check_archive(label: str, data: bytes) -> None:
                          "save the sheet as CSV or split it.")
 
 
+def _has_formulas(data: bytes, part: str) -> bool:
+    """Whether the worksheet's XML holds any formula element (read in chunks, not all at once)."""
+    with zipfile.ZipFile(io.BytesIO(data)) as zf, zf.open(part) as stream:
+        tail = b""
+        while chunk := stream.read(1 << 20):
+            window = tail + chunk
+            if b"<f>" in window or b"<f " in window or b"<f/>" in window:
+                return True
+            tail = window[-3:]
+    return False
+
+
+def _refuse_unsaved_formulas(label: str, data: bytes, rows: list[tuple[int, list[str | None]]]) -> None:
+    """A formula whose result was never saved reads as blank: refuse rather than lose the value."""
+    import openpyxl
+    from openpyxl.utils import get_column_letter
+
+    wb = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=False)
+    try:
+        ws = wb.worksheets[0]
+        ws.reset_dimensions()
+        cells = []
+        for (number, cached), formulas in zip(rows, ws.iter_rows(min_row=1, values_only=True)):
+            for col, formula in enumerate(formulas):
+                if formula is not None and (col >= len(cached) or cached[col] is None):
+                    cells.append(f"{get_column_letter(col + 1)}{number}")
+    finally:
+        wb.close()
+    if cells:
+        shown = ", ".join(cells[:5]) + (f" and {len(cells) - 5} more" if len(cells) > 5 else "")
+        raise SheetError(f"{label}: cell{'s' if len(cells) > 1 else ''} {shown} hold formulas whose results "
+                         "were never saved; open the workbook in a spreadsheet program and save it, "
+                         "or paste the values.")
+
+
 def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> tuple[list[tuple[int, list[str | None]]], list[str]]:
     """(rows as (sheet row, cells), notes) for the first worksheet; raise SheetError when unreadable.
 
@@ -88,8 +123,11 @@ def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> tuple[list[tuple[i
                     if number > max_rows + 1 and any(v is not None for v in values):
                         raise SheetError(f"{label}: more than {max_rows:,} data rows; split it into smaller batches.")
                     rows.append((number, [cell_text(v) for v in values]))
+                part = getattr(ws, "_worksheet_path", None)
             finally:
                 wb.close()
+            if part and _has_formulas(data, part):
+                _refuse_unsaved_formulas(label, data, rows)
     except SheetError:
         raise
     except Exception:  # noqa: BLE001 - any parser failure of a damaged workbook means the same to the user

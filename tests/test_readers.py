@@ -340,3 +340,45 @@ def test_xlsx_other_worksheets_are_noted(tmp_path):
     sheet = read_sheet("b.xlsx", path.read_bytes())
     assert len(sheet.frame) == 1
     assert sheet.notes and "'week 3'" in sheet.notes[0] and "'lookup'" in sheet.notes[0]
+
+
+@pytest.mark.parametrize("codec", ["utf-16-le", "utf-16-be"])
+def test_utf16_without_bom(codec):
+    sheet = read_sheet("export.txt", "tag\tseason\tobserver\r\n007\t2025\tZoë\r\n".encode(codec))
+    assert sheet.encoding == codec and column(sheet, "observer") == ["Zoë"]
+
+
+def test_nul_inside_utf16_text_refused():
+    assert "NUL" in refused("b.txt", b"\xff\xfe" + "tag\tseason\r\n1\x00\t2025\r\n".encode("utf-16-le"))
+
+
+def test_xlsx_formula_without_saved_result_is_refused(tmp_path):
+    # openpyxl writes formulas without their results, as scripts do; reading them would give blanks
+    data = xlsx_bytes(tmp_path, [["tag", "season", "clutch"], ["1", 2025, "=2+1"], ["2", 2025, 4]])
+    msg = refused("w.xlsx", data)
+    assert "C2" in msg and "formulas" in msg
+
+
+def test_xlsx_without_formulas_is_not_scanned_twice(tmp_path, monkeypatch):
+    from schemas import xlsx_cells
+
+    def fail(*args):
+        raise AssertionError("second pass without formulas")
+
+    monkeypatch.setattr(xlsx_cells, "_refuse_unsaved_formulas", fail)
+    data = xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025]])
+    assert column(read_sheet("w.xlsx", data), "tag") == ["1"]
+
+
+def test_xlsx_formula_with_saved_result_reads_the_result(tmp_path):
+    import zipfile
+    data = xlsx_bytes(tmp_path, [["tag", "season", "clutch"], ["1", 2025, "=2+1"]])
+    src, out = zipfile.ZipFile(io.BytesIO(data)), io.BytesIO()
+    with zipfile.ZipFile(out, "w") as dst:
+        for info in src.infolist():
+            body = src.read(info)
+            if info.filename == "xl/worksheets/sheet1.xml":
+                assert b"<f>2+1</f><v />" in body
+                body = body.replace(b"<f>2+1</f><v />", b"<f>2+1</f><v>3</v>")   # as a spreadsheet saves it
+            dst.writestr(info, body)
+    assert column(read_sheet("w.xlsx", out.getvalue()), "clutch") == ["3"]
