@@ -175,20 +175,22 @@ def _is_number(text: str) -> bool:
 
 # -- numbers ---------------------------------------------------------------------
 
-def _to_numbers(text: pd.Series, decimal: str) -> tuple[pd.Series, pd.Series, str]:
-    """(floats, mask of filled cells that are not numbers, reason for those)."""
+def _to_numbers(text: pd.Series, decimal: str, codes: list[str]) -> tuple[pd.Series, list[tuple[pd.Series, str]]]:
+    """(floats, [(mask of filled cells that are not numbers, reason for those), ...])."""
     present = text.notna()
+    blank = "leave the cell blank" + (f" or write {' or '.join(codes)}" if codes else "") + " when there is no value"
     if decimal == ",":
         ambiguous = present & text.str.contains(".", regex=False).fillna(False).astype(bool)
         numbers = pd.to_numeric(text.str.replace(",", ".", regex=False).where(~ambiguous), errors="coerce")
-        reason = ("is not a number; this file writes decimals with a comma (12,5), "
-                  "so a point or other character here is ambiguous")
-    else:
-        numbers = pd.to_numeric(text, errors="coerce")
-        reason = "is not a number; write digits with a decimal point (12.5)"
-    numbers = numbers.astype("float64")
-    literal_nan = present & numbers.isna()
-    return numbers, literal_nan, reason
+        numbers = numbers.astype("float64")
+        other = present & numbers.isna() & ~ambiguous
+        return numbers, [
+            (ambiguous, "is ambiguous: this file writes decimals with a comma (12,5), so the point may be a "
+                        "thousands mark; write the number without it"),
+            (other, f"is not a number; write digits with a decimal comma (12,5), or {blank}"),
+        ]
+    numbers = pd.to_numeric(text, errors="coerce").astype("float64")
+    return numbers, [(present & numbers.isna(), f"is not a number; write digits with a decimal point (12.5), or {blank}")]
 
 
 # -- the check -------------------------------------------------------------------
@@ -216,10 +218,11 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
     for col in roles.text:
         typed[col] = text[col]
     for col in roles.numeric:
-        numbers, bad, reason = _to_numbers(text[col], sheet.decimal)
+        numbers, problems = _to_numbers(text[col], sheet.decimal, codes)
         typed[col] = numbers
-        for pos in np.flatnonzero(bad.to_numpy()):
-            errors.append(RowError(int(rows[pos]), col, str(text[col].iat[pos]), reason))
+        for bad, reason in problems:
+            for pos in np.flatnonzero(bad.to_numpy()):
+                errors.append(RowError(int(rows[pos]), col, str(text[col].iat[pos]), reason))
 
     errors.extend(_rule_errors(protocol, typed, text, rows))
     position = {c: i for i, c in enumerate(frame.columns)}
