@@ -111,14 +111,15 @@ def effective(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Fi
         leave_out |= states["status"].eq("open") & states["kind"].eq("outlier")
     drop = states[leave_out]
     record_level = drop["field"].isin(["", protocol.id_col, protocol.season_col])
-    value_level = drop[~record_level & drop["field"].isin(list(fields))]
+    value_level = drop[~record_level & drop["field"].isin(output_fields(protocol))]
 
     skip = frozenset(int(r) for r in drop[record_level]["record_id"].dropna())
-    last = latest(conn, protocol, fields, as_of=as_of, sources=not value_level.empty, skip=skip)
+    cols = output_fields(protocol)
+    wanted = {n: fields[n] for n in cols if n in fields}
+    last = latest(conn, protocol, wanted, as_of=as_of, sources=not value_level.empty, skip=skip)
     if not value_level.empty:
         _leave_out(last, value_level)
         last = last.drop(columns=[c for c in last.columns if c.startswith("_src:")])
-    cols = output_fields(protocol)
     out = last.reindex(columns=cols).reset_index()
     for c in protocol.trait_names + protocol.component_names:
         out[c] = out[c].astype(float)

@@ -303,7 +303,8 @@ class Store:
             if self.fields[f].kind == "number":
                 series.append(pd.to_numeric(valid[f], errors="coerce").astype(float).tolist())
             else:
-                series.append([None if checks.show(v) == "" else checks.show(v) for v in valid[f].tolist()])
+                series.append([v if v is None or isinstance(v, str) else (checks.show(v) or None)
+                               for v in valid[f].tolist()])
         rows = list(zip(*series))
         sql = f"INSERT INTO records({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})"
         for start in range(0, n, _CHUNK):

@@ -46,39 +46,37 @@ def differs_from_record(protocol: Protocol, valid: pd.DataFrame, record: pd.Data
     if valid.empty or record.empty:
         return []
     idx = pd.MultiIndex.from_arrays([valid[protocol.id_col].astype(str), valid[protocol.season_col].astype(str)])
-    present = idx.isin(record.index)
+    pos = record.index.get_indexer(idx)
+    present = pos >= 0
     if not present.any():
         return []
-    sub = valid[present]
-    sub_idx = idx[present]
+    sub, pos = valid[present], pos[present]
+    rows, ids, seasons = sub["_row"].to_numpy(), idx[present].get_level_values(0), idx[present].get_level_values(1)
     out = []
     for field in fields:
         if field not in sub.columns or field not in record.columns:
             continue
         new = sub[field].to_numpy(dtype=object)
-        old = record[field].reindex(sub_idx).to_numpy(dtype=object)
+        old = record[field].to_numpy(dtype=object)[pos]
         for i in np.flatnonzero(_differ(new, old)):
-            ind, season = sub_idx[i]
-            out.append(FlagNote(int(sub["_row"].iloc[i]), ind, season, field, "differs_from_record", show(new[i]),
+            out.append(FlagNote(int(rows[i]), ids[i], seasons[i], field, "differs_from_record", show(new[i]),
                                 f"{field} {show(new[i])} differs from {show(old[i])} already on record for "
-                                f"{ind} in {season}; keep the new value, exclude it, or set the right one"))
+                                f"{ids[i]} in {seasons[i]}; keep the new value, exclude it, or set the right one"))
     return out
 
 
 def _differ(new: np.ndarray, old: np.ndarray) -> np.ndarray:
-    out = np.zeros(len(new), dtype=bool)
-    for i, (a, b) in enumerate(zip(new, old)):
-        if _blank(a) or _blank(b):
-            continue
-        if isinstance(a, (int, float)) and isinstance(b, (int, float)):
-            out[i] = not math.isclose(float(a), float(b), rel_tol=1e-9, abs_tol=1e-12)
-        else:
-            out[i] = str(a) != str(b)
+    """Both filled in and different (numbers compared with a relative tolerance of 1e-9)."""
+    a = pd.to_numeric(pd.Series(new), errors="coerce").to_numpy(dtype=float)
+    b = pd.to_numeric(pd.Series(old), errors="coerce").to_numpy(dtype=float)
+    numeric = np.isfinite(a) & np.isfinite(b)
+    out = numeric & ~np.isclose(a, b, rtol=1e-9, atol=1e-12)
+    blank_new = pd.isna(pd.Series(new)).to_numpy()
+    blank_old = pd.isna(pd.Series(old)).to_numpy()
+    text = ~numeric & ~blank_new & ~blank_old
+    if text.any():
+        out[text] = np.array([str(x) != str(y) for x, y in zip(new[text], old[text])], dtype=bool)
     return out
-
-
-def _blank(v) -> bool:
-    return v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NA
 
 
 def new_outliers(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame) -> list[FlagNote]:
@@ -90,31 +88,32 @@ def new_outliers(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame) 
     if valid.empty or not traits:
         return []
     key_cols = [protocol.id_col, protocol.season_col]
-    batch = valid.assign(**{c: valid[c].astype(str) for c in key_cols})
-    batch_last = batch.groupby(key_cols, sort=False).last()
-    merged = batch_last.combine_first(record) if len(record) else batch_last
-    merged = merged.reset_index()
-    for g in protocol.groups:
-        if g not in merged.columns:
-            merged[g] = None
-    cells = [protocol.season_col, *protocol.groups]
-    merged["_cell"] = merged[cells].astype(str).agg("\x1f".join, axis=1) if cells else ""
-    cell_of = merged.set_index(key_cols)["_cell"]
-    batch["_cell"] = cell_of.reindex(pd.MultiIndex.from_frame(batch[key_cols])).to_numpy()
+    keep = [c for c in (*protocol.groups, *traits) if c in valid.columns]
+    batch_keys = pd.MultiIndex.from_arrays([valid[c].astype(str) for c in key_cols], names=key_cols)
+    batch_last = valid[keep].set_axis(batch_keys).groupby(level=[0, 1], sort=False).last()
+    merged = batch_last.combine_first(record[[c for c in (*protocol.groups, *traits) if c in record.columns]]) \
+        if len(record) else batch_last
+    cells = [merged.index.get_level_values(1).to_numpy(dtype=object)]
+    cells += [merged[g].astype(object).to_numpy() if g in merged.columns else np.full(len(merged), None)
+              for g in protocol.groups]
+    code = pd.MultiIndex.from_arrays(cells).factorize()[0] if len(cells) > 1 else pd.factorize(cells[0])[0]
+    groups = pd.Series(np.arange(len(merged))).groupby(code).indices
+    where = merged.index.get_indexer(batch_keys)
+    rows = valid["_row"].to_numpy()
     out = []
     limit = protocol.outlier_z
     for trait in traits:
-        values = pd.to_numeric(merged[trait], errors="coerce")
-        z = pd.Series(np.nan, index=merged.index)
-        for _, pos in merged.groupby("_cell", sort=False).indices.items():
-            z.iloc[pos] = np.asarray(robust_z(values.iloc[pos].to_numpy(dtype=float)), dtype=float)
-        zi = pd.Series(z.to_numpy(), index=pd.MultiIndex.from_frame(merged[key_cols]))
-        bz = zi.reindex(pd.MultiIndex.from_frame(batch[key_cols])).to_numpy()
-        bv = pd.to_numeric(batch[trait], errors="coerce").to_numpy(dtype=float)
-        hit = np.flatnonzero(np.isfinite(bz) & (np.abs(bz) > limit) & np.isfinite(bv))
+        values = pd.to_numeric(merged[trait], errors="coerce").to_numpy(dtype=float)
+        z = np.full(len(merged), np.nan)
+        for pos in groups.values():
+            z[pos] = np.asarray(robust_z(values[pos]), dtype=float)
+        bz = z[where]
+        bv = pd.to_numeric(valid[trait], errors="coerce").to_numpy(dtype=float)
+        with np.errstate(invalid="ignore"):
+            hit = np.flatnonzero(np.isfinite(bz) & (np.abs(bz) > limit) & np.isfinite(bv))
         for i in hit:
-            ind, season = batch[protocol.id_col].iloc[i], batch[protocol.season_col].iloc[i]
-            out.append(FlagNote(int(batch["_row"].iloc[i]), ind, season, trait, "outlier", show(bv[i]),
+            ind, season = batch_keys[i]
+            out.append(FlagNote(int(rows[i]), ind, season, trait, "outlier", show(bv[i]),
                                 f"{trait} {show(bv[i])} is a robust outlier in its cell (z = {bz[i]:.1f}, "
                                 f"limit {limit:g}); re-measure if the animal is at hand, else keep or exclude it"))
     return out
