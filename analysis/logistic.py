@@ -81,47 +81,54 @@ def batched_logistic(
     cells: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]],
     start: np.ndarray,
     max_iter: int = 30,
-    tol: float = 1e-10,
+    step_tol: float = 1e-7,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Count-weighted logistic fits of many resamples at once (Newton's method, batched).
 
     ``cells`` holds, per cell, the fixed design X~ (n x k, intercept first), the
     0/1 outcome y (n), the counts C (B x n) and the affine map T (B x k x k)
     taking X~ to the resample's standardized design (x = T x~). Coefficients
-    are on the standardized scale, pooled over the cells. Returns
+    are on the standardized scale, pooled over the cells. Newton steps stop
+    once every step is below ``step_tol`` (relative); as convergence is
+    quadratic the remaining error is of order step_tol squared. Returns
     (coefficients B x k, mean of p(1-p), mean of y, usable mask), the means
-    weighted by the counts.
+    weighted by the counts and taken at the final coefficients.
     """
     beta = start.copy()
     B, k = beta.shape
     a, b = np.triu_indices(k)
-    prods = [X[:, a] * X[:, b] for X, _, _, _ in cells]
+    prep = []
+    for X, y, C, _ in cells:
+        feats = np.column_stack([X[:, a] * X[:, b], np.ones(len(X))])
+        const = C @ np.column_stack([X * y[:, None], y, np.ones(len(X))])  # sum C y x, sum C y, sum C
+        prep.append((feats, const, np.empty(C.shape), np.empty(C.shape)))
     ok = np.ones(B, dtype=bool)
+    eye = np.eye(k)
+
+    def predict(X, T, out):
+        theta = np.einsum("bak,ba->bk", T, beta)
+        np.matmul(theta, X.T, out=out)
+        return out
+
     for _ in range(max_iter):
         H = np.zeros((B, k, k))
         g = np.zeros((B, k))
-        pq_sum = np.zeros(B)
-        n_sum = np.zeros(B)
-        y_sum = np.zeros(B)
-        for (X, y, C, T), prod in zip(cells, prods):
-            theta = np.einsum("bak,ba->bk", T, beta)
-            eta = theta @ X.T
-            ok &= np.abs(eta).max(axis=1, initial=0.0) < ETA_LIMIT
-            p = expit(eta)
-            pq = p * (1 - p)
-            Cpq = C * pq
+        for (X, _, C, T), (feats, const, buf, cp) in zip(cells, prep):
+            p = expit(predict(X, T, buf), out=buf)
+            np.multiply(C, p, out=cp)  # C p
+            gz = const[:, :k] - cp @ X  # sum C (y - p) x
+            np.multiply(cp, p, out=buf)
+            np.subtract(cp, buf, out=buf)  # C p (1 - p)
+            packed = buf @ feats
             Hz = np.empty((B, k, k))
-            packed = Cpq @ prod
-            Hz[:, a, b] = packed
-            Hz[:, b, a] = packed
-            gz = (C * (y - p)) @ X
+            Hz[:, a, b] = packed[:, :-1]
+            Hz[:, b, a] = packed[:, :-1]
             H += T @ Hz @ np.swapaxes(T, 1, 2)
             g += np.einsum("bij,bj->bi", T, gz)
-            pq_sum += Cpq.sum(axis=1)
-            n_sum += C.sum(axis=1)
-            y_sum += C @ y
-        H[~ok] = np.eye(k)
-        g[~ok] = 0.0
+        bad = ~ok | ~np.isfinite(H).all(axis=(1, 2)) | ~np.isfinite(g).all(axis=1)
+        ok &= ~bad
+        H[bad] = eye
+        g[bad] = 0.0
         try:
             step = np.linalg.solve(H, g[..., None])[..., 0]
         except np.linalg.LinAlgError:
@@ -132,10 +139,23 @@ def batched_logistic(
                 except np.linalg.LinAlgError:
                     ok[i] = False
         beta += step
-        done = np.abs(step).max(axis=1) < tol * np.maximum(1.0, np.abs(beta).max(axis=1))
+        done = np.abs(step).max(axis=1) < step_tol * np.maximum(1.0, np.abs(beta).max(axis=1))
         if np.all(done | ~ok):
             break
     else:
         ok &= done
+    # final pass at the final coefficients: separation check and the count-weighted means
+    pq_sum = np.zeros(B)
+    y_sum = np.zeros(B)
+    n_sum = np.zeros(B)
+    for (X, _, C, T), (_, const, buf, cp) in zip(cells, prep):
+        eta = predict(X, T, buf)
+        ok &= np.abs(eta).max(axis=1, initial=0.0) < ETA_LIMIT
+        p = expit(eta, out=buf)
+        np.multiply(p, p, out=cp)
+        np.subtract(p, cp, out=cp)  # p (1 - p)
+        pq_sum += np.einsum("bn,bn->b", C, cp)
+        y_sum += const[:, k]
+        n_sum += const[:, k + 1]
     beta[~ok] = np.nan
     return beta, pq_sum / n_sum, y_sum / n_sum, ok

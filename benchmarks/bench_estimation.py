@@ -1,0 +1,120 @@
+"""Speed of the estimation engine (prints figures; no pass/fail).
+
+Study: 10,000 individuals in 2 cells, 3 traits, 0/1 fitness, 2,000 resamples.
+Figures: our full estimates table (bootstrap + permutations); a statsmodels
+loop refitting the linear and quadratic models per resample (fewer resamples,
+scaled); the ratio; the floor (one matrix product of the resample counts by
+the moment features); bootstrap=0 (live dashboard path); and the coverage of
+95 % bootstrap intervals over 1,000 simulated seasons with a known gradient.
+
+Run: python benchmarks/bench_estimation.py [--quick]
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from analysis.cells import prepare, split_cells  # noqa: E402
+from analysis.design import Design  # noqa: E402
+from analysis.resample import SeasonResampler, draw_counts  # noqa: E402
+from analysis.table import estimate_table  # noqa: E402
+
+TRAITS = ("length", "depth", "spots")
+
+
+def study(n: int = 10_000, seed: int = 1) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    z = rng.multivariate_normal([50.0, 12.0, 8.0], [[25, 6, 1], [6, 4, 0.5], [1, 0.5, 9]], size=n)
+    eta = -0.2 + 0.08 * (z[:, 0] - 50) - 0.1 * (z[:, 1] - 12)
+    alive = (rng.random(n) < 1 / (1 + np.exp(-eta))).astype(float)
+    return pd.DataFrame({"id": [f"f{i}" for i in range(n)], "season": "s1", "site": np.where(np.arange(n) % 2, "upper", "lower"),
+                         "length": z[:, 0], "depth": z[:, 1], "spots": z[:, 2], "alive": alive})
+
+
+DESIGN = Design(traits=TRAITS, fitness={"alive": "binary"})
+
+
+def timed(fn, repeat: int = 1) -> float:
+    best = np.inf
+    for _ in range(repeat):
+        t = time.perf_counter()
+        fn()
+        best = min(best, time.perf_counter() - t)
+    return best
+
+
+def statsmodels_loop(frame: pd.DataFrame, B: int, seed: int = 3) -> None:
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(seed)
+    cells = [g.reset_index(drop=True) for _, g in frame.groupby("site")]
+    for _ in range(B):
+        xs, ws = [], []
+        for g in cells:
+            d = g.iloc[rng.integers(0, len(g), len(g))]
+            z = d[list(TRAITS)].to_numpy()
+            xs.append((z - z.mean(0)) / z.std(0, ddof=1))
+            ws.append(d["alive"].to_numpy() / d["alive"].mean())
+        for x, w in [*zip(xs, ws), (np.vstack(xs), np.concatenate(ws))]:
+            sm.OLS(w, sm.add_constant(x)).fit()
+            q = np.column_stack([x] + [x[:, j] * x[:, k] * (0.5 if j == k else 1) for j in range(3) for k in range(j, 3)])
+            sm.OLS(w, sm.add_constant(q)).fit()
+
+
+def floor(frame: pd.DataFrame, B: int) -> float:
+    """One matrix product of (B x n) counts by the cells' moment features (counts drawn beforehand)."""
+    cells = split_cells(frame, DESIGN, ["alive"])["s1"]
+    preps = {"alive": [prepare(c, "alive", "binary", TRAITS) for c in cells]}
+    rs = SeasonResampler(preps, TRAITS, pooled=True, logistic_blocks=set())
+    rng = np.random.default_rng(0)
+    counts = [draw_counts(rng, len(c.z), B) for c in cells]
+    return timed(lambda: [C @ F for C, F in zip(counts, rs.features)], repeat=3)
+
+
+def coverage(seasons: int, B: int, n: int = 150, beta: float = 0.3, seed: int = 7) -> float:
+    """Share of 95 % bootstrap intervals covering the true gradient (w = 1 + beta x + noise, one trait)."""
+    rng = np.random.default_rng(seed)
+    design = Design(traits=("z",), fitness={"w": "continuous"}, groups=())
+    hits = 0
+    for s in range(seasons):
+        x = rng.normal(size=n)
+        w = 1 + beta * x + rng.normal(scale=0.5, size=n)
+        frame = pd.DataFrame({"id": np.arange(n).astype(str), "season": "s", "z": x, "w": w.clip(0.01)})
+        t = estimate_table(frame, design, bootstrap=B, permutations=0, seed=s).table
+        r = t[(t.quantity == "gradient") & (t.site == "all")].iloc[0]
+        hits += r.ci_low <= beta <= r.ci_high
+    return hits / seasons
+
+
+def main() -> None:
+    quick = "--quick" in sys.argv
+    frame = study()
+    B = 2000
+    t_full = timed(lambda: estimate_table(frame, DESIGN, bootstrap=B))
+    t_boot_only = timed(lambda: estimate_table(frame, DESIGN, bootstrap=B, permutations=0))
+    t_zero = timed(lambda: estimate_table(frame, DESIGN, bootstrap=0), repeat=3)
+    loop_B = 20 if quick else 50
+    t_loop = timed(lambda: statsmodels_loop(frame, loop_B)) * B / loop_B
+    t_floor = floor(frame, B)
+    print(f"study: {len(frame)} individuals, 2 cells, {len(TRAITS)} traits, 0/1 fitness, {B} resamples")
+    print(f"full estimates table (bootstrap + {B} permutations): {t_full:8.3f} s")
+    print(f"  of which bootstrap only (permutations=0):          {t_boot_only:8.3f} s")
+    print(f"bootstrap=0 (live dashboard path):                   {t_zero:8.3f} s")
+    print(f"statsmodels loop, linear+quadratic only, scaled from {loop_B}: {t_loop:8.1f} s")
+    print(f"speed-up over the loop (full table vs loop):        {t_loop / t_full:8.0f} x   (target >= 100 x)")
+    print(f"floor: counts ({B} x n) @ moment features:          {t_floor:8.3f} s")
+    print(f"full table / floor:                                 {t_full / t_floor:8.1f} x   (target <= 5 x)")
+    print(f"bootstrap only / floor:                             {t_boot_only / t_floor:8.1f} x")
+    k = 100 if quick else 1000
+    print(f"coverage of 95 % intervals over {k} seasons (B=400): {coverage(k, 400):.3f}")
+
+
+if __name__ == "__main__":
+    main()
