@@ -43,6 +43,18 @@ def cell_text(value: object) -> str | None:
     return str(value)
 
 
+def _hostile_xml(exc: BaseException | None) -> bool:
+    """Whether defusedxml stopped the parse (entity bombs, external entities) somewhere in the chain."""
+    from defusedxml.common import DefusedXmlException
+
+    seen = 0
+    while exc is not None and seen < 10:
+        if isinstance(exc, DefusedXmlException):
+            return True
+        exc, seen = exc.__cause__ or exc.__context__, seen + 1
+    return False
+
+
 def _check_archive(label: str, data: bytes) -> None:
     try:
         with zipfile.ZipFile(io.BytesIO(data)) as zf:
@@ -130,6 +142,10 @@ def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> tuple[list[tuple[i
                 _refuse_unsaved_formulas(label, data, rows)
     except SheetError:
         raise
-    except Exception:  # noqa: BLE001 - any parser failure of a damaged workbook means the same to the user
+    except Exception as exc:  # noqa: BLE001 - any parser failure of a damaged workbook means the same to the user
+        if _hostile_xml(exc):
+            raise SheetError(f"{label}: the workbook's XML declares entities or external references, which "
+                             "spreadsheet programs never write (a damaged or hostile file); save it again "
+                             "from a spreadsheet program.") from None
         raise SheetError(f"{label}: {_INCOMPLETE}") from None
     return rows, notes
