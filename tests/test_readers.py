@@ -370,34 +370,32 @@ def test_xlsx_without_formulas_is_not_scanned_twice(tmp_path, monkeypatch):
     assert column(read_sheet("w.xlsx", data), "tag") == ["1"]
 
 
-def test_xlsx_formula_with_saved_result_reads_the_result(tmp_path):
+def edit_sheet_xml(data: bytes, old: bytes, new: bytes, prefix: bytes = b"") -> bytes:
+    """The workbook with ``old`` replaced by ``new`` (and ``prefix`` put first) in its first sheet's XML."""
     import zipfile
-    data = xlsx_bytes(tmp_path, [["tag", "season", "clutch"], ["1", 2025, "=2+1"]])
     src, out = zipfile.ZipFile(io.BytesIO(data)), io.BytesIO()
     with zipfile.ZipFile(out, "w") as dst:
         for info in src.infolist():
             body = src.read(info)
             if info.filename == "xl/worksheets/sheet1.xml":
-                assert b"<f>2+1</f><v />" in body
-                body = body.replace(b"<f>2+1</f><v />", b"<f>2+1</f><v>3</v>")   # as a spreadsheet saves it
+                assert old in body
+                body = prefix + body.replace(old, new)
             dst.writestr(info, body)
-    assert column(read_sheet("w.xlsx", out.getvalue()), "clutch") == ["3"]
+    return out.getvalue()
+
+
+def test_xlsx_formula_with_saved_result_reads_the_result(tmp_path):
+    data = xlsx_bytes(tmp_path, [["tag", "season", "clutch"], ["1", 2025, "=2+1"]])
+    data = edit_sheet_xml(data, b"<f>2+1</f><v />", b"<f>2+1</f><v>3</v>")   # as a spreadsheet saves it
+    assert column(read_sheet("w.xlsx", data), "clutch") == ["3"]
 
 
 def test_xlsx_entity_expansion_is_refused_not_expanded(tmp_path):
     # the "billion laughs" entity bomb (defusedxml documentation); expanded, it would take gigabytes
-    import zipfile
     bomb = (b'<?xml version="1.0"?><!DOCTYPE worksheet [<!ENTITY lol "lol">'
             + b"".join(b'<!ENTITY lol%d "%s">' % (i, (b"&lol%d;" % (i - 1) if i > 1 else b"&lol;") * 10)
                        for i in range(1, 10))
             + b"]>")
     data = xlsx_bytes(tmp_path, [["tag", "season"], ["&lol9;", 2025]])
-    src, out = zipfile.ZipFile(io.BytesIO(data)), io.BytesIO()
-    with zipfile.ZipFile(out, "w") as dst:
-        for info in src.infolist():
-            body = src.read(info)
-            if info.filename == "xl/worksheets/sheet1.xml":
-                assert b"<t>&amp;lol9;</t>" in body
-                body = bomb + body.replace(b"<t>&amp;lol9;</t>", b"<t>&lol9;</t>")
-            dst.writestr(info, body)
-    assert "declares entities" in refused("w.xlsx", out.getvalue())
+    data = edit_sheet_xml(data, b"<t>&amp;lol9;</t>", b"<t>&lol9;</t>", prefix=bomb)
+    assert "declares entities" in refused("w.xlsx", data)
