@@ -79,14 +79,14 @@ def floor(frame: pd.DataFrame, B: int) -> float:
 
 
 def coverage(seasons: int, B: int, n: int = 150, beta: float = 0.3, seed: int = 7) -> float:
-    """Share of 95 % bootstrap intervals covering the true gradient (w = 1 + beta x + noise, one trait)."""
+    """Share of 95 % bootstrap intervals covering the true gradient (w = 1 + beta x + e, one trait, population slope beta)."""
     rng = np.random.default_rng(seed)
     design = Design(traits=("z",), fitness={"w": "continuous"}, groups=())
     hits = 0
     for s in range(seasons):
-        x = rng.normal(size=n)
-        w = 1 + beta * x + rng.normal(scale=0.5, size=n)
-        frame = pd.DataFrame({"id": np.arange(n).astype(str), "season": "s", "z": x, "w": w.clip(0.01)})
+        x = rng.uniform(-np.sqrt(3), np.sqrt(3), n)  # sd 1; bounded noise keeps fitness positive
+        w = 1 + beta * x + rng.uniform(-0.4, 0.4, n)
+        frame = pd.DataFrame({"id": np.arange(n).astype(str), "season": "s", "z": x, "w": w})
         t = estimate_table(frame, design, bootstrap=B, permutations=0, seed=s).table
         r = t[(t.quantity == "gradient") & (t.site == "all")].iloc[0]
         hits += r.ci_low <= beta <= r.ci_high

@@ -1,0 +1,202 @@
+"""Heritability, responses to selection, selection across seasons, planning.
+
+Sources, named beside each check:
+- statsmodels OLS (reference library) for the parent-offspring regression.
+- Falconer & Mackay 1996, Introduction to Quantitative Genetics: the
+  midparent slope estimates h^2, a single-parent slope h^2/2; breeder's
+  equation R = h^2 S.
+- Lande 1979, Evolution 33:402-416: multivariate response G P^-1 S.
+- DerSimonian & Laird 1986, Controlled Clinical Trials 7:177-188, via
+  statsmodels.stats.meta_analysis.combine_effects (reference library);
+  Cochran's Q against scipy.stats.chi2.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from scipy import stats
+from statsmodels.stats.meta_analysis import combine_effects
+
+from analysis.design import Design
+from analysis.planning import individuals_for_gradient, variance_inflation
+from analysis.response import generations_needed, project_mean
+from analysis.table import estimate_table
+
+
+def pedigree(h2=0.4, families=300, kids=4, seed=8) -> pd.DataFrame:
+    """Parents in season 2030, offspring in 2031; additive model with Vp = 1."""
+    rng = np.random.default_rng(seed)
+    a_m, a_f = rng.normal(0, np.sqrt(h2), (2, families))
+    rows = []
+    for i in range(families):
+        for sex, a in (("m", a_m[i]), ("f", a_f[i])):
+            rows.append(dict(id=f"{sex}{i}", season="2030", site="pond", length=10 + a + rng.normal(0, np.sqrt(1 - h2)),
+                             mother=None, father=None))
+        for k in range(kids):
+            a_o = (a_m[i] + a_f[i]) / 2 + rng.normal(0, np.sqrt(h2 / 2))
+            rows.append(dict(id=f"o{i}_{k}", season="2031", site="pond", length=10 + a_o + rng.normal(0, np.sqrt(1 - h2)),
+                             mother=f"m{i}", father=f"f{i}"))
+    frame = pd.DataFrame(rows)
+    frame["alive"] = (rng.random(len(frame)) < 0.6).astype(float)
+    return frame
+
+
+PED_DESIGN = Design(traits=("length",), fitness={"alive": "binary"}, mother="mother", father="father")
+
+
+def h2_row(table):
+    r = table[table.quantity == "heritability"]
+    assert len(r) == 1
+    return r.iloc[0]
+
+
+def test_midparent_heritability_matches_statsmodels_and_truth():
+    frame = pedigree()
+    est = estimate_table(frame, PED_DESIGN, bootstrap=0)
+    r = h2_row(est.table)
+    assert (r.season, r.site, r.fitness, r.term) == ("all", "all", "", "length")
+    # independent computation: family means on midparent, statsmodels OLS
+    par = frame[frame.season == "2030"].set_index("id")["length"]
+    kids = frame[frame.season == "2031"]
+    fam = kids.groupby(["mother", "father"])["length"].mean().reset_index()
+    mid = (fam["mother"].map(par) + fam["father"].map(par)) / 2
+    fit = sm.OLS(fam["length"].to_numpy(), sm.add_constant(mid.to_numpy())).fit()
+    assert r.estimate == pytest.approx(fit.params[1], rel=1e-10)
+    assert r.se == pytest.approx(fit.bse[1], rel=1e-10)
+    assert r.n == 300
+    # Falconer & Mackay 1996: the midparent slope estimates h^2 (true value 0.4)
+    assert abs(r.estimate - 0.4) < 3 * r.se
+    assert any("midparent" in n.message for n in est.notes if n.quantity == "heritability")
+
+
+def test_single_parent_heritability_is_twice_the_slope():
+    frame = pedigree(seed=9)
+    # fathers unmeasured: drop their records; one mother measured twice (mean of her records is used)
+    frame = frame[~frame["id"].str.startswith("f")]
+    extra = frame[frame["id"] == "m0"].assign(season="2031", length=lambda d: d["length"] + 0.6)
+    frame = pd.concat([frame, extra], ignore_index=True)
+    r = h2_row(estimate_table(frame, PED_DESIGN, bootstrap=0).table)
+    par = frame[frame["id"].str.startswith("m")].groupby("id")["length"].mean()
+    kids = frame[frame["id"].str.startswith("o")]
+    fam = kids.groupby(["mother", "father"])["length"].mean().reset_index()
+    fit = sm.OLS(fam["length"].to_numpy(), sm.add_constant(fam["mother"].map(par).to_numpy())).fit()
+    # Falconer & Mackay 1996: single-parent slope = h^2 / 2
+    assert r.estimate == pytest.approx(2 * fit.params[1], rel=1e-10)
+    assert r.se == pytest.approx(2 * fit.bse[1], rel=1e-10)
+    assert abs(r.estimate - 0.4) < 3 * r.se
+
+
+def selection_frame(seasons=("2030", "2031", "2032", "2033"), seed=4) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    parts = []
+    for i, s in enumerate(seasons):
+        for site in ("bay", "cove"):
+            n = 150
+            z = rng.multivariate_normal([20, 5], [[4, 0.6], [0.6, 1]], n)
+            slope = 0.15 * (1 if i % 2 == 0 else -0.5)
+            w = np.clip(1 + slope * (z[:, 0] - 20) / 2 + rng.normal(0, 0.6, n), 0, None)
+            parts.append(pd.DataFrame({"id": [f"{s}{site}{k}" for k in range(n)], "season": s, "site": site,
+                                       "length": z[:, 0], "girth": z[:, 1], "eggs": w}))
+    return pd.concat(parts, ignore_index=True)
+
+
+SEL_DESIGN = Design(traits=("length", "girth"), fitness={"eggs": "continuous"})
+
+
+def pick(table, **kw):
+    m = np.ones(len(table), dtype=bool)
+    for k, v in kw.items():
+        m &= (table[k] == v).to_numpy()
+    r = table[m]
+    assert len(r) == 1, kw
+    return r.iloc[0]
+
+
+def test_responses_use_entered_heritability_and_genetic_correlations():
+    frame = selection_frame()
+    h2 = {"length": (0.5, 0.1, "earlier study"), "girth": (0.3, None, "guess")}
+    est = estimate_table(frame, SEL_DESIGN, bootstrap=0, h2=h2, genetic_correlations={("length", "girth"): 0.2})
+    t = est.table
+    S = pick(t, season="2031", site="bay", quantity="differential", term="length")
+    mean = pick(t, season="2031", site="bay", quantity="mean", term="length")
+    R = pick(t, season="2031", site="bay", quantity="response", term="length")
+    assert R.estimate == pytest.approx(0.5 * S.estimate, rel=1e-12)  # breeder's equation (Falconer & Mackay 1996)
+    assert R.se == pytest.approx(np.hypot(0.5 * S.se, 0.1 * S.estimate), rel=1e-12)  # delta method, common practice
+    pct = pick(t, season="2031", site="bay", quantity="response_pct", term="length")
+    assert pct.estimate == pytest.approx(100 * R.estimate / mean.estimate, rel=1e-12)
+    # Lande 1979: delta z = G P^-1 S, computed here independently with numpy
+    d = frame[(frame.season == "2031") & (frame.site == "bay")]
+    z = d[["length", "girth"]].to_numpy()
+    w = d["eggs"].to_numpy() / d["eggs"].mean()
+    S_vec = (w[:, None] * z).mean(0) - z.mean(0)
+    P1 = np.cov(z, rowvar=False, ddof=1)
+    g_sd = np.sqrt(np.array([0.5, 0.3]) * np.diag(P1))
+    G = np.array([[g_sd[0] ** 2, 0.2 * g_sd[0] * g_sd[1]], [0.2 * g_sd[0] * g_sd[1], g_sd[1] ** 2]])
+    dz = G @ np.linalg.solve(np.cov(z, rowvar=False, ddof=0), S_vec)
+    for j, name in enumerate(("length", "girth")):
+        r = pick(t, season="2031", site="bay", quantity="response_multi", term=name)
+        assert r.estimate == pytest.approx(dz[j], rel=1e-8)
+    assert not any(n.quantity == "response_multi" for n in est.notes)  # r_g was given, nothing assumed
+
+
+def test_no_heritability_means_no_response_and_a_note():
+    est = estimate_table(selection_frame(), SEL_DESIGN, bootstrap=0, h2={"length": (0.5, None, "x")})
+    t = est.table
+    assert not ((t.quantity == "response") & (t.term == "girth")).any()
+    assert (t.quantity == "response").any()
+    assert not (t.quantity == "response_multi").any()
+    assert any("girth" in n.message and n.quantity == "response" for n in est.notes)
+
+
+def test_across_seasons_match_statsmodels_meta_analysis():
+    frame = selection_frame()
+    t = estimate_table(frame, SEL_DESIGN, bootstrap=0).table
+    for site in ("bay", "cove", "all"):
+        g = t[(t.site == site) & (t.quantity == "gradient") & (t.term == "length") & (t.season != "all")]
+        g = g.set_index("season").loc[["2030", "2031", "2032", "2033"]]
+        ref = combine_effects(g.estimate.to_numpy(), g.se.to_numpy() ** 2, method_re="dl")  # statsmodels
+        mean = pick(t, season="all", site=site, quantity="gradient_mean", term="length")
+        assert mean.estimate == pytest.approx(ref.mean_effect_fe, rel=1e-10)
+        assert mean.se == pytest.approx(ref.sd_eff_w_fe, rel=1e-10)
+        tau2 = pick(t, season="all", site=site, quantity="gradient_tau2", term="length")
+        assert tau2.estimate == pytest.approx(ref.tau2, rel=1e-10, abs=1e-15)  # DerSimonian & Laird 1986
+        q = pick(t, season="all", site=site, quantity="gradient_q", term="length")
+        assert q.estimate == pytest.approx(ref.q, rel=1e-10)
+        assert q.p_value == pytest.approx(stats.chi2.sf(ref.q, 3), rel=1e-10)  # Cochran's Q, df = k - 1
+        signs = np.sign(g.estimate.to_numpy())
+        flips = pick(t, season="all", site=site, quantity="sign_changes", term="length")
+        assert flips.estimate == np.count_nonzero(signs[1:] != signs[:-1])
+        assert mean.n == g.n.sum()
+
+
+def test_projection_and_generations():
+    """Constant response R per generation: mean after k generations is mean0 + k R (breeder's equation, common practice)."""
+    assert project_mean(10.0, 0.25, 4).tolist() == [10.0, 10.25, 10.5, 10.75, 11.0]
+    assert generations_needed(1.0, 0.25) == 4
+    assert generations_needed(1.1, 0.25) == 5
+    assert generations_needed(-1.0, 0.25) is None
+    assert generations_needed(1.0, 0.0) is None
+
+
+def test_planning_matches_simulated_ols_standard_errors():
+    """The planned n gives a 95 % interval of +- d; checked against statsmodels OLS on simulated data."""
+    rho = 0.6
+    R = np.array([[1, rho], [rho, 1]])
+    vif = variance_inflation(R)
+    assert vif[0] == pytest.approx(1 / (1 - rho**2), rel=1e-12)  # VIF = 1/(1 - R^2) for two traits (common practice)
+    n = individuals_for_gradient(0.1, 0.5, vif=vif[0], n_traits=2)
+    df = n - 3
+    assert stats.t.ppf(0.975, df) * np.sqrt(0.5 * vif[0] / df) <= 0.1
+    assert stats.t.ppf(0.975, df - 1) * np.sqrt(0.5 * vif[0] / (df - 1)) > 0.1  # smallest such n
+    rng = np.random.default_rng(12)
+    ses = []
+    for _ in range(30):
+        x = rng.multivariate_normal([0, 0], R, n)
+        x = (x - x.mean(0)) / x.std(0, ddof=1)
+        w = 1 + 0.2 * x[:, 0] + rng.normal(0, np.sqrt(0.5), n)
+        ses.append(sm.OLS(w, sm.add_constant(x)).fit().bse[1])
+    half = 1.96 * np.mean(ses)
+    assert half == pytest.approx(0.1, rel=0.1)
