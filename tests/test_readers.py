@@ -399,3 +399,11 @@ def test_xlsx_entity_expansion_is_refused_not_expanded(tmp_path):
     data = xlsx_bytes(tmp_path, [["tag", "season"], ["&lol9;", 2025]])
     data = edit_sheet_xml(data, b"<t>&amp;lol9;</t>", b"<t>&lol9;</t>", prefix=bomb)
     assert "declares entities" in refused("w.xlsx", data)
+
+
+def test_workbook_with_unsupported_zip_version_is_refused(tmp_path):
+    # found by Hypothesis: one changed byte in the central directory ("zip file version 6.4")
+    data = bytearray(xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025]]))
+    central = data.rfind(b"PK\x01\x02")
+    data[central + 6] = 64                      # "version needed to extract" of the last entry
+    assert "incomplete" in refused("w.xlsx", bytes(data))
