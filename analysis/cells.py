@@ -60,7 +60,9 @@ def split_cells(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
     """Cells per season (seasons and sites in natural order)."""
     seasons = frame[design.season].astype(str)
     if design.groups:
-        site = frame[list(design.groups)].astype(str).agg("/".join, axis=1)
+        site = frame[design.groups[0]].astype(str)
+        for col in design.groups[1:]:
+            site = site + "/" + frame[col].astype(str)
     else:
         site = pd.Series("all", index=frame.index)
     z_all = frame[list(design.traits)].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)

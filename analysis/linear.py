@@ -35,14 +35,16 @@ def ols(X: np.ndarray, y: np.ndarray) -> OLSFit:
     scale = np.sqrt((X**2).sum(axis=0))
     scale[scale == 0] = 1.0
     Xs = X / scale
-    u, s, vt = np.linalg.svd(Xs, full_matrices=False)
-    if s[-1] <= 0 or s[0] / s[-1] > CONDITION_LIMIT:
+    q, r = np.linalg.qr(Xs)
+    sv = np.linalg.svd(r, compute_uv=False)  # singular values of X (scaled), from the small factor
+    if sv[-1] <= 0 or sv[0] / sv[-1] > CONDITION_LIMIT:
         raise Collinear("collinear design")
-    coef_s = vt.T @ ((u.T @ y) / s)
+    r_inv = np.linalg.inv(r)
+    coef_s = r_inv @ (q.T @ y)
     resid = y - Xs @ coef_s
     df = n - k
     sigma2 = float(resid @ resid) / df
-    cov_diag = ((vt.T / s) ** 2).sum(axis=1)
+    cov_diag = (r_inv**2).sum(axis=1)
     return OLSFit(coef=coef_s / scale, se=np.sqrt(cov_diag * sigma2) / scale, df_resid=df)
 
 
