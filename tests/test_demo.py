@@ -167,3 +167,24 @@ def test_delay_comes_from_the_argument_or_the_environment(monkeypatch):
         demo_delay()
     monkeypatch.delenv(demo.DELAY_ENV)
     assert demo_delay() == demo.DEFAULT_DELAY
+
+
+async def test_dashboard_shows_the_demo_season_arriving(tmp_path):
+    """The dashboard opens the demo study while the feed takes the batches in on its own connection."""
+    from tui.app import FieldslopeApp
+
+    target = demo.create_demo_study(tmp_path / "d")
+    app = FieldslopeApp(target, demo_feed=demo.demo_feed(target, 0), bootstrap=0, poll_interval=0.1)
+    async with app.run_test(size=(80, 24)) as pilot:
+        for _ in range(600):
+            await pilot.pause(0.1)
+            snap = app.snapshot
+            if snap is not None and len(snap.batches) == 20 and app.note.startswith("demo season all in"):
+                break
+        snap = app.snapshot
+        assert len(snap.batches) == 20, app.note
+        assert app.note == "demo season all in: see Flags (2) and Selection (3)"
+        rows = snap.table[(snap.table.quantity == "gradient") & (snap.table.site == "all")
+                          & (snap.table.fitness == "total") & (snap.table.term == "mass")]
+        assert list(rows.season) == ["2023", "2024", "2025"]
+        assert rows.set_index("season").loc["2024", "estimate"] < 0

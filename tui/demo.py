@@ -139,6 +139,21 @@ class BatchOutcome:
         return text
 
 
+    def short(self) -> str:
+        """One status-bar phrase: what became of the file."""
+        final = self.final
+        if self.retake is not None:
+            what = f"{final.n_stored} stored, {final.n_quarantined} bad row(s) quarantined"
+        elif final.outcome == "refused":
+            what = "refused whole (see the Intake screen)"
+        elif final.outcome == "duplicate":
+            what = "already taken in"
+        else:
+            what = f"{final.n_stored} stored"
+        n_flags = len(final.flags)
+        return f"{self.file_name[:2]} {what}" + (f", {n_flags} flag(s)" if n_flags else "")
+
+
 def take_in(store, path: Path, operator: str = OPERATOR) -> BatchOutcome:
     """Import one file; if rows were bad (not the whole file), import again with valid rows accepted."""
     data = path.read_bytes()
@@ -150,10 +165,12 @@ def take_in(store, path: Path, operator: str = OPERATOR) -> BatchOutcome:
 
 
 def feed_batches(study_dir: Path, *, delay: float = 0.0, say: Callable[[str], None] | None = None,
-                 stop: threading.Event | None = None, files: DemoFiles | None = None) -> list[BatchOutcome]:
+                 stop: threading.Event | None = None, files: DemoFiles | None = None,
+                 brief: bool = False) -> list[BatchOutcome]:
     """Take in every demo batch through this thread's own store connection, ``delay`` seconds apart.
 
-    ``say`` gets one line per batch; setting ``stop`` ends the feed before the next batch.
+    ``say`` gets one line per batch (a short phrase when ``brief``); setting ``stop`` ends the
+    feed before the next batch.
     """
     from schemas.study import Study
 
@@ -171,7 +188,7 @@ def feed_batches(study_dir: Path, *, delay: float = 0.0, say: Callable[[str], No
             outcome = take_in(study.store, path)
             outcomes.append(outcome)
             if say:
-                say(f"[{i}/{total}] {outcome.line()}")
+                say(f"demo {i}/{total}: {outcome.short()}" if brief else f"[{i}/{total}] {outcome.line()}")
     finally:
         _close(study)
     return outcomes
@@ -182,9 +199,9 @@ def demo_feed(study_dir: Path, delay: float | None = None) -> Callable[[threadin
     pause = demo_delay(delay)
 
     def feed(stop: threading.Event, say: Callable[[str], None]) -> None:
-        feed_batches(study_dir, delay=pause, say=say, stop=stop)
+        feed_batches(study_dir, delay=pause, say=say, stop=stop, brief=True)
         if not stop.is_set():
-            say("Demo season taken in: all batches read. Flags (2) and Selection (3) show the result.")
+            say("demo season all in: see Flags (2) and Selection (3)")
 
     return feed
 
