@@ -33,7 +33,8 @@ def init(args) -> int:
     return 0
 
 
-def _report(result, err=sys.stderr, out=sys.stdout) -> None:
+def _report(result) -> None:
+    out, err = sys.stdout, sys.stderr
     for line in fmt.error_lines(result.errors):
         print(line, file=out)
     if result.outcome == "refused":

@@ -52,7 +52,8 @@ def flag_summary(flags: Iterable) -> str:
     return f"flags: {parts} (list them with fieldslope flags)"
 
 
-def print_flags(flags, out: TextIO = sys.stdout) -> None:
+def print_flags(flags, out: TextIO | None = None) -> None:
+    out = out or sys.stdout
     if not flags:
         print("no open flags", file=out)
         return
@@ -67,7 +68,8 @@ def print_flags(flags, out: TextIO = sys.stdout) -> None:
             print(wrap(f"{change}why: {f.reason} ({f.resolved_at})"), file=out)
 
 
-def print_history(frame: pd.DataFrame, individual: str, out: TextIO = sys.stdout) -> None:
+def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = None) -> None:
+    out = out or sys.stdout
     print(f"{individual}: {len(frame)} events", file=out)
     for r in frame.itertuples(index=False):
         when = str(r.time).replace("T", " ")[:16]
@@ -109,8 +111,8 @@ def estimates_text(table: pd.DataFrame, notes=()) -> str:
 class Progress:
     """A one-line progress display on stderr, shown only when stderr is a terminal."""
 
-    def __init__(self, label: str, stream: TextIO = sys.stderr):
-        self.label, self.stream = label, stream
+    def __init__(self, label: str, stream: TextIO | None = None):
+        self.label, self.stream = label, stream or sys.stderr
         self.live = hasattr(stream, "isatty") and stream.isatty()
         self._last = -1
 

@@ -1,0 +1,215 @@
+"""The ``fieldslope`` command line end to end: exit status, one-line errors, the audit trail."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import subprocess
+import sys
+import types
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from tui.cli import main
+
+REPO = Path(__file__).resolve().parents[1]
+COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
+
+MEASURED = """tag,season,site,wing,tibia,survived,clutch
+H01,2024,Gull Flat,4.5,1.5,1,3
+H02,2024,Gull Flat,4.6,1.6,0,0
+H03,2024,Gull Flat,4.1,1.3,1,4
+H04,2024,Gull Flat,4.3,1.2,1,2
+H05,2024,Gull Flat,5.0,1.8,0,0
+H06,2024,Gull Flat,4.8,1.7,1,1
+H07,2024,Reed Bend,4.4,1.4,1,5
+H08,2024,Reed Bend,4.9,1.5,0,0
+H09,2024,Reed Bend,4.7,1.9,1,6
+H10,2024,Reed Bend,4.2,1.6,1,1
+H11,2024,Reed Bend,4.6,1.4,0,0
+H12,2024,Reed Bend,4.5,1.5,1,2
+"""
+LATE = "tag,season,site,wing,tibia,survived,clutch\nH13,2024,Gull Flat,4x4,1.5,1,2\nH14,2024,Gull Flat,4.7,1.6,0,0\n"
+
+
+def run(*args: str, cwd: Path, env: dict | None = None) -> subprocess.CompletedProcess:
+    full_env = {**os.environ, "PYTHONPATH": str(REPO), **(env or {})}
+    return subprocess.run([sys.executable, "-m", "tui.cli", *args], cwd=cwd, env=full_env,
+                          capture_output=True, text=True, timeout=120)
+
+
+def call(capsys, *args: str) -> tuple[int, str, str]:
+    code = main(list(args))
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+@pytest.fixture
+def folder(tmp_path, protocol_file):
+    (tmp_path / "measured.csv").write_text(MEASURED)
+    (tmp_path / "late.csv").write_text(LATE)
+    return tmp_path
+
+
+def one_line(err: str) -> str:
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in err, err
+    return lines[0]
+
+
+def test_end_to_end_in_subprocesses(folder, protocol_file):
+    r = run("init", "st", "--protocol", str(protocol_file), cwd=folder)
+    assert r.returncode == 0 and (folder / "st" / "protocol.toml").exists()
+    r = run("init", "st", "--protocol", str(protocol_file), cwd=folder)
+    assert r.returncode == 1 and "already holds a study" in one_line(r.stderr)
+
+    r = run("check", "late.csv", "--study", "st", cwd=folder)
+    assert r.returncode == 1
+    assert "row 2, column wing: '4x4' is not a number" in r.stdout
+    assert "nothing was stored" in one_line(r.stderr)
+
+    r = run("--study", "st", "import", "measured.csv", "--operator", "ana", cwd=folder)
+    assert r.returncode == 0 and "12 of 12 rows stored" in r.stdout
+    r = run("import", "measured.csv", "--study", "st", cwd=folder)
+    assert r.returncode == 0 and "already taken in as batch 1" in r.stdout
+
+    r = run("import", "late.csv", "--study", "st", cwd=folder)
+    assert r.returncode == 1
+    r = run("import", "late.csv", "--study", "st", "--accept-valid", cwd=folder)
+    assert r.returncode == 0 and "1 quarantined" in r.stdout and "1 quarantined" in r.stdout
+
+    r = run("flags", "--study", "st", cwd=folder)
+    assert r.returncode == 0 and "quarantined" in r.stdout
+    flag_id = next(line.split()[0].lstrip("#") for line in r.stdout.splitlines() if "quarantined" in line)
+
+    r = run("resolve", flag_id, "--set", "4.4", "--study", "st", cwd=folder)
+    assert r.returncode == 2 and "--reason" in one_line(r.stderr)
+    r = run("resolve", flag_id, "--set", "4.4", "--reason", "paper sheet", "--study", "st", cwd=folder)
+    assert r.returncode == 0 and "joined the record" in r.stdout
+
+    r = run("history", "H13", "--study", "st", cwd=folder)
+    assert r.returncode == 0 and "4x4 → 4.4" in r.stdout and "paper sheet" in r.stdout
+
+    r = run("estimate", "--format", "csv", "--bootstrap", "0", "--study", "st", cwd=folder)
+    assert r.returncode == 0, r.stderr
+    rows = list(csv.reader(io.StringIO(r.stdout)))
+    assert rows[0] == COLUMNS and len(rows) > 10
+
+
+def test_correction_changes_the_estimates(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    assert call(capsys, "import", str(folder / "measured.csv"), "--study", study)[0] == 0
+
+    def differential() -> float:
+        code, out, _ = call(capsys, "estimate", "--format", "json", "--bootstrap", "0", "--study", study,
+                            "--site", "Gull Flat", "--fitness", "survived")
+        assert code == 0
+        rows = json.loads(out)
+        assert all(list(r) == COLUMNS for r in rows)
+        assert {r["site"] for r in rows} == {"Gull Flat"} and {r["fitness"] for r in rows} == {"survived"}
+        return next(r["estimate"] for r in rows if r["quantity"] == "differential" and r["term"] == "wing")
+
+    # For 0/1 fitness S is the survivors' mean minus everyone's mean (Lande & Arnold 1983, Evolution
+    # 37:1210-1226; estimation.md), computed here by hand from the sheet.
+    wing = np.array([4.5, 4.6, 4.1, 4.3, 5.0, 4.8])
+    alive = np.array([1, 0, 1, 1, 0, 1], bool)
+    assert differential() == pytest.approx(wing[alive].mean() - wing.mean(), rel=1e-9)
+
+    # import a re-measurement of H03 (flagged as differing), then correct it
+    (folder / "again.csv").write_text("tag,season,wing\nH03,2024,4.15\n")
+    assert call(capsys, "import", str(folder / "again.csv"), "--study", study)[0] == 0
+    code, out, _ = call(capsys, "flags", "--study", study)
+    flag_id = next(line.split()[0].lstrip("#") for line in out.splitlines() if "differs_from_record" in line)
+    code, out, _ = call(capsys, "resolve", flag_id, "--set", "4.9", "--reason", "misread caliper",
+                        "--study", study)
+    assert code == 0 and "from 4.15 to 4.9" in out
+    wing[2] = 4.9
+    assert differential() == pytest.approx(wing[alive].mean() - wing.mean(), rel=1e-9)
+
+    code, out, _ = call(capsys, "history", "H03", "--study", study)
+    assert "4.15 → 4.9" in out and "misread caliper" in out
+    code, out, _ = call(capsys, "flags", "--all", "--study", study)
+    assert "[set by" in out
+
+
+def test_estimate_table_fits_80_columns_and_json_has_nulls(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    assert call(capsys, "import", str(folder / "measured.csv"), "--study", study)[0] == 0
+    code, out, err = call(capsys, "estimate", "--bootstrap", "0", "--study", study)
+    assert code == 0 and "quantity" in out, err
+    assert max(len(line) for line in out.splitlines()) <= 80
+    code, out, _ = call(capsys, "estimate", "--format", "json", "--bootstrap", "0", "--study", study)
+    rows = json.loads(out)
+    assert any(r["ci_low"] is None for r in rows)           # no bootstrap: intervals are null
+    target = folder / "out.csv"
+    code, out, err = call(capsys, "estimate", "--format", "csv", "--bootstrap", "0", "--study", study,
+                          "--season", "2024", "--output", str(target))
+    assert code == 0 and out == "" and target.read_text().splitlines()[0] == ",".join(COLUMNS)
+    code, _, err = call(capsys, "estimate", "--season", "1999", "--study", study)
+    assert code == 1 and "no season '1999'" in one_line(err)
+
+
+@pytest.mark.parametrize("args", [
+    ["bogus"],
+    ["resolve", "3", "--keep", "--exclude", "--reason", "x"],
+    ["resolve", "three", "--keep", "--reason", "x"],
+    ["estimate", "--format", "xml"],
+    ["estimate", "--bootstrap", "-1"],
+    ["import"],
+])
+def test_usage_errors_exit_2_with_one_line(capsys, args):
+    code, _, err = call(capsys, *args)
+    assert code == 2
+    assert one_line(err).startswith("fieldslope: ")
+
+
+def test_missing_study_is_one_line(tmp_path, capsys, monkeypatch):
+    monkeypatch.delenv("FIELDSLOPE_STUDY", raising=False)
+    code, _, err = call(capsys, "flags", "--study", str(tmp_path / "none"))
+    assert code == 1 and "no study folder here" in one_line(err)
+    code, _, err = call(capsys, "--study", str(tmp_path / "none"))
+    assert code == 1 and "no study here" in one_line(err)
+
+
+def test_env_variable_picks_the_study(folder, protocol_file, capsys, monkeypatch):
+    call(capsys, "init", str(folder / "st"), "--protocol", str(protocol_file))
+    monkeypatch.setenv("FIELDSLOPE_STUDY", str(folder / "st"))
+    code, out, _ = call(capsys, "import", str(folder / "measured.csv"))
+    assert code == 0 and "12 of 12" in out
+
+
+def test_debug_shows_a_traceback(tmp_path):
+    r = run("--debug", "flags", "--study", str(tmp_path / "none"), cwd=tmp_path)
+    assert r.returncode == 1 and "Traceback" in r.stderr
+    r = run("flags", "--study", str(tmp_path / "none"), cwd=tmp_path)
+    assert "Traceback" not in r.stderr
+
+
+def test_subcommands_do_not_import_textual(folder, protocol_file):
+    code = ("import sys; from tui.cli import main; "
+            f"main(['init', 'st', '--protocol', {str(protocol_file)!r}]); "
+            "main(['import', 'measured.csv', '--study', 'st']); "
+            "main(['estimate', '--bootstrap', '0', '--format', 'csv', '--study', 'st']); "
+            "sys.exit(1 if any(m == 'textual' or m.startswith('textual.') for m in sys.modules) else 0)")
+    r = subprocess.run([sys.executable, "-c", code], cwd=folder, env={**os.environ, "PYTHONPATH": str(REPO)},
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 0, r.stderr
+
+
+def test_demo_and_dashboard_are_wired(folder, protocol_file, capsys, monkeypatch):
+    seen = {}
+    monkeypatch.setitem(sys.modules, "tui.demo", types.SimpleNamespace(
+        run_demo=lambda study_dir, headless: seen.setdefault("demo", (study_dir, headless)) and 0))
+    monkeypatch.setitem(sys.modules, "tui.app", types.SimpleNamespace(
+        run_app=lambda study_dir: seen.setdefault("app", study_dir)))
+    assert call(capsys, "demo", "--headless", "--study", str(folder / "d"))[0] == 0
+    assert seen["demo"] == (folder / "d", True)
+    call(capsys, "init", str(folder / "st"), "--protocol", str(protocol_file))
+    assert call(capsys, "--study", str(folder / "st"))[0] == 0
+    assert seen["app"] == folder / "st"
