@@ -101,20 +101,29 @@ def batched_logistic(
     for X, y, C, _ in cells:
         feats = np.column_stack([X[:, a] * X[:, b], np.ones(len(X))])
         const = C @ np.column_stack([X * y[:, None], y, np.ones(len(X))])  # sum C y x, sum C y, sum C
-        prep.append((feats, const, np.empty(C.shape), np.empty(C.shape)))
+        prep.append((feats, const, np.empty(C.shape), np.empty(C.shape), np.ascontiguousarray(X.T)))
     ok = np.ones(B, dtype=bool)
     eye = np.eye(k)
 
-    def predict(X, T, out):
+    def predict(XT, T, out):
+        """Linear predictors of every resample (B x n) into ``out``."""
         theta = np.einsum("bak,ba->bk", T, beta)
-        np.matmul(theta, X.T, out=out)
+        np.matmul(theta, XT, out=out)
         return out
+
+    def sigmoid(eta):
+        """1 / (1 + exp(-eta)) in place (numpy's vectorized exp is faster than expit here)."""
+        np.negative(eta, out=eta)
+        with np.errstate(over="ignore"):
+            np.exp(eta, out=eta)
+        eta += 1.0
+        return np.reciprocal(eta, out=eta)
 
     for _ in range(max_iter):
         H = np.zeros((B, k, k))
         g = np.zeros((B, k))
-        for (X, _, C, T), (feats, const, buf, cp) in zip(cells, prep):
-            p = expit(predict(X, T, buf), out=buf)
+        for (X, _, C, T), (feats, const, buf, cp, XT) in zip(cells, prep):
+            p = sigmoid(predict(XT, T, buf))
             np.multiply(C, p, out=cp)  # C p
             gz = const[:, :k] - cp @ X  # sum C (y - p) x
             np.multiply(cp, p, out=buf)
@@ -148,10 +157,10 @@ def batched_logistic(
     pq_sum = np.zeros(B)
     y_sum = np.zeros(B)
     n_sum = np.zeros(B)
-    for (X, _, C, T), (_, const, buf, cp) in zip(cells, prep):
-        eta = predict(X, T, buf)
+    for (_, _, C, T), (_, const, buf, cp, XT) in zip(cells, prep):
+        eta = predict(XT, T, buf)
         ok &= np.abs(eta).max(axis=1, initial=0.0) < ETA_LIMIT
-        p = expit(eta, out=buf)
+        p = sigmoid(eta)
         np.multiply(p, p, out=cp)
         np.subtract(p, cp, out=cp)  # p (1 - p)
         pq_sum += np.einsum("bn,bn->b", C, cp)

@@ -40,60 +40,75 @@ class SeasonPermuter:
                     self.design[(f, c)] = with_intercept(np.column_stack([x, quad_features(x)]))
 
     def statistics(self, fitness_of) -> dict[tuple, np.ndarray]:
-        """Statistics for fitness vectors ``fitness_of(f, c, sample)`` (P x n each), keyed like the table."""
+        """Statistics for fitness vectors ``fitness_of(f, c, sample)`` (P x n each), keyed like the table.
+
+        All statistics of one sample of rows come from one matrix product of
+        the permuted fitness with the columns they need.
+        """
         out: dict[tuple, np.ndarray] = {}
         p, d = self.p, 1 + self.p + len(quad_pairs(self.p))
         for f, plist in self.preps.items():
-            for j, name in enumerate(self.traits):
-                tot = None
-                for c, pr in enumerate(plist):
-                    s = pr.single[j] if pr.single else None
-                    if s is None:
-                        continue
-                    Wp = fitness_of(f, c, s)
-                    z = s.z[:, 0]
-                    x = (z - z.mean()) / z.std(ddof=1)
-                    mW = s.W.mean()
-                    raw = Wp @ z / mW - z.sum()
-                    std = Wp @ x / mW - x.sum()
-                    n = len(z)
-                    out[(self.sites[c], f, "differential", name)] = raw / n
-                    out[(self.sites[c], f, "differential_std", name)] = std / n
-                    add = (raw, std, n)
-                    tot = add if tot is None else tuple(a + b for a, b in zip(tot, add))
-                if self.pooled and tot is not None:
-                    out[(ALL, f, "differential", name)] = tot[0] / tot[2]
-                    out[(ALL, f, "differential_std", name)] = tot[1] / tot[2]
+            single: dict[int, list] = {j: [] for j in range(p)}  # per trait: (raw, std, n) of each cell
             U, XtX = {}, {}
             for c, pr in enumerate(plist):
-                if (f, c) not in self.design:
-                    continue
-                X = self.design[(f, c)]
-                U[c] = fitness_of(f, c, pr.multi) @ X / pr.multi.W.mean()
-                XtX[c] = X.T @ X
+                groups: dict[bytes, tuple] = {}  # rows -> (sample, [columns], [(what, j)])
+                for j, s in enumerate(pr.single or []):
+                    if s is None:
+                        continue
+                    z = s.z[:, 0]
+                    g = groups.setdefault(s.rows.tobytes(), (s, [], []))
+                    g[1].extend([z, (z - z.mean()) / z.std(ddof=1)])
+                    g[2].append(("single", j))
+                if (f, c) in self.design:
+                    g = groups.setdefault(pr.multi.rows.tobytes(), (pr.multi, [], []))
+                    g[1].extend(self.design[(f, c)].T)
+                    g[2].append(("multi", None))
+                for s, cols, uses in groups.values():
+                    prod = fitness_of(f, c, s) @ np.column_stack(cols) / s.W.mean()
+                    sums = np.array([col.sum() for col in cols])
+                    at = 0
+                    for what, j in uses:
+                        if what == "single":
+                            raw, std = prod[:, at] - sums[at], prod[:, at + 1] - sums[at + 1]
+                            n = len(s.W)
+                            out[(self.sites[c], f, "differential", self.traits[j])] = raw / n
+                            out[(self.sites[c], f, "differential_std", self.traits[j])] = std / n
+                            single[j].append((raw, std, n))
+                            at += 2
+                        else:
+                            X = self.design[(f, c)]
+                            U[c] = prod[:, at : at + d]
+                            XtX[c] = X.T @ X
+                            at += d
+            if self.pooled:
+                for j, parts in single.items():
+                    if parts:
+                        N = sum(n for _, _, n in parts)
+                        out[(ALL, f, "differential", self.traits[j])] = sum(r for r, _, _ in parts) / N
+                        out[(ALL, f, "differential_std", self.traits[j])] = sum(s for _, s, _ in parts) / N
             blocks = [(self.sites[c], [c]) for c in U]
             if self.pooled and U:
                 blocks.append((ALL, list(U)))
             for site, cs in blocks:
-                u = sum(U[c] for c in cs)
-                A = sum(XtX[c] for c in cs)
-                try:
-                    lin = np.linalg.solve(A[: 1 + p, : 1 + p], u[:, : 1 + p].T).T[:, 1:]
-                except np.linalg.LinAlgError:
-                    continue
-                for j, name in enumerate(self.traits):
-                    for q in ("gradient", "gradient_raw", "gradient_logistic"):
-                        out[(site, f, q, name)] = lin[:, j]
-                try:
-                    quad = np.linalg.solve(A, u.T).T[:, 1 + p : d]
-                except np.linalg.LinAlgError:
-                    continue
-                for (j, k), term, col in zip(quad_pairs(p), quad_terms(self.traits), quad.T):
-                    out[(site, f, "quadratic" if j == k else "correlational", term)] = col
-                vals, _ = canonical_axes(gamma_matrix(quad, p))
-                for i in range(p):
-                    out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
+                self.model_statistics(site, f, sum(U[c] for c in cs), sum(XtX[c] for c in cs), out)
         return out
+
+    def model_statistics(self, site, f, u, A, out) -> None:
+        """Gradients, quadratic terms and canonical values from X'w (u, P x d) and X'X (A)."""
+        p = self.p
+        try:
+            lin = np.linalg.solve(A[: 1 + p, : 1 + p], u[:, : 1 + p].T).T[:, 1:]
+            quad = np.linalg.solve(A, u.T).T[:, 1 + p :]
+        except np.linalg.LinAlgError:
+            return
+        for j, name in enumerate(self.traits):
+            for q in ("gradient", "gradient_raw", "gradient_logistic"):
+                out[(site, f, q, name)] = lin[:, j]
+        for (j, k), term, col in zip(quad_pairs(p), quad_terms(self.traits), quad.T):
+            out[(site, f, "quadratic" if j == k else "correlational", term)] = col
+        vals, _ = canonical_axes(gamma_matrix(quad, p))
+        for i in range(p):
+            out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
 
     def observed(self) -> dict[tuple, float]:
         stats = self.statistics(lambda f, c, s: s.W[None, :])
