@@ -20,6 +20,7 @@ value rules then run as one pandera schema built from the protocol.
 from __future__ import annotations
 
 import difflib
+import unicodedata
 from functools import lru_cache
 
 import numpy as np
@@ -193,6 +194,19 @@ def _to_numbers(text: pd.Series, decimal: str, codes: list[str]) -> tuple[pd.Ser
     return numbers, [(present & numbers.isna(), f"is not a number; write digits with a decimal point (12.5), or {blank}")]
 
 
+def _odd_character(value: str) -> str | None:
+    """A reason naming a look-alike or invisible character that spoils a number, e.g. a Unicode minus."""
+    for ch in value:
+        if ch.isascii() and ch.isprintable() and ch != " ":
+            continue
+        if ch.isalpha():
+            return None     # plain text, not a spoiled number
+        name = unicodedata.name(ch, f"U+{ord(ch):04X}")
+        return (f"is not a number: it holds the character {name} (U+{ord(ch):04X}), which looks like part of "
+                "a number but is not; retype the value")
+    return None
+
+
 # -- the check -------------------------------------------------------------------
 
 def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
@@ -222,7 +236,8 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
         typed[col] = numbers
         for bad, reason in problems:
             for pos in np.flatnonzero(bad.to_numpy()):
-                errors.append(RowError(int(rows[pos]), col, str(text[col].iat[pos]), reason))
+                value = str(text[col].iat[pos])
+                errors.append(RowError(int(rows[pos]), col, value, _odd_character(value) or reason))
 
     errors.extend(_rule_errors(protocol, typed, text, rows))
     position = {c: i for i, c in enumerate(frame.columns)}

@@ -363,3 +363,14 @@ def test_any_text_file_read_and_checked_or_refused(text, codec):
         assert str(err).startswith("h.csv") and "\n" not in str(err)
         return
     assert len(report.valid) + len(report.bad_rows) == len(sheet.frame)
+
+
+@pytest.mark.parametrize("value, name", [
+    ("\u22121.5", "MINUS SIGN"),                 # pasted from a word processor
+    ("1\u00a0234", "NO-BREAK SPACE"),            # a spreadsheet's thousands gap
+    ("5\u200b", "ZERO WIDTH SPACE"),
+])
+def test_look_alike_characters_in_numbers_are_named(value, name):
+    report = check([f"R1,2025,{value}"], "ring,year,elytra")
+    assert errors_of(report) == [(2, "elytra", value)]
+    assert name in report.errors[0].reason
