@@ -1,5 +1,5 @@
 """IDs a spreadsheet may have mangled: turned into dates, scientific notation,
-date serial numbers, or stripped of leading zeros.
+date serial numbers, stripped of leading zeros, or carrying an invisible character.
 
 These are soft findings (an ID may truly look like this); the reader keeps IDs
 as text, so what is seen here is what the file holds.
@@ -8,6 +8,7 @@ as text, so what is seen here is what the file holds.
 from __future__ import annotations
 
 import re
+import unicodedata
 from collections import Counter
 from collections.abc import Sequence
 
@@ -27,6 +28,9 @@ _FORMS = re.compile(
     r"|(?P<digits>\d+)",
     re.IGNORECASE,
 )
+# Characters that make two IDs differ while they look the same: whitespace other than a plain
+# space inside the ID, and the invisible format characters (Unicode category Cf).
+_INVISIBLE = re.compile(r"[^\S ]|[\u00ad\u200b-\u200f\u202a-\u202e\u2060-\u2064\ufeff]")
 # Spreadsheet day numbers of the years 1950 to 2099 (day 1 = 1900-01-01, common practice).
 _SERIAL_RANGE = (18264, 73050)
 
@@ -40,9 +44,13 @@ def mangled_id_reasons(ids: Sequence[object]) -> list[tuple[int, str]]:
     padded_len = _padded_length(texts, forms, digit_lengths)
     out: list[tuple[int, str]] = []
     for i, (t, form) in enumerate(zip(texts, forms)):
-        if form is None:
+        hidden = _INVISIBLE.search(t)
+        if hidden:
+            name = unicodedata.name(hidden.group(), f"U+{ord(hidden.group()):04X}")
+            out.append((i, f"holds the invisible character {name}, so it differs from the same ID typed plainly"))
+        elif form is None:
             continue
-        if form == "date":
+        elif form == "date":
             out.append((i, "looks like a date a spreadsheet made from it"))
         elif form == "scientific":
             out.append((i, "is in scientific notation, so a spreadsheet may have rounded it"))

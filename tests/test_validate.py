@@ -259,6 +259,8 @@ def test_duplicate_id_in_one_season_flags_each_row():
     ("3/1/2025", "date"),
     ("2.31E+13", "scientific"),
     ("45822", "serial"),             # day 45822 = 2025-06-14 in the 1900 date system (ECMA-376 Part 1, 18.17.4)
+    ("R0\u200b05", "ZERO WIDTH SPACE"),
+    ("R0\u00a005", "NO-BREAK SPACE"),
 ])
 def test_mangled_ids_are_flagged(mangled, reason):
     lines = [f"{mangled},2025,5"] + [f"R00{i},2025,5" for i in range(1, 4)]
