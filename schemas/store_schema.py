@@ -124,7 +124,7 @@ MIGRATIONS: dict[int, str] = {0: _V1}
 def connect(path: Path, readonly: bool = False) -> sqlite3.Connection:
     """A connection with the house settings: autocommit, WAL, FULL sync, foreign keys, busy timeout."""
     if readonly:
-        conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
+        conn = sqlite3.connect(f"{Path(path).resolve().as_uri()}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
                                isolation_level=None, check_same_thread=False)
     else:
         conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT_S, isolation_level=None,

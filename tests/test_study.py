@@ -83,3 +83,19 @@ def test_intake_files_status(study):
     os.utime(study.intake_dir / "e.csv", ns=(stat.st_atime_ns, stat.st_mtime_ns + 1_000_000))
     assert {f.name: f.status for f in study.intake_files()}["e.csv"] == "arriving"
     assert {f.name: f.status for f in study.intake_files()}["e.csv"] == "new"
+
+
+def test_readonly_open_works_in_a_folder_with_awkward_characters(tmp_path, protocol_file):
+    s = Study.create(tmp_path / "a study #1?", protocol_file)
+    s.store.import_bytes("a.csv", b"tag,season,site,wing\nH1,2024,Gull Flat,4.4\n")
+    s.close()
+    ro = Study.open(tmp_path / "a study #1?", readonly=True)
+    try:
+        assert list(ro.store.effective_frame()["tag"]) == ["H1"]
+        v = ro.store.data_version()
+        writer = Study.open(tmp_path / "a study #1?")
+        writer.store.import_bytes("b.csv", b"tag,season,site,wing\nH2,2024,Gull Flat,4.5\n")
+        writer.close()
+        assert ro.store.data_version() != v
+    finally:
+        ro.close()
