@@ -1,0 +1,463 @@
+"""The fieldslope dashboard (Textual).
+
+Start it with :func:`run_app` (what ``fieldslope`` calls) or build
+:class:`FieldslopeApp` yourself. The app keeps one immutable
+:class:`~tui.snapshot.Snapshot` of the study; workers build new ones when the
+store changes, and the screens render from it.
+
+Live refresh: one poll worker keeps its own store connection and reads
+``PRAGMA data_version`` about every ``poll_interval`` seconds; when the counter
+moves it asks for new point estimates (bootstrap 0) and waits until they are
+on screen before it polls again; then a second worker computes the bootstrap
+intervals with progress.
+
+Heavy modules (pandas, the estimators, the store) are imported inside workers,
+after the first frame.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from datetime import datetime
+from pathlib import Path
+from typing import Callable
+
+from textual import on, work
+from textual.app import App
+from textual.binding import Binding
+from textual.command import DiscoveryHit, Hit, Hits, Provider
+from textual.content import Content
+from textual.worker import Worker, WorkerState, get_current_worker
+
+from tui.messages import (
+    DemoNote,
+    IntervalsProgress,
+    IntervalsReady,
+    Polled,
+    PointsReady,
+    StoreWritten,
+    StudyFailed,
+    StudyReady,
+)
+from tui.snapshot import Snapshot
+
+SCREENS_IN_ORDER = ("intake", "flags", "selection", "response", "seasons")
+SCREEN_TITLES = {
+    "intake": "Intake",
+    "flags": "Flags",
+    "selection": "Selection",
+    "response": "Response",
+    "seasons": "Seasons",
+}
+
+# A demo feed is a blocking function run in a worker thread: it imports batches
+# through its own store connection, calls ``say`` with a short line for the
+# status bar, and returns early once ``stop`` is set (use ``stop.wait(seconds)``
+# to pause between batches).
+DemoFeed = Callable[[threading.Event, Callable[[str], None]], None]
+
+
+class _Cancelled(Exception):
+    """Raised inside a worker's progress callback when a newer worker replaced it."""
+
+
+class FieldslopeCommands(Provider):
+    """Command palette entries for the dashboard's main actions."""
+
+    def _commands(self) -> list[tuple[str, str, Callable[[], object]]]:
+        app: FieldslopeApp = self.app  # type: ignore[assignment]
+        out: list[tuple[str, str, Callable[[], object]]] = []
+        if app.study_ready:
+            for mode in SCREENS_IN_ORDER:
+                out.append((f"Show {SCREEN_TITLES[mode]}", f"switch to the {SCREEN_TITLES[mode]} screen",
+                            lambda m=mode: app.action_show(m)))
+            out += [
+                ("Refresh now", "re-read the store and recompute the estimates", app.action_refresh),
+                ("Toggle open outliers", "show the estimates with or without open outlier flags",
+                 app.action_toggle_sensitivity),
+                ("Take in a file by path", "open a batch file that is not in the drop folder",
+                 lambda: app.action_show("intake", then="open_path")),
+                ("Next fitness component", "Selection: use the next fitness component",
+                 lambda: app.action_show("selection", then="next_fitness")),
+                ("Next season", "Selection: show the next season", lambda: app.action_show("selection", then="next_season")),
+                ("Next site", "Selection: show the next site or pooled", lambda: app.action_show("selection", then="next_site")),
+                ("Enter a heritability", "Response: enter h² for a trait with its source",
+                 lambda: app.action_show("response", then="enter_h2")),
+            ]
+        out.append(("Keys of this screen", "list the keys of the current screen", app.action_help))
+        return out
+
+    async def discover(self) -> Hits:
+        for name, help_text, callback in self._commands():
+            yield DiscoveryHit(name, callback, help=help_text)
+
+    async def search(self, query: str) -> Hits:
+        matcher = self.matcher(query)
+        for name, help_text, callback in self._commands():
+            score = matcher.match(name)
+            if score > 0:
+                yield Hit(score, matcher.highlight(name), callback, help=help_text)
+
+
+class FieldslopeApp(App):
+    """The dashboard.
+
+    ``study_dir``: the study folder (None, or a folder without a study, opens
+    the start screen). ``demo_feed``: see :data:`DemoFeed`. ``bootstrap`` and
+    ``seed``: resamples and seed for the intervals. ``clock``: returns the
+    text shown as the last refresh time (tests pass a fixed one).
+    """
+
+    CSS_PATH = "app.tcss"
+    TITLE = "fieldslope"
+    COMMANDS = App.COMMANDS | {FieldslopeCommands}
+    ENABLE_COMMAND_PALETTE = True
+    BINDINGS = [
+        Binding("f1", "help", "Help", id="help", key_display="F1"),
+        Binding("question_mark", "help", "Help", id="help_q", show=False, key_display="?"),
+        # the footer shows one entry for the five screen keys; F1 lists each
+        Binding("1", "show('intake')", "Screens", id="go_intake", key_display="1-5"),
+        Binding("2", "show('flags')", "Flags screen", id="go_flags", show=False),
+        Binding("3", "show('selection')", "Selection screen", id="go_selection", show=False),
+        Binding("4", "show('response')", "Response screen", id="go_response", show=False),
+        Binding("5", "show('seasons')", "Seasons screen", id="go_seasons", show=False),
+        Binding("o", "toggle_sensitivity", "Outliers in/out", id="sensitivity", show=False),
+        Binding("ctrl+r", "refresh", "Refresh now", id="refresh", show=False),
+        Binding("ctrl+q", "quit", "Quit", id="quit", show=False),
+    ]
+
+    def __init__(
+        self,
+        study_dir: Path | str | None = None,
+        *,
+        demo_feed: DemoFeed | None = None,
+        bootstrap: int = 2000,
+        seed: int | None = None,
+        poll_interval: float = 0.5,
+        clock: Callable[[], str] | None = None,
+        start_mode: str = "selection",
+    ):
+        super().__init__()
+        self.study_dir = Path(study_dir) if study_dir else None
+        self.demo_feed = demo_feed
+        self.bootstrap = bootstrap
+        self.seed = seed
+        self.poll_interval = poll_interval
+        self.clock = clock or (lambda: datetime.now().strftime("%H:%M:%S"))
+        self.start_mode = start_mode
+        self.protocol = None
+        self.readonly = False
+        self.study_ready = False
+        self.snapshot: Snapshot | None = None
+        self.sensitivity = False
+        self.updating = ""
+        self.progress = ""
+        self.error = ""
+        self.note = ""
+        self.generation = 0
+        self.version_seen: int | None = None
+        self._poll_pending = False
+        self._poll_executor = None
+        self._poller = None
+        self.stop = threading.Event()        # set on exit: background loops end
+        self.timings: dict[str, float] = {}  # for the benchmark: when things happened
+
+    # -- modes (screens) ---------------------------------------------------
+    def _install_modes(self) -> None:
+        from tui.screens.flags import FlagsScreen
+        from tui.screens.intake import IntakeScreen
+        from tui.screens.response import ResponseScreen
+        from tui.screens.seasons import SeasonsScreen
+        from tui.screens.selection import SelectionScreen
+
+        for name, cls in (("intake", IntakeScreen), ("flags", FlagsScreen), ("selection", SelectionScreen),
+                          ("response", ResponseScreen), ("seasons", SeasonsScreen)):
+            if name not in self._modes:
+                self.add_mode(name, cls)
+
+    def on_mount(self) -> None:
+        from tui.screens.start import StartScreen
+
+        self.add_mode("start", StartScreen)
+        self.timings["mounted"] = time.perf_counter()
+        if self.study_dir is not None and (self.study_dir / "protocol.toml").is_file():
+            self.switch_mode("start")
+            self.open_study(self.study_dir)
+        else:
+            self.switch_mode("start")
+
+    def on_unmount(self) -> None:
+        self.stop.set()
+        if self._poll_executor is not None:
+            if self._poller is not None:
+                self._poll_executor.submit(self._poller.close)
+            self._poll_executor.shutdown(wait=False)
+
+    def open_study(self, study_dir: Path) -> None:
+        self.study_dir = Path(study_dir)
+        self.note = f"opening {self.study_dir} …"
+        self.refresh_status()
+        self._open_worker(self.study_dir)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="open")
+    def _open_worker(self, study_dir: Path) -> None:
+        from tui.loading import open_study
+
+        protocol, readonly, warning = open_study(study_dir)
+        self.post_message(StudyReady(protocol, readonly, warning))
+
+    def on_study_ready(self, msg: StudyReady) -> None:
+        self.protocol, self.readonly = msg.protocol, msg.readonly
+        self.study_ready = True
+        self.error = msg.warning
+        self.note = ""
+        if msg.warning:
+            self.notify(msg.warning, severity="warning", timeout=10)
+        self._install_modes()
+        self.switch_mode(self.start_mode)
+        self.version_seen = None
+        self.schedule_poll(0)
+        if self.demo_feed is not None:
+            self._demo_worker()
+
+    def on_study_failed(self, msg: StudyFailed) -> None:
+        self.error = msg.reason
+        self.notify(msg.reason, severity="error", timeout=10)
+        self.refresh_status()
+
+    # -- live refresh ------------------------------------------------------
+    def schedule_poll(self, delay: float | None = None) -> None:
+        """Ask for the next look at the change counter (only one look is ever pending)."""
+        if self.stop.is_set() or self._poll_pending:
+            return
+        self._poll_pending = True
+        self.set_timer(max(0.01, self.poll_interval if delay is None else delay), self._poll_now)
+
+    def _poll_now(self) -> None:
+        self._poll_pending = False
+        if not self.stop.is_set() and self.study_dir is not None:
+            self._poll_worker(self.study_dir)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="poll")
+    def _poll_worker(self, study_dir: Path) -> None:
+        """Read ``PRAGMA data_version`` through one long-lived connection.
+
+        The counter only means something on the same connection, so the read
+        runs on one dedicated thread (a single-thread executor) that keeps it.
+        """
+        from concurrent.futures import ThreadPoolExecutor
+
+        from tui.loading import Poller
+
+        if self._poll_executor is None:
+            self._poll_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fieldslope-poll")
+        if self._poller is None or self._poller.study_dir != study_dir:
+            self._poller = self._poll_executor.submit(Poller, study_dir).result()
+        version = self._poll_executor.submit(self._poller.version).result()
+        self.post_message(Polled(version))
+
+    def on_polled(self, msg: Polled) -> None:
+        if msg.version != self.version_seen:
+            self.timings["poll_saw_change"] = time.perf_counter()
+            self.version_seen = msg.version
+            self.start_points()        # the next poll is scheduled once the figures are shown
+        else:
+            self.schedule_poll()
+
+    def start_points(self) -> None:
+        self.generation += 1
+        self.updating = "updating…"
+        self._mark_updating()
+        self._points_worker(self.study_dir, self.generation, self.version_seen or 0, self.sensitivity)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="points")
+    def _points_worker(self, study_dir: Path, generation: int, version: int, sensitivity: bool) -> None:
+        from tui.loading import load_snapshot
+
+        snap = load_snapshot(study_dir, generation=generation, version=version, sensitivity=sensitivity,
+                             refreshed_at=self.clock(), readonly=self.readonly)
+        if not get_current_worker().is_cancelled:
+            self.post_message(PointsReady(snap))
+
+    def on_points_ready(self, msg: PointsReady) -> None:
+        if msg.snapshot.generation != self.generation:
+            return
+        self.snapshot = msg.snapshot
+        self.updating = ""
+        self.error = ""
+        self._show_snapshot()
+        self.timings["points_shown"] = time.perf_counter()
+        self.schedule_poll()
+        if self.bootstrap > 0:
+            self.progress = "intervals 0%"
+            self._mark_updating("intervals…")
+            self._intervals_worker(msg.snapshot)
+        else:
+            self._mark_updating("")
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="intervals")
+    def _intervals_worker(self, snap: Snapshot) -> None:
+        from tui.loading import add_intervals
+
+        worker = get_current_worker()
+        last = [0.0]
+
+        def progress(done: int, total: int, *_: object) -> None:
+            if worker.is_cancelled or self.stop.is_set() or self.generation != snap.generation:
+                raise _Cancelled()
+            now = time.perf_counter()
+            if now - last[0] > 0.25 or done >= total:
+                last[0] = now
+                self.post_message(IntervalsProgress(done, total, snap.generation))
+
+        try:
+            full = add_intervals(snap, bootstrap=self.bootstrap, seed=self.seed, progress=progress,
+                                 refreshed_at=self.clock())
+        except _Cancelled:
+            return
+        if not worker.is_cancelled:
+            self.post_message(IntervalsReady(full))
+
+    def on_intervals_progress(self, msg: IntervalsProgress) -> None:
+        if msg.generation == self.generation and msg.total:
+            self.progress = f"intervals {100 * msg.done // msg.total}%"
+            self.refresh_status()
+
+    def on_intervals_ready(self, msg: IntervalsReady) -> None:
+        if msg.snapshot.generation != self.generation:
+            return
+        self.snapshot = msg.snapshot
+        self.progress = ""
+        self._show_snapshot()
+        self._mark_updating("")
+
+    def on_store_written(self, msg: StoreWritten) -> None:
+        """A screen of this app stored something; the poller will see it too (another connection)."""
+        self.note = msg.what
+        self.refresh_status()
+
+    # -- demo --------------------------------------------------------------
+    @work(thread=True, exclusive=True, exit_on_error=False, group="demo")
+    def _demo_worker(self) -> None:
+        self.demo_feed(self.stop, lambda text: self.post_message(DemoNote(text)))
+
+    def on_demo_note(self, msg: DemoNote) -> None:
+        self.note = msg.text
+        self.refresh_status()
+
+    # -- failures ----------------------------------------------------------
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        """The one place where a failed worker becomes a visible message."""
+        worker = event.worker
+        if event.state != WorkerState.ERROR:
+            return
+        from schemas.errors import FieldslopeError
+
+        err = worker.error
+        text = str(err) if isinstance(err, FieldslopeError) else f"{worker.name or 'background task'} failed: {err}"
+        self.error = text
+        self.notify(text, severity="error", timeout=10)
+        group = worker.group
+        if group == "open":
+            self.note = ""
+        elif group in ("points", "intervals"):
+            self.updating = ""
+            self.progress = ""
+            self._mark_updating("")
+            if group == "points":
+                self.schedule_poll()
+        elif group == "poll":
+            # try again after a pause, so a locked or vanished store does not end live refresh
+            self._poller = None
+            self.schedule_poll(2.0)
+        if hasattr(self.screen, "worker_failed"):
+            self.screen.worker_failed(group, text)
+        self.refresh_status()
+
+    # -- showing -----------------------------------------------------------
+    def _show_snapshot(self) -> None:
+        screen = self.screen
+        if hasattr(screen, "refresh_from_app"):
+            screen.refresh_from_app()
+        self.refresh_status()
+
+    def _mark_updating(self, what: str | None = None) -> None:
+        if what is not None:
+            self.updating = what
+        screen = self.screen
+        if hasattr(screen, "mark_updating"):
+            screen.mark_updating(self.updating)
+        self.refresh_status()
+
+    def refresh_status(self) -> None:
+        from tui.widgets.status import StatusLine
+
+        try:
+            for status in self.screen.query(StatusLine):
+                status.update_from_app()
+        except Exception:  # the screen may be closing
+            pass
+
+    def status_content(self) -> Content:
+        parts: list[tuple[str, str] | str] = []
+        snap = self.snapshot
+        if self.error:
+            return Content.assemble(("! ", "bold $error"), (self.error, "$error"))
+        title = getattr(self.screen, "TITLE_TEXT", "")
+        if title:
+            parts.append((f"{title} ", "bold $accent"))
+        if snap is not None:
+            name = snap.protocol.name or (self.study_dir.name if self.study_dir else "")
+            parts += [(name[:16], "bold"), f" │ {snap.n_batches} batches │ {snap.flags_open} open flags"]
+            parts.append(f" │ refreshed {snap.refreshed_at}")
+            if snap.sensitivity:
+                parts.append((" │ outliers out", "$warning"))
+            if self.readonly:
+                parts.append((" │ read-only", "bold $warning"))
+        elif self.study_ready:
+            parts.append("reading the store …")
+        if self.updating:
+            parts.append((f" │ {self.updating}", "$accent"))
+        if self.progress:
+            parts.append((f" {self.progress}", "$accent"))
+        if self.note:
+            parts.append((f" │ {self.note}", "$text-muted"))
+        return Content.assemble(*parts)
+
+    # -- actions -----------------------------------------------------------
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action in ("show", "toggle_sensitivity", "refresh") and not self.study_ready:
+            return False
+        return True
+
+    def action_show(self, mode: str, then: str | None = None) -> None:
+        if not self.study_ready or mode not in SCREENS_IN_ORDER:
+            return
+        if self.current_mode != mode:
+            self.switch_mode(mode)
+        if then:
+            self.call_after_refresh(lambda: self.screen.run_action(then))
+
+    def action_help(self) -> None:
+        from tui.screens.dialogs import HelpScreen
+
+        if isinstance(self.screen, HelpScreen):
+            self.pop_screen()
+            return
+        self.push_screen(HelpScreen(self.screen))
+
+    def action_toggle_sensitivity(self) -> None:
+        self.sensitivity = not self.sensitivity
+        self.notify("Open outlier flags left out." if self.sensitivity else "Open outlier flags included.",
+                    timeout=3)
+        self.start_points()
+
+    def action_refresh(self) -> None:
+        if self.study_ready:
+            self.start_points()
+
+
+def run_app(study_dir: Path | None, **kwargs) -> None:
+    """Run the dashboard until the user quits (what ``fieldslope`` calls)."""
+    FieldslopeApp(study_dir, **kwargs).run()

@@ -1,0 +1,226 @@
+"""Worker-side reading for the dashboard: open the study, poll it, build snapshots.
+
+Every function here runs in a worker thread and opens its own store
+connection; nothing here imports Textual. The numbers come from the
+estimators through :mod:`tui.bridge` (one path from records to numbers).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Callable
+
+from tui.snapshot import Snapshot, records
+
+
+def open_study(study_dir: Path):
+    """Open the study; fall back to read-only when the store cannot be written.
+
+    Returns (protocol, readonly, warning). Raises FieldslopeError with one
+    sentence when the study cannot be read at all.
+    """
+    from schemas.errors import FieldslopeError
+    from schemas.study import Study
+
+    try:
+        study = Study.open(study_dir)
+    except FieldslopeError as exc:
+        try:
+            study = Study.open(study_dir, readonly=True)
+        except FieldslopeError:
+            raise exc from None
+        _close(study)
+        return study.protocol, True, f"{exc} The dashboard is read-only until this is fixed."
+    _close(study)
+    return study.protocol, False, ""
+
+
+def _close(study) -> None:
+    close = getattr(getattr(study, "store", None), "close", None) or getattr(study, "close", None)
+    if close:
+        close()
+
+
+class Poller:
+    """One long-lived read-only connection used only to read the store's change counter."""
+
+    def __init__(self, study_dir: Path):
+        from schemas.study import Study
+
+        self.study_dir = study_dir
+        self.study = Study.open(study_dir, readonly=True)
+
+    def version(self) -> int:
+        return int(self.study.store.data_version())
+
+    def close(self) -> None:
+        _close(self.study)
+
+
+def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity: bool,
+                  refreshed_at: str, readonly: bool = False) -> Snapshot:
+    """Read the store once and compute point estimates (bootstrap 0)."""
+    from schemas.study import Study
+    from tui.bridge import estimates_for_frame
+
+    study = Study.open(study_dir, readonly=True)
+    try:
+        store = study.store
+        frame = store.effective_frame(without_open_outliers=sensitivity)
+        flags = records(store.flags(include_resolved=True))
+        batches = records(store.batches())
+        h2 = records(store.heritability_entries())
+        h2_values = store.heritability() or None
+    finally:
+        _close(study)
+    est = estimates_for_frame(frame, study.protocol, bootstrap=0, h2=h2_values)
+    return Snapshot(
+        protocol=study.protocol, table=est.table, notes=tuple(est.notes), frame=frame, flags=flags,
+        batches=batches, heritability=h2, data_version=version, refreshed_at=refreshed_at,
+        sensitivity=sensitivity, intervals=False, generation=generation, readonly=readonly,
+        extras={"h2": h2_values},
+    )
+
+
+def add_intervals(snap: Snapshot, *, bootstrap: int, seed: int | None,
+                  progress: Callable[..., None] | None, refreshed_at: str) -> Snapshot:
+    """The same data with bootstrap intervals and permutation p-values."""
+    from tui.bridge import estimates_for_frame
+
+    est = estimates_for_frame(snap.frame, snap.protocol, bootstrap=bootstrap, seed=seed,
+                              h2=snap.extras.get("h2"), progress=progress)
+    return snap.with_(table=est.table, notes=tuple(est.notes), intervals=True)
+
+
+def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivity: bool,
+                should_stop: Callable[[], bool] = lambda: False):
+    """β of each trait in ``season`` after each stored batch (bootstrap 0, se-based 95 % interval).
+
+    Returns a list of dicts: batch, n, site, trait, estimate, se, ci_low, ci_high.
+    """
+    from schemas.study import Study
+    from tui.bridge import estimates_for_frame
+
+    study = Study.open(study_dir, readonly=True)
+    out: list[dict] = []
+    try:
+        store = study.store
+        ids = [b["id"] for b in records(store.batches()) if b.get("outcome", "stored") != "refused"]
+        for k in ids:
+            if should_stop():
+                break
+            frame = store.effective_frame(without_open_outliers=sensitivity, as_of_batch=k)
+            if frame.empty or protocol.season_col not in frame or not (frame[protocol.season_col].astype(str) == season).any():
+                continue
+            sub = frame[frame[protocol.season_col].astype(str) == season]
+            est = estimates_for_frame(sub, protocol, bootstrap=0)
+            t = est.table
+            t = t[(t["season"] == season) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")]
+            for row in t.itertuples(index=False):
+                se = row.se if row.se == row.se else None
+                out.append({"batch": k, "site": row.site, "trait": row.term, "estimate": row.estimate,
+                            "se": se, "n": row.n,
+                            "ci_low": None if se is None else row.estimate - 1.96 * se,
+                            "ci_high": None if se is None else row.estimate + 1.96 * se})
+    finally:
+        _close(study)
+    return out
+
+
+def create_study(folder: Path, protocol_file: Path) -> None:
+    """Create a study folder from a protocol file (raises FieldslopeError with one sentence)."""
+    from schemas.study import Study
+
+    _close(Study.create(folder, protocol_file))
+
+
+def demo_study():
+    """Create a fresh demo study; returns (folder, feed) for ``FieldslopeApp.demo_feed``."""
+    from tui import demo
+
+    target = demo.create_demo_study(None)
+    return target, demo.demo_feed(target)
+
+
+def resolve_flag(study_dir: Path, flag_id: int, action: str, value: str | None, reason: str, operator: str):
+    """Keep, exclude or correct one flag (its own writing connection); returns the store's Resolution."""
+    from schemas.study import Study
+
+    study = Study.open(study_dir)
+    try:
+        return study.store.resolve_flag(flag_id, action=action, value=value, reason=reason, operator=operator)
+    finally:
+        _close(study)
+
+
+def set_heritability(study_dir: Path, trait: str, value: float, se: float | None, source: str, operator: str) -> None:
+    """Keep an entered h² (with its source) in the study."""
+    from schemas.study import Study
+
+    study = Study.open(study_dir)
+    try:
+        study.store.set_heritability(trait, value, se, source, operator)
+    finally:
+        _close(study)
+
+
+def intake_dir(study_dir: Path) -> Path:
+    from schemas.study import INTAKE_DIR
+
+    return Path(study_dir) / INTAKE_DIR
+
+
+_LISTERS: dict = {}
+
+
+def list_intake(study_dir: Path) -> list[dict]:
+    """The drop folder's files and their status (new, arriving, taken in, partial, refused).
+
+    One Study object per folder is kept for listing, because a file counts as
+    arrived only when two looks see the same size and time (``Study.intake_files``).
+    """
+    from schemas.study import Study
+
+    key = Path(study_dir).resolve()
+    study = _LISTERS.get(key)
+    if study is None:
+        study = _LISTERS[key] = Study.open(study_dir, readonly=True)
+    out = []
+    for f in study.intake_files():
+        status = f"{f.status} ({f.batch_id})" if f.batch_id is not None else f.status
+        out.append({"name": f.name, "path": f.path, "size": f.size, "status": status, "batch": f.batch_id,
+                    "state": f.status})
+    return out
+
+
+def check_file(study_dir: Path, path: Path):
+    """Check a batch file against the study (nothing stored); returns (ImportResult, preview frame or None)."""
+    from schemas.errors import FieldslopeError, SheetError
+    from schemas.readers import read_sheet
+    from schemas.study import Study
+
+    try:
+        data = Path(path).read_bytes()
+    except OSError as exc:
+        raise FieldslopeError(f"{path}: cannot read the file ({exc.strerror}); check the path and permissions.") from None
+    study = Study.open(study_dir, readonly=True)
+    try:
+        result = study.store.check_bytes(Path(path).name, data)
+    finally:
+        _close(study)
+    try:
+        preview = read_sheet(Path(path).name, data).frame.head(200)
+    except SheetError:
+        preview = None
+    return result, preview
+
+
+def import_file(study_dir: Path, path: Path, accept_valid: bool, operator: str):
+    """Take a batch file in (its own writing connection); returns the ImportResult."""
+    from schemas.study import Study
+
+    study = Study.open(study_dir)
+    try:
+        return study.store.import_file(Path(path), operator=operator, accept_valid=accept_valid)
+    finally:
+        _close(study)

@@ -1,0 +1,68 @@
+"""Typed messages that carry worker results back to the dashboard's main thread."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from textual.message import Message
+
+from tui.snapshot import Snapshot
+
+
+@dataclass
+class StudyReady(Message):
+    """The study folder opened; ``readonly`` when the store could only be read."""
+
+    protocol: Any
+    readonly: bool
+    warning: str = ""
+
+
+@dataclass
+class StudyFailed(Message):
+    """The study could not be opened at all (one sentence for the user)."""
+
+    reason: str
+
+
+@dataclass
+class Polled(Message):
+    """The store's change counter as read by the poller."""
+
+    version: int
+
+
+@dataclass
+class PointsReady(Message):
+    """Point estimates (bootstrap 0) for a new store version or mode."""
+
+    snapshot: Snapshot
+
+
+@dataclass
+class IntervalsProgress(Message):
+    done: int
+    total: int
+    generation: int
+
+
+@dataclass
+class IntervalsReady(Message):
+    """The same snapshot with bootstrap intervals and permutation p-values filled in."""
+
+    snapshot: Snapshot
+
+
+@dataclass
+class DemoNote(Message):
+    """A line from the demo feed for the status line."""
+
+    text: str
+
+
+@dataclass
+class StoreWritten(Message):
+    """A screen stored something (batch, correction, h²): refresh without waiting for the poll."""
+
+    what: str

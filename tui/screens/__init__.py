@@ -1,0 +1,1 @@
+"""The dashboard's screens: start, intake, flags, selection, response, seasons, and dialogs."""

@@ -1,0 +1,53 @@
+"""What every study screen shares: a body, the status line, the footer, and snapshot hand-off."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.screen import Screen
+from textual.widgets import Footer
+
+from tui.snapshot import Snapshot
+from tui.widgets.status import StatusLine
+
+
+class StudyScreen(Screen):
+    """A screen that renders from the app's current :class:`Snapshot`.
+
+    Subclasses implement :meth:`body` and :meth:`show`; ``show`` runs on the
+    main thread whenever a newer snapshot exists and the screen is visible.
+    """
+
+    TITLE_TEXT = ""
+    _shown: tuple | None = None
+
+    def compose(self) -> ComposeResult:
+        yield from self.body()
+        yield StatusLine()
+        yield Footer(compact=True)
+
+    def body(self) -> ComposeResult:  # pragma: no cover - overridden
+        yield from ()
+
+    def on_screen_resume(self) -> None:
+        self.refresh_from_app()
+        self.mark_updating(getattr(self.app, "updating", ""))
+
+    def refresh_from_app(self, force: bool = False) -> None:
+        snap = getattr(self.app, "snapshot", None)
+        if snap is None:
+            return
+        key = (snap.generation, snap.intervals, snap.sensitivity)
+        if force or key != self._shown:
+            self._shown = key
+            self.show(snap)
+
+    def show(self, snap: Snapshot) -> None:  # pragma: no cover - overridden
+        pass
+
+    def mark_updating(self, what: str) -> None:
+        """Mark panels (widgets with class ``panel``) as updating while a worker runs."""
+        for panel in self.query(".panel"):
+            panel.set_class(bool(what), "-updating")
+            panel.border_subtitle = what or ""
+        for status in self.query(StatusLine):
+            status.update_from_app()

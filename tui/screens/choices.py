@@ -1,0 +1,96 @@
+"""What a screen is looking at (season, site, fitness measure, trait) and the keys that cycle it."""
+
+from __future__ import annotations
+
+from textual.content import Content
+
+from tui.snapshot import ALL, Snapshot
+
+
+class Choices:
+    """The season, site, fitness measure and trait a screen shows; cycled by keys."""
+
+    def __init__(self):
+        self.season: str | None = None
+        self.site: str | None = None
+        self.fitness: str | None = None
+        self.trait = 0
+
+    def settle(self, snap: Snapshot) -> None:
+        """Keep each choice if the snapshot still has it, else take the latest season, pooled, the total."""
+        seasons = snap.seasons()
+        if self.season not in seasons:
+            self.season = seasons[-1] if seasons else None
+        sites = snap.sites(self.season) if self.season else []
+        if self.site not in sites:
+            self.site = sites[0] if sites else None
+        names = snap.fitness_names
+        if self.fitness not in names:
+            totals = list(snap.protocol.totals)
+            self.fitness = totals[0] if totals else (names[0] if names else None)
+        self.trait %= max(1, len(snap.protocol.trait_names))
+
+    def trait_name(self, snap: Snapshot) -> str:
+        traits = snap.protocol.trait_names
+        return traits[self.trait % len(traits)] if traits else ""
+
+    @staticmethod
+    def step(options: list, current, step: int = 1):
+        if not options:
+            return current
+        i = options.index(current) if current in options else -1
+        return options[(i + step) % len(options)]
+
+    def bar(self, snap: Snapshot, parts: tuple[str, ...], extra: str = "") -> Content:
+        """One line naming the current choices and the key that changes each."""
+        items = {
+            "season": ("Season", str(self.season or "–"), "s"),
+            "site": ("Site", "pooled" if self.site == ALL else str(self.site or "–"), "t"),
+            "fitness": ("Fitness", str(self.fitness or "–"), "w"),
+            "trait": ("Trait", self.trait_name(snap), "x"),
+        }
+        out: list[tuple[str, str]] = []
+        for name in parts:
+            label, value, key = items[name]
+            out += [(f"{label} ", "$text-muted"), (value, "bold"), (f" [{key}]  ", "$text-muted")]
+        if extra:
+            out.append((extra, "$text-muted"))
+        return Content.assemble(*out)
+
+
+class ChoiceKeys:
+    """Mixin for a StudyScreen with ``self.choices``: actions that cycle the choices and redraw."""
+
+    choices: Choices
+
+    def _cycle(self, attr: str, options: list, step: int = 1) -> None:
+        setattr(self.choices, attr, Choices.step(options, getattr(self.choices, attr), step))
+        if attr == "season":
+            self.choices.site = None
+        self._redraw()
+
+    def _redraw(self) -> None:
+        snap = self.app.snapshot
+        if snap is not None:
+            self.choices.settle(snap)
+            self.show(snap)
+
+    def action_next_season(self) -> None:
+        if self.app.snapshot:
+            self._cycle("season", self.app.snapshot.seasons())
+
+    def action_prev_season(self) -> None:
+        if self.app.snapshot:
+            self._cycle("season", self.app.snapshot.seasons(), -1)
+
+    def action_next_site(self) -> None:
+        if self.app.snapshot:
+            self._cycle("site", self.app.snapshot.sites(self.choices.season))
+
+    def action_next_fitness(self) -> None:
+        if self.app.snapshot:
+            self._cycle("fitness", list(self.app.snapshot.fitness_names))
+
+    def action_next_trait(self) -> None:
+        self.choices.trait += 1
+        self._redraw()

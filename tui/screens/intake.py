@@ -1,0 +1,280 @@
+"""Intake: the drop folder's files, a file opened by path, the checks, and taking a batch in."""
+
+from __future__ import annotations
+
+import getpass
+from dataclasses import dataclass
+from pathlib import Path
+
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal
+from textual.content import Content
+from textual.message import Message
+from textual.widgets import DataTable, Input, Static, TabbedContent, TabPane
+
+from tui.messages import StoreWritten
+from tui.screens.base import StudyScreen
+from tui.screens.dialogs import ConfirmScreen
+from tui.snapshot import Snapshot
+
+
+def operator_name() -> str:
+    try:
+        return getpass.getuser()
+    except Exception:  # no login name (some containers)
+        return "unknown"
+
+
+class IntakeScreen(StudyScreen):
+    TITLE_TEXT = "Intake"
+    BINDINGS = [
+        Binding("enter", "check", "Check", id="intake_check", show=False),
+        Binding("c", "check", "Check", id="intake_check_c"),
+        Binding("i", "take_in", "Take in", id="intake_take"),
+        Binding("a", "take_valid", "Take valid rows", id="intake_take_valid"),
+        Binding("slash", "open_path", "Open path", id="intake_path", key_display="/"),
+        Binding("r", "rescan", "Rescan", id="intake_rescan", show=False),
+        Binding("escape", "leave_path", "Leave the path field", id="intake_leave", show=False),
+    ]
+
+    @dataclass
+    class Listed(Message):
+        files: list  # list[dict]: name, path, size, status, batch
+
+    @dataclass
+    class Checked(Message):
+        path: Path
+        result: object        # ImportResult (checked only)
+        preview: object       # pandas DataFrame, the first rows as read
+
+    @dataclass
+    class TakenIn(Message):
+        result: object        # ImportResult
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.files: list[dict] = []
+        self.current: Path | None = None
+        self.checked = None
+        self._listed_version: int | None = None
+
+    def body(self) -> ComposeResult:
+        yield Static(id="intake-folder", classes="choices")
+        yield DataTable(id="intake-files", cursor_type="row", classes="panel")
+        with Horizontal(id="intake-path-row", classes="-hidden"):
+            yield Input(placeholder="path of a batch file (CSV, TSV, XLSX); Enter to check", id="intake-path",
+                        compact=True)
+        yield Static("Pick a file and press c to check it; i takes it in, a takes its valid rows.",
+                     id="intake-summary", classes="summary")
+        with TabbedContent(id="intake-tabs"):
+            with TabPane("Problems", id="intake-problems"):
+                yield DataTable(id="intake-report", cursor_type="row", zebra_stripes=True)
+            with TabPane("Preview", id="intake-preview"):
+                yield DataTable(id="intake-sheet", cursor_type="row")
+
+    def on_mount(self) -> None:
+        self.query_one("#intake-files", DataTable).add_columns("file", "size", "status")
+        self.query_one("#intake-report", DataTable).add_columns("row", "column", "value", "problem")
+        self.set_interval(1.5, self._tick)
+
+    def _tick(self) -> None:
+        """Look at the drop folder again while this screen is shown (arriving files settle)."""
+        if self.is_current and self.app.study_ready:
+            self.action_rescan()
+
+    # -- listing -----------------------------------------------------------
+    def show(self, snap: Snapshot) -> None:
+        from tui.loading import intake_dir
+
+        self.query_one("#intake-folder", Static).update(Content.assemble(
+            ("Drop folder ", "$text-muted"), (str(intake_dir(self.app.study_dir)), "bold")))
+        self.action_rescan()
+
+    def action_rescan(self) -> None:
+        self._list_worker(self.app.study_dir)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="intake-list")
+    def _list_worker(self, study_dir: Path) -> None:
+        from tui.loading import list_intake
+
+        self.post_message(self.Listed(list_intake(study_dir)))
+
+    def on_intake_screen_listed(self, msg: Listed) -> None:
+        table = self.query_one("#intake-files", DataTable)
+        keep = table.cursor_row
+        self.files = msg.files
+        table.clear()
+        for f in msg.files:
+            table.add_row(f["name"], _size(f["size"]), f["status"], key=str(f["path"]))
+        if msg.files:
+            table.move_cursor(row=min(keep, len(msg.files) - 1))
+        else:
+            self.query_one("#intake-summary", Static).update(
+                "The drop folder is empty: copy batch files into it, or press / to open a file by path.")
+
+    # -- checking ----------------------------------------------------------
+    def _selected(self) -> Path | None:
+        table = self.query_one("#intake-files", DataTable)
+        if not self.files or table.cursor_row < 0 or table.cursor_row >= len(self.files):
+            return None
+        f = self.files[table.cursor_row]
+        return None if f["state"] == "arriving" else Path(f["path"])
+
+    def action_check(self) -> None:
+        path = self._selected()
+        if path is None:
+            self.query_one("#intake-summary", Static).update("Pick a file first (a file still arriving is skipped until its size settles).")
+            return
+        self.check(path)
+
+    def check(self, path: Path) -> None:
+        self.current, self.checked = path, None
+        self.query_one("#intake-summary", Static).update(f"Checking {path.name} …")
+        self._check_worker(self.app.study_dir, path)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="intake-check")
+    def _check_worker(self, study_dir: Path, path: Path) -> None:
+        from tui.loading import check_file
+
+        result, preview = check_file(study_dir, path)
+        self.post_message(self.Checked(path, result, preview))
+
+    def on_intake_screen_checked(self, msg: Checked) -> None:
+        if msg.path != self.current:
+            return
+        self.checked = msg.result
+        r = msg.result
+        self.query_one("#intake-summary", Static).update(_summary_line(msg.path.name, r))
+        report = self.query_one("#intake-report", DataTable)
+        report.clear()
+        for e in r.errors:
+            report.add_row(str(e.row), e.column, e.value or "", f"ERROR {e.reason}")
+        for f in r.flags:
+            report.add_row(str(f.row), f.field, f.value or "", f"flag {f.kind}: {f.message}")
+        sheet = self.query_one("#intake-sheet", DataTable)
+        sheet.clear(columns=True)
+        if msg.preview is not None:
+            sheet.add_columns(*[str(c) for c in msg.preview.columns])
+            for row in msg.preview.itertuples(index=False):
+                sheet.add_row(*["" if v is None else str(v) for v in row])
+
+    # -- taking in ---------------------------------------------------------
+    def action_take_in(self) -> None:
+        self._take(accept_valid=False)
+
+    def action_take_valid(self) -> None:
+        self._take(accept_valid=True)
+
+    def _take(self, accept_valid: bool) -> None:
+        if self.app.readonly:
+            self.app.notify("The store is read-only now; nothing can be taken in.", severity="warning")
+            return
+        r = self.checked
+        if r is None or self.current is None:
+            self.query_one("#intake-summary", Static).update("Check a file first (c), then take it in.")
+            return
+        if r.outcome == "refused" and not (accept_valid and r.errors and r.n_rows > len(_bad_rows(r))):
+            self.app.notify(f"{self.current.name} cannot be taken in: {r.message or 'see the problems listed'}",
+                            severity="error")
+            return
+        if r.outcome == "duplicate":
+            self.app.notify(f"{self.current.name} was taken in before; nothing to do.", severity="warning")
+            return
+        bad = len(_bad_rows(r))
+        if r.errors and not accept_valid:
+            self.app.notify(f"{bad} rows have errors: fix the file, or press a to take in only the valid rows.",
+                            severity="warning")
+            return
+        n_store = r.n_rows - (bad if accept_valid else 0)
+        lines = [f"File: {self.current}", f"Operator: {operator_name()}",
+                 f"Rows stored as records: {n_store} of {r.n_rows}"]
+        if accept_valid and bad:
+            lines.append(f"Rows kept in quarantine (visible and fixable on Flags): {bad}")
+        if r.flags:
+            counts = ", ".join(f"{k} {v}" for k, v in sorted(r.flag_counts().items()))
+            lines.append(f"Flags opened: {len(r.flags)} ({counts})")
+        lines.append("Stored values are never overwritten; corrections are added later with a reason.")
+        title = "Take in the valid rows?" if accept_valid else "Take in this batch?"
+        path = self.current
+
+        def done(yes: bool | None) -> None:
+            if yes:
+                self.query_one("#intake-summary", Static).update(f"Taking in {path.name} …")
+                self._import_worker(self.app.study_dir, path, accept_valid)
+
+        self.app.push_screen(ConfirmScreen(title, "\n".join(lines), yes="Take in"), done)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="intake-import")
+    def _import_worker(self, study_dir: Path, path: Path, accept_valid: bool) -> None:
+        from tui.loading import import_file
+
+        self.post_message(self.TakenIn(import_file(study_dir, path, accept_valid, operator_name())))
+
+    def on_intake_screen_taken_in(self, msg: TakenIn) -> None:
+        r = msg.result
+        text = _outcome_line(r)
+        self.query_one("#intake-summary", Static).update(text)
+        self.app.notify(text, severity="information" if r.ok else "error", timeout=6)
+        self.checked = None
+        self.post_message(StoreWritten(text))
+        self.action_rescan()
+
+    # -- by path -----------------------------------------------------------
+    def action_open_path(self) -> None:
+        row = self.query_one("#intake-path-row")
+        row.remove_class("-hidden")
+        self.query_one("#intake-path", Input).focus()
+
+    def action_leave_path(self) -> None:
+        self.query_one("#intake-path-row").add_class("-hidden")
+        self.query_one("#intake-files", DataTable).focus()
+
+    @on(Input.Submitted, "#intake-path")
+    def _path_given(self, event: Input.Submitted) -> None:
+        path = Path(event.value.strip()).expanduser()
+        if not path.is_file():
+            self.query_one("#intake-summary", Static).update(
+                Content.assemble((f"{path} is not a file; check the path and press Enter again.", "$error")))
+            return
+        self.action_leave_path()
+        self.check(path)
+
+    @on(DataTable.RowSelected, "#intake-files")
+    def _row_chosen(self) -> None:
+        self.action_check()
+
+    def worker_failed(self, group: str, text: str) -> None:
+        if group.startswith("intake"):
+            self.query_one("#intake-summary", Static).update(Content.assemble((text, "$error")))
+
+
+def _bad_rows(r) -> set[int]:
+    return {e.row for e in r.errors}
+
+
+def _size(n: int) -> str:
+    return f"{n} B" if n < 1024 else f"{n / 1024:.0f} kB" if n < 1024 * 1024 else f"{n / 1048576:.1f} MB"
+
+
+def _summary_line(name: str, r) -> Content:
+    if r.outcome == "duplicate":
+        return Content.assemble((f"{name}: ", "bold"), r.message or "already taken in; nothing to do.")
+    if r.outcome == "refused" and not r.errors:
+        return Content.assemble((f"{name}: ", "bold"), (r.message or "refused", "$error"))
+    bad = len(_bad_rows(r))
+    parts = [(f"{name}: ", "bold"), f"{r.n_rows} rows, "]
+    parts.append((f"{bad} with errors", "bold $error") if bad else ("no errors", "$success"))
+    parts.append(f", {len(r.flags)} flags. ")
+    parts.append(("i take in" if not bad else "a take in the valid rows", "$accent"))
+    return Content.assemble(*parts)
+
+
+def _outcome_line(r) -> str:
+    if r.outcome == "duplicate":
+        return f"{r.file_name}: already taken in; nothing stored."
+    if r.outcome == "refused":
+        return f"{r.file_name} refused: {r.message}"
+    extra = f", {r.n_quarantined} quarantined" if r.n_quarantined else ""
+    return f"{r.file_name}: {r.n_stored} rows stored{extra}, {len(r.flags)} flags (batch {r.batch_id})."

@@ -1,0 +1,186 @@
+"""Response: h² per trait, R = h²S, R as % of the mean, Δz̄ = Gβ, and a projection over generations."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, VerticalScroll
+from textual.content import Content
+from textual.message import Message
+from textual.widgets import DataTable, Input, Label, Static
+
+from tui.messages import StoreWritten
+from tui.screens.base import StudyScreen
+from tui.screens.dialogs import FormScreen
+from tui.screens.intake import operator_name
+from tui.screens.choices import ChoiceKeys, Choices
+from tui.snapshot import ALL, Snapshot
+from tui.widgets.pictures import fmt
+
+
+class ResponseScreen(ChoiceKeys, StudyScreen):
+    TITLE_TEXT = "Response"
+    BINDINGS = [
+        Binding("s", "next_season", "Season", id="resp_season"),
+        Binding("t", "next_site", "Site", id="resp_site"),
+        Binding("w", "next_fitness", "Fitness", id="resp_fitness"),
+        Binding("h", "enter_h2", "Enter h²", id="resp_h2"),
+        Binding("g", "focus_generations", "Projection", id="resp_project"),
+        Binding("escape", "leave_field", "Leave field", id="resp_leave", show=False),
+    ]
+
+    @dataclass
+    class H2Saved(Message):
+        text: str
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.choices = Choices()
+
+    def body(self) -> ComposeResult:
+        yield Static(id="resp-choices", classes="choices")
+        with VerticalScroll():
+            yield DataTable(id="resp-table", cursor_type="row", zebra_stripes=True, classes="panel")
+            yield Static(id="resp-g", classes="notes")
+            with Horizontal(id="resp-inputs"):
+                yield Label("generations k ")
+                yield Input("10", id="resp-k", compact=True, type="integer")
+                yield Label("  target change ")
+                yield Input("", id="resp-target", compact=True, placeholder="trait units", type="number")
+            yield Static(id="resp-projection", classes="notes panel")
+
+    def on_mount(self) -> None:
+        self.query_one("#resp-table", DataTable).add_columns("trait", "h²", "source", "S", "R", "R %", "Δz̄ (Gβ)")
+
+    def action_focus_generations(self) -> None:
+        self.query_one("#resp-k", Input).focus()
+
+    def action_leave_field(self) -> None:
+        self.query_one("#resp-table", DataTable).focus()
+
+    # -- the numbers -------------------------------------------------------
+    def h2_of(self, snap: Snapshot, trait: str) -> tuple[dict | None, str]:
+        """h² of a trait as the estimates used it, and where it came from.
+
+        The estimators take parent–offspring estimates first and entered values
+        otherwise; an estimate equal to the latest entry is labelled as entered.
+        """
+        rows = snap.rows(quantity="heritability", term=trait)
+        entry = _entered(snap, trait)
+        if not rows.empty:
+            r = rows.iloc[0]
+            est = snap.value(r["season"], r["site"], r["fitness"], "heritability", trait)
+            if entry and est is not None and est["estimate"] is not None \
+                    and abs(float(entry["value"]) - est["estimate"]) < 1e-12:
+                return est, f"entered: {entry.get('source', '')}"
+            return est, "parent–offspring"
+        if entry:
+            return {"estimate": float(entry["value"]), "se": entry.get("se")}, f"entered: {entry.get('source', '')}"
+        return None, "none: press h"
+
+    def show(self, snap: Snapshot) -> None:
+        c = self.choices
+        c.settle(snap)
+        self.query_one("#resp-choices", Static).update(c.bar(snap, ("season", "site", "fitness"), "h enters h²"))
+        table = self.query_one("#resp-table", DataTable)
+        keep = table.cursor_row
+        table.clear()
+        key = dict(season=c.season, site=c.site, fitness=c.fitness)
+        for trait in snap.protocol.trait_names:
+            h2, source = self.h2_of(snap, trait)
+            s = snap.value(**key, quantity="differential", term=trait)
+            r = snap.value(**key, quantity="response", term=trait)
+            rp = snap.value(**key, quantity="response_pct", term=trait)
+            rm = snap.value(**key, quantity="response_multi", term=trait)
+            table.add_row(trait, fmt(h2["estimate"]) if h2 else "–", source[:22],
+                          _e(s), _e(r), _e(rp), _e(rm), key=trait)
+        if snap.protocol.trait_names:
+            table.move_cursor(row=max(0, min(keep, len(snap.protocol.trait_names) - 1)))
+        notes = [getattr(n, "message", str(n)) for n in snap.notes
+                 if getattr(n, "quantity", "") in ("response", "response_multi", "heritability", "response_pct")
+                 and getattr(n, "season", c.season) in (c.season, ALL)]
+        g_text = "Δz̄ = G·β_raw (Lande 1979). " + (" ".join(dict.fromkeys(notes))[:400] if notes else "")
+        self.query_one("#resp-g", Static).update(Content.assemble((g_text, "$text-muted")))
+        self._projection()
+
+    @on(Input.Changed, "#resp-k")
+    @on(Input.Changed, "#resp-target")
+    def _inputs_changed(self) -> None:
+        self._projection()
+
+    def _projection(self) -> None:
+        from tui.projection import projection_text
+
+        snap = self.app.snapshot
+        out = self.query_one("#resp-projection", Static)
+        if snap is None or self.choices.season is None:
+            out.update("")
+            return
+        table = self.query_one("#resp-table", DataTable)
+        traits = snap.protocol.trait_names
+        if not traits:
+            return
+        trait = traits[max(0, min(table.cursor_row, len(traits) - 1))]
+        k_text = self.query_one("#resp-k", Input).value.strip()
+        target_text = self.query_one("#resp-target", Input).value.strip()
+        out.update(projection_text(snap, self.choices.season, self.choices.site, self.choices.fitness, trait,
+                                   k_text, target_text))
+
+    @on(DataTable.RowHighlighted, "#resp-table")
+    def _row(self) -> None:
+        self._projection()
+
+    # -- entering h² -------------------------------------------------------
+    def action_enter_h2(self) -> None:
+        snap = self.app.snapshot
+        if snap is None or self.app.readonly:
+            self.app.notify("The store is read-only now; h² cannot be entered.", severity="warning")
+            return
+        traits = snap.protocol.trait_names
+        table = self.query_one("#resp-table", DataTable)
+        trait = traits[max(0, min(table.cursor_row, len(traits) - 1))]
+        fields = [("value", "h² (0 to 1)", ""), ("se", "its standard error (optional)", ""),
+                  ("source", "Source (study, population, year)", "")]
+
+        def done(values: dict | None) -> None:
+            if not values:
+                return
+            try:
+                value = float(values["value"])
+                se = float(values["se"]) if values["se"] else None
+            except ValueError:
+                self.app.notify("h² and its se must be numbers, e.g. 0.35; nothing was stored.", severity="error")
+                return
+            if not 0 <= value <= 1 or (se is not None and se < 0):
+                self.app.notify("h² must lie between 0 and 1 and its se be positive; nothing was stored.",
+                                severity="error")
+                return
+            self._h2_worker(self.app.study_dir, trait, value, se, values["source"])
+
+        self.app.push_screen(FormScreen(f"Heritability of {trait}",
+                                        "Used where the study has no parent–offspring data for this trait; "
+                                        "kept in the study with its source.", fields, ("value", "source")), done)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="resp-h2")
+    def _h2_worker(self, study_dir: Path, trait: str, value: float, se: float | None, source: str) -> None:
+        from tui.loading import set_heritability
+
+        set_heritability(study_dir, trait, value, se, source, operator_name())
+        self.post_message(self.H2Saved(f"h² of {trait} = {value:g} kept ({source})."))
+
+    def on_response_screen_h2_saved(self, msg: H2Saved) -> None:
+        self.app.notify(msg.text, timeout=4)
+        self.post_message(StoreWritten(msg.text))
+
+
+def _e(row: dict | None) -> str:
+    return "–" if row is None else fmt(row["estimate"])
+
+
+def _entered(snap: Snapshot, trait: str) -> dict | None:
+    entries = [e for e in snap.heritability if e.get("trait") == trait]
+    return entries[-1] if entries else None

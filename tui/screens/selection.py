@@ -1,0 +1,166 @@
+"""Selection: S, S/σ, β, γ and the canonical axes of one season and site, with two pictures."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.content import Content
+from textual.containers import VerticalScroll
+from textual.widgets import DataTable, Static, TabbedContent, TabPane
+
+from tui.screens.base import StudyScreen
+from tui.screens.choices import ChoiceKeys, Choices
+from tui.snapshot import ALL, Snapshot
+from tui.widgets.pictures import fmt, scatter_picture, surface_picture
+
+
+def ci_text(row: dict | None) -> str:
+    if row is None or row["ci_low"] is None or row["ci_high"] is None:
+        return "…"
+    return f"{fmt(row['ci_low'])}, {fmt(row['ci_high'])}"
+
+
+def p_text(row: dict | None) -> str:
+    if row is None or row["p_value"] is None:
+        return "…"
+    p = row["p_value"]
+    return "<0.001" if p < 0.001 else f"{p:.3f}"
+
+
+def est_text(row: dict | None) -> str:
+    return "–" if row is None else fmt(row["estimate"])
+
+
+class SelectionScreen(ChoiceKeys, StudyScreen):
+    TITLE_TEXT = "Selection"
+    BINDINGS = [
+        Binding("s", "next_season", "Season", id="sel_season"),
+        Binding("shift+s", "prev_season", "Previous season", id="sel_season_prev", show=False),
+        Binding("t", "next_site", "Site", id="sel_site"),
+        Binding("w", "next_fitness", "Fitness", id="sel_fitness"),
+        Binding("x", "next_trait", "Trait", id="sel_trait"),
+        Binding("v", "next_view", "View", id="sel_view"),
+    ]
+    VIEWS = ("sel-table", "sel-picture", "sel-surface")
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.choices = Choices()
+
+    def body(self) -> ComposeResult:
+        yield Static(id="sel-choices", classes="choices")
+        yield Static(id="sel-summary", classes="summary panel")
+        with TabbedContent(id="sel-tabs"):
+            with TabPane("Table", id="sel-table"):
+                with VerticalScroll():
+                    yield DataTable(id="sel-linear", cursor_type="row", zebra_stripes=True, classes="panel")
+                    yield DataTable(id="sel-gamma", cursor_type="row", classes="panel")
+                    yield Static(id="sel-notes", classes="notes")
+            with TabPane("w vs trait", id="sel-picture"):
+                yield Static(id="sel-scatter", classes="picture panel")
+            with TabPane("Surface", id="sel-surface"):
+                yield Static(id="sel-surf", classes="picture panel")
+
+    def on_mount(self) -> None:
+        self.query_one("#sel-linear", DataTable).add_columns("trait", "S", "S/σ", "β", "95% CI", "p", "n")
+        self.query_one("#sel-gamma", DataTable).add_columns("term", "γ", "95% CI", "p")
+
+    # -- keys --------------------------------------------------------------
+    def action_next_view(self) -> None:
+        tabs = self.query_one("#sel-tabs", TabbedContent)
+        i = self.VIEWS.index(tabs.active) if tabs.active in self.VIEWS else 0
+        tabs.active = self.VIEWS[(i + 1) % len(self.VIEWS)]
+
+    def on_resize(self) -> None:
+        if self.app.snapshot is not None:
+            self.show(self.app.snapshot)
+
+    # -- rendering ---------------------------------------------------------
+    def show(self, snap: Snapshot) -> None:
+        c = self.choices
+        c.settle(snap)
+        trait = c.trait_name(snap)
+        self.query_one("#sel-choices", Static).update(c.bar(snap, ("season", "site", "fitness", "trait")))
+        if c.season is None:
+            self.query_one("#sel-summary", Static).update("No estimates yet: take in a batch on the Intake screen [1].")
+            for t in ("#sel-linear", "#sel-gamma"):
+                self.query_one(t, DataTable).clear()
+            self.query_one("#sel-notes", Static).update("\n".join(getattr(n, "message", str(n)) for n in snap.notes[:6]))
+            return
+        self._summary(snap)
+        self._tables(snap)
+        self._pictures(snap, trait)
+
+    def _summary(self, snap: Snapshot) -> None:
+        c = self.choices
+        opp = snap.value(c.season, c.site, c.fitness, "opportunity", "")
+        grads = snap.rows(season=c.season, site=c.site, fitness=c.fitness, quantity="gradient")
+        n = opp["n"] if opp and opp["n"] is not None else (grads["n"].max() if not grads.empty else None)
+        missing = snap.missing_fitness(c.season, c.site, c.fitness)
+        parts = [("n ", "$text-muted"), (str(int(n)) if n is not None else "–", "bold"),
+                 ("  missing fitness ", "$text-muted"), (str(missing), "bold"),
+                 ("  I ", "$text-muted"), (fmt(opp["estimate"]) if opp else "–", "bold")]
+        if not snap.intervals:
+            parts.append(("  intervals and p: computing …", "$accent"))
+        if snap.sensitivity:
+            parts.append(("  open outliers left out", "$warning"))
+        self.query_one("#sel-summary", Static).update(Content.assemble(*parts))
+
+    def _tables(self, snap: Snapshot) -> None:
+        c = self.choices
+        key = dict(season=c.season, site=c.site, fitness=c.fitness)
+        lin = self.query_one("#sel-linear", DataTable)
+        lin.clear()
+        for trait in snap.protocol.trait_names:
+            s = snap.value(**key, quantity="differential", term=trait)
+            s_std = snap.value(**key, quantity="differential_std", term=trait)
+            b = snap.value(**key, quantity="gradient", term=trait)
+            n = b["n"] if b and b["n"] is not None else (s["n"] if s and s["n"] is not None else None)
+            lin.add_row(trait, est_text(s), est_text(s_std), est_text(b), ci_text(b), p_text(b),
+                        "–" if n is None else str(int(n)), key=trait)
+        logit = snap.rows(**key, quantity="gradient_logistic")
+        for row in logit.itertuples(index=False):
+            lin.add_row(f"{row.term} (logit β)", "", "", fmt(float(row.estimate)),
+                        ci_text(snap.value(**key, quantity="gradient_logistic", term=row.term)),
+                        p_text(snap.value(**key, quantity="gradient_logistic", term=row.term)),
+                        str(int(row.n)) if row.n == row.n else "–", key=f"logit:{row.term}")
+        gam = self.query_one("#sel-gamma", DataTable)
+        gam.clear()
+        for quantity, label in (("quadratic", "γ "), ("correlational", "γ "), ("canonical", "λ ")):
+            for row in snap.rows(**key, quantity=quantity).itertuples(index=False):
+                v = snap.value(**key, quantity=quantity, term=row.term)
+                gam.add_row(label + str(row.term), est_text(v), ci_text(v) if quantity != "canonical" else "",
+                            p_text(v) if quantity != "canonical" else "", key=f"{quantity}:{row.term}")
+        notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
+        self.query_one("#sel-notes", Static).update(
+            Content.assemble(("λ: canonical axes (eigenvalues of γ). ", "$text-muted"), *[(n + " ", "$text-muted") for n in notes]))
+
+    def _pictures(self, snap: Snapshot, trait: str) -> None:
+        from tui.picture_data import scatter_data
+
+        c = self.choices
+        width = max(40, self.size.width - 4)
+        height = max(8, self.size.height - 9)
+        x, w, bins = scatter_data(snap, c.season, c.site, c.fitness, trait)
+        b = snap.value(c.season, c.site, c.fitness, "gradient", trait)
+        self.query_one("#sel-scatter", Static).update(
+            scatter_picture(x, w, b["estimate"] if b else None, bins, width=width, height=height, xlabel=trait))
+        traits = snap.protocol.trait_names
+        surf = self.query_one("#sel-surf", Static)
+        if len(traits) < 2:
+            surf.update("The fitness surface needs two traits; this protocol has one.")
+            return
+        a, bname = traits[c.trait], traits[(c.trait + 1) % len(traits)]
+        first, second = (a, bname) if traits.index(a) < traits.index(bname) else (bname, a)
+        vals = {}
+        for q, t in (("gradient", a), ("gradient", bname), ("quadratic", f"{a}^2"), ("quadratic", f"{bname}^2"),
+                     ("correlational", f"{first}:{second}")):
+            v = snap.value(c.season, c.site, c.fitness, q, t)
+            vals[(q, t)] = None if v is None else v["estimate"]
+        if any(v is None for v in vals.values()):
+            surf.update(f"No quadratic model for {a} and {bname} here (see the notes on the Table tab).")
+            return
+        beta = (vals[("gradient", a)], vals[("gradient", bname)])
+        g12 = vals[("correlational", f"{first}:{second}")]
+        gamma = ((vals[("quadratic", f"{a}^2")], g12), (g12, vals[("quadratic", f"{bname}^2")]))
+        surf.update(surface_picture(beta, gamma, (a, bname), width=width, height=height))

@@ -1,0 +1,161 @@
+"""The immutable picture of a study that every dashboard panel renders from.
+
+A :class:`Snapshot` is built in a worker thread (which opens its own store
+connection) and handed to the screens on the main thread; panels never query
+the database. This module does not import Textual.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from schemas.protocol import Protocol
+
+ALL = "all"
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    """Everything the panels show, as of one store version.
+
+    ``table`` is the tidy estimates table (columns of estimation.md), ``frame``
+    the effective data it was computed from (for the pictures and the counts of
+    missing fitness), ``flags`` the open flags as plain dicts, ``batches`` the
+    batch list as plain dicts.
+    """
+
+    protocol: "Protocol"
+    table: "pd.DataFrame"
+    notes: tuple            # analysis.table.Note: season, site, fitness, quantity, message
+    frame: "pd.DataFrame"
+    flags: tuple[dict, ...]
+    batches: tuple[dict, ...]
+    heritability: tuple[dict, ...]
+    data_version: int
+    refreshed_at: str
+    sensitivity: bool = False      # True: open outlier flags left out
+    intervals: bool = False        # True once the bootstrap intervals are in
+    generation: int = 0
+    readonly: bool = False
+    extras: dict = field(default_factory=dict)
+
+    # -- what there is ---------------------------------------------------
+    @property
+    def n_batches(self) -> int:
+        return sum(1 for b in self.batches if b.get("status", "stored") != "refused")
+
+    @property
+    def flags_open(self) -> int:
+        return len(self.flags)
+
+    @property
+    def fitness_names(self) -> tuple[str, ...]:
+        return (*self.protocol.component_names, *self.protocol.totals)
+
+    @property
+    def site_col(self) -> str | None:
+        return self.protocol.groups[0] if self.protocol.groups else None
+
+    def seasons(self) -> list[str]:
+        if self.table is None or self.table.empty:
+            return []
+        return sorted(s for s in self.table["season"].dropna().unique() if s != ALL)
+
+    def sites(self, season: str | None = None) -> list[str]:
+        """``all`` (pooled) first, then each site with estimates in that season."""
+        if self.table is None or self.table.empty:
+            return []
+        t = self.table if season is None else self.table[self.table["season"] == season]
+        names = sorted(s for s in t["site"].dropna().unique() if s != ALL)
+        return [ALL, *names] if len(names) > 1 or (ALL in set(t["site"])) else names
+
+    # -- looking up numbers ----------------------------------------------
+    def rows(self, *, season=None, site=None, fitness=None, quantity=None, term=None) -> "pd.DataFrame":
+        t = self.table
+        for col, val in (("season", season), ("site", site), ("fitness", fitness),
+                         ("quantity", quantity), ("term", term)):
+            if val is not None:
+                t = t[t[col] == val]
+        return t
+
+    def value(self, season, site, fitness, quantity, term) -> dict | None:
+        """One row of the table as a dict (estimate, se, ci_low, ci_high, p_value, n), or None."""
+        t = self.rows(season=season, site=site, fitness=fitness, quantity=quantity, term=term)
+        if t.empty:
+            return None
+        row = t.iloc[0]
+        return {k: _num(row[k]) for k in ("estimate", "se", "ci_low", "ci_high", "p_value", "n")}
+
+    def cell_frame(self, season: str, site: str) -> "pd.DataFrame":
+        """The effective data of one cell (all sites of the season for ``all``)."""
+        f = self.frame
+        if f is None or f.empty:
+            return f
+        f = f[f[self.protocol.season_col].astype(str) == str(season)]
+        if site != ALL and self.site_col:
+            f = f[f[self.site_col].astype(str) == str(site)]
+        return f
+
+    def missing_fitness(self, season: str, site: str, fitness: str) -> int:
+        """Individuals of the cell lacking this fitness value (all its components, for a total)."""
+        f = self.cell_frame(season, site)
+        if f is None or f.empty:
+            return 0
+        parts = self.protocol.totals.get(fitness, (fitness,))
+        cols = [c for c in parts if c in f.columns]
+        if not cols:
+            return len(f)
+        return int(f[cols].isna().any(axis=1).sum())
+
+    def notes_for(self, season: str, site: str, fitness: str) -> list[str]:
+        """The estimators' notes about one cell (and its pooled estimate) for one fitness measure."""
+        out = []
+        for n in self.notes:
+            if getattr(n, "season", season) == season and getattr(n, "fitness", fitness) == fitness \
+                    and getattr(n, "site", site) in (site, ALL):
+                out.append(getattr(n, "message", str(n)))
+        return out
+
+    def with_(self, **changes: Any) -> "Snapshot":
+        return replace(self, **changes)
+
+
+def _num(v):
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return None
+    return f if math.isfinite(f) else None
+
+
+def batch_dict(b: Any) -> dict:
+    """A batch record (dataclass, mapping or row) as a plain dict."""
+    return _as_dict(b)
+
+
+def _as_dict(obj: Any) -> dict:
+    if isinstance(obj, dict):
+        return dict(obj)
+    if hasattr(obj, "__dataclass_fields__"):
+        from dataclasses import asdict
+
+        return asdict(obj)
+    if hasattr(obj, "_asdict"):
+        return dict(obj._asdict())
+    if hasattr(obj, "keys"):
+        return {k: obj[k] for k in obj.keys()}
+    return dict(vars(obj))
+
+
+def records(items: Any) -> tuple[dict, ...]:
+    """Store results (a DataFrame, or a list of records) as a tuple of plain dicts."""
+    if items is None:
+        return ()
+    if hasattr(items, "to_dict") and hasattr(items, "columns"):
+        return tuple(items.to_dict("records"))
+    return tuple(_as_dict(x) for x in items)

@@ -1,0 +1,1 @@
+"""Widgets and text pictures of the dashboard."""
