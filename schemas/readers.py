@@ -54,18 +54,21 @@ def is_partial_name(filename: str) -> bool:
 def read_sheet(name: str, data: bytes) -> Sheet:
     """Read one batch file's bytes; raise :class:`SheetError` when it cannot be read."""
     label = PurePath(name).name or "the batch file"
-    if not data or not data.strip():
-        raise SheetError(f"{label}: the file is empty; export the sheet again with its header row.")
     if len(data) > MAX_BYTES:
         raise SheetError(
             f"{label}: the file is {len(data) / 2**20:.1f} MB, over the {MAX_BYTES / 2**20:.0f} MB limit; "
             "split it into smaller batches."
         )
+    if not data.strip():
+        raise SheetError(f"{label}: the file is empty; export the sheet again with its header row.")
     ext = PurePath(name).suffix.lower()
     if data.startswith(_ZIP_MAGIC) or (ext in (".xlsx", ".xlsm") and _ZIP_MAGIC.startswith(data[:4])):
         rows, notes = read_xlsx_rows(label, data, MAX_ROWS)
         sheet = _assemble(label, rows, encoding="xlsx", delimiter="", pad_short=True)
         return Sheet(sheet.name, sheet.frame, sheet.row_numbers, "xlsx", "", notes=tuple(notes))
+    if data.startswith(_OLE_MAGIC) and ext in (".xlsx", ".xlsm"):
+        raise SheetError(f"{label}: the workbook is password-protected (encrypted); save a copy without a "
+                         "password and import that.")
     if data.startswith(_OLE_MAGIC):
         raise SheetError(f"{label}: this is an old Excel (.xls) workbook; save it as .xlsx or CSV and import that.")
     if ext in (".xlsx", ".xlsm"):

@@ -407,3 +407,8 @@ def test_workbook_with_unsupported_zip_version_is_refused(tmp_path):
     central = data.rfind(b"PK\x01\x02")
     data[central + 6] = 64                      # "version needed to extract" of the last entry
     assert "incomplete" in refused("w.xlsx", bytes(data))
+
+
+def test_password_protected_workbook():
+    # an encrypted .xlsx is stored as an OLE compound file (MS-OFFCRYPTO), the same container as .xls
+    assert "password-protected" in refused("w.xlsx", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 100)
