@@ -30,6 +30,7 @@ _ZIP_MAGIC = b"PK\x03\x04"
 _OLE_MAGIC = b"\xd0\xcf\x11\xe0"
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+$")
 _DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+$")
+_LOOKS_LIKE_VALUE = re.compile(r"^[+-]?[\d.,:/ -]*\d[\d.,:/ -]*$")   # 12.5, 2025, 14/06/2025
 _SEP_DIRECTIVE = re.compile(r'"?sep=([,;\t])"?[ ,;\t]*(?:\r\n|\r|\n)', re.IGNORECASE)
 _NON_ASCII_IN_WORD = re.compile(r"(?<=[^\W\d_])[^\x00-\x7f](?=[^\W\d_])")
 _LEGACY_NOTE = {
@@ -323,6 +324,10 @@ def _assemble(label: str, records: Iterable[tuple[int, list]], *, encoding: str,
 def _check_header(label: str, header: list[str | None], header_row: int,
                   rows: list[list[str | None]]) -> list[int]:
     """Refuse unnamed columns holding data and duplicate names; return the positions to keep."""
+    named = [h for h in header if h is not None]
+    if named and all(_LOOKS_LIKE_VALUE.match(h) for h in named):
+        raise SheetError(f"{label}: the first row (row {header_row}) holds values, not column names; "
+                         "add a header row naming the columns as in protocol.toml.")
     unnamed = [i for i, h in enumerate(header) if h is None]
     filled = [i for i in unnamed if any(r[i] is not None for r in rows)]
     if filled:

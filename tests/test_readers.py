@@ -412,3 +412,8 @@ def test_workbook_with_unsupported_zip_version_is_refused(tmp_path):
 def test_password_protected_workbook():
     # an encrypted .xlsx is stored as an OLE compound file (MS-OFFCRYPTO), the same container as .xls
     assert "password-protected" in refused("w.xlsx", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 100)
+
+
+def test_missing_header_row():
+    msg = refused("b.csv", b"0042,2025,11.5\n0043,2025,12\n")
+    assert "row 1" in msg and "not column names" in msg
