@@ -253,7 +253,8 @@ class Store:
             return _Outcome(plan, "refused", errors=errors, message=msg)
         bad = set(bad_rows)
         flags = [f for f in report.flags if f.row not in bad]
-        flags += checks.differs_from_record(p, valid, record, [f for f in self.fields if f in valid.columns])
+        compared = [f for f in self.fields if f in valid.columns and f not in OPTIONAL_TEXT]  # not visit notes
+        flags += checks.differs_from_record(p, valid, record, compared)
         flags += checks.new_outliers(p, valid, record)
         if any(c in valid.columns and valid[c].notna().any() for c in p.parent_cols):
             known = {r[0] for r in conn.execute("SELECT DISTINCT individual FROM records")}

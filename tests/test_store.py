@@ -177,6 +177,14 @@ def test_differs_from_record_latest_value_wins_and_exclusion_restores_nothing(st
     assert study.store.effective_frame(as_of_batch=1).set_index("tag").at["H01", "tibia"] == 1.5
 
 
+def test_visit_notes_are_kept_but_not_compared(study):
+    study.store.import_bytes("a.csv", b"tag,season,site,wing,date,observer\nH01,2024,Gull Flat,4.5,2024-05-02,ana\n")
+    res = study.store.import_bytes("b.csv", b"tag,season,survived,date,observer\nH01,2024,1,2024-08-20,bo\n")
+    assert res.outcome == "stored" and res.flags == ()
+    hist = study.store.history("H01")
+    assert {"2024-05-02", "2024-08-20", "ana", "bo"} <= set(hist.value)
+
+
 def test_duplicate_row_exclusion_leaves_out_that_row_only(study):
     study.store.import_bytes("d.csv", b"tag,season,site,wing\nH01,2024,Gull Flat,4.5\nH01,2024,Gull Flat,4.9\n"
                                       b"H02,2024,Gull Flat,4.4\n")
