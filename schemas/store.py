@@ -16,9 +16,11 @@ import math
 import sqlite3
 import threading
 from datetime import datetime, timezone
+from itertools import islice, repeat
 from pathlib import Path
 from typing import Callable
 
+import numpy as np
 import pandas as pd
 
 from schemas import effective as eff
@@ -237,7 +239,7 @@ class Store:
             return _Outcome(plan, "refused", message=plan.refusal)
         p, report = self.protocol, plan.report
         valid = report.valid
-        seasons = sorted(set(valid[p.season_col].astype(str))) if len(valid) else []
+        seasons = sorted({str(v) for v in pd.unique(valid[p.season_col].to_numpy(dtype=object))})
         record = eff.latest(conn, p, self.fields, seasons=seasons) if seasons else pd.DataFrame()
         errors = list(report.errors)
         if report.census:
@@ -298,23 +300,22 @@ class Store:
         cols = ["batch_id", "seq_batch", "row", "individual", "season", "correction_id",
                 *(self.fields[f].col for f in names)]
         n = len(valid)
-        series = [[batch_id] * n, [seq_batch] * n, valid["_row"].astype(int).tolist(),
-                  valid[p.id_col].astype(str).tolist(), valid[p.season_col].astype(str).tolist(), [correction_id] * n]
+        sheet_rows = valid["_row"].to_numpy(dtype=np.int64).tolist()
+        series = [repeat(batch_id, n), repeat(seq_batch, n), sheet_rows, _texts(valid[p.id_col]),
+                  _texts(valid[p.season_col]), repeat(correction_id, n)]
         for f in names:
             if self.fields[f].kind == "number":
-                series.append(pd.to_numeric(valid[f], errors="coerce").astype(float).tolist())
+                series.append(pd.to_numeric(valid[f], errors="coerce").to_numpy(dtype=float).tolist())
             else:
-                series.append([v if v is None or isinstance(v, str) else (checks.show(v) or None)
-                               for v in valid[f].tolist()])
-        rows = list(zip(*series))
+                series.append(_texts(valid[f]))
+        # rowids are allocated as max + 1 while this transaction holds the write lock
+        base = conn.execute("SELECT coalesce(max(id), 0) FROM records").fetchone()[0]
+        rows = zip(*series)
         sql = f"INSERT INTO records({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})"
         for start in range(0, n, _CHUNK):
-            conn.executemany(sql, rows[start:start + _CHUNK])
+            conn.executemany(sql, islice(rows, _CHUNK))
             progress(min(start + _CHUNK, n), n, "storing")
-        query = "SELECT row, id FROM records WHERE batch_id = ?" + (
-            " AND correction_id = ?" if correction_id is not None else " AND correction_id IS NULL")
-        args = (batch_id, correction_id) if correction_id is not None else (batch_id,)
-        return dict(conn.execute(query, args).fetchall())
+        return dict(zip(sheet_rows, range(base + 1, base + n + 1)))
 
     @staticmethod
     def _insert_flags(conn, batch_id: int, flags: list[FlagNote], record_ids: dict[int, int], created: str,
@@ -467,6 +468,14 @@ class Store:
         frame = self.heritability_entries()
         return {t: (float(v), None if pd.isna(s) else float(s), str(src))
                 for t, v, s, src in zip(frame["trait"], frame["value"], frame["se"], frame["source"])}
+
+
+def _texts(series: pd.Series) -> list:
+    """Text cells as str or None (a cell read from a workbook may hold a date or a number)."""
+    values = series.to_numpy(dtype=object).tolist()
+    if all(v is None or type(v) is str for v in values):
+        return values
+    return [v if v is None or isinstance(v, str) else (checks.show(v) or None) for v in values]
 
 
 def _read_file(path: Path) -> bytes:

@@ -96,7 +96,10 @@ def new_outliers(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame) 
     cells = [merged.index.get_level_values(1).to_numpy(dtype=object)]
     cells += [merged[g].astype(object).to_numpy() if g in merged.columns else np.full(len(merged), None)
               for g in protocol.groups]
-    code = pd.MultiIndex.from_arrays(cells).factorize()[0] if len(cells) > 1 else pd.factorize(cells[0])[0]
+    code = np.zeros(len(merged), dtype=np.int64)
+    for values in cells:             # one integer per cell: mixed-radix combination of the columns' codes
+        codes, uniques = pd.factorize(values, use_na_sentinel=False)
+        code = code * (len(uniques) + 1) + codes
     groups = pd.Series(np.arange(len(merged))).groupby(code).indices
     where = merged.index.get_indexer(batch_keys)
     rows = valid["_row"].to_numpy()

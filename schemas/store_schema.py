@@ -69,7 +69,7 @@ CREATE TABLE records(
     correction_id INTEGER REFERENCES resolutions(id)
 );
 CREATE INDEX records_individual ON records(individual, season);
-CREATE INDEX records_batch ON records(batch_id);
+CREATE INDEX records_joined ON records(batch_id, row) WHERE correction_id IS NOT NULL;
 
 CREATE TABLE quarantine(
     id INTEGER PRIMARY KEY,
