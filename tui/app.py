@@ -400,23 +400,22 @@ class FieldslopeApp(App):
             pass
 
     def status_content(self) -> Content:
+        """The status line: screen, batches, open flags, last refresh, mode, what is running, notes."""
         parts: list[tuple[str, str] | str] = []
-        snap = self.snapshot
         if self.error:
             return Content.assemble(("! ", "bold $error"), (self.error, "$error"))
         title = getattr(self.screen, "TITLE_TEXT", "")
         if title:
-            parts.append((f"{title} ", "bold $accent"))
+            parts.append((title, "bold $accent"))
+        snap = self.snapshot
         if snap is not None:
-            name = snap.protocol.name or (self.study_dir.name if self.study_dir else "")
-            parts += [(name[:16], "bold"), f" │ {snap.n_batches} batches │ {snap.flags_open} open flags"]
-            parts.append(f" │ refreshed {snap.refreshed_at}")
+            parts.append(f" │ {snap.n_batches} batches │ {snap.flags_open} flags │ {snap.refreshed_at}")
             if snap.sensitivity:
-                parts.append((" │ outliers out", "$warning"))
+                parts.append((" │ outliers out", "bold $warning"))
             if self.readonly:
                 parts.append((" │ read-only", "bold $warning"))
         elif self.study_ready:
-            parts.append("reading the store …")
+            parts.append(" │ reading the store …")
         if self.updating:
             parts.append((f" │ {self.updating}", "$accent"))
         if self.progress:

@@ -51,7 +51,7 @@ class Snapshot:
 
     @property
     def flags_open(self) -> int:
-        return len(self.flags)
+        return sum(1 for f in self.flags if f.get("status", "open") == "open")
 
     @property
     def fitness_names(self) -> tuple[str, ...]:

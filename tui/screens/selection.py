@@ -100,10 +100,10 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         parts = [("n ", "$text-muted"), (str(int(n)) if n is not None else "–", "bold"),
                  ("  missing fitness ", "$text-muted"), (str(missing), "bold"),
                  ("  I ", "$text-muted"), (fmt(opp["estimate"]) if opp else "–", "bold")]
-        if not snap.intervals:
-            parts.append(("  intervals and p: computing …", "$accent"))
         if snap.sensitivity:
-            parts.append(("  open outliers left out", "$warning"))
+            parts.append(("  open outliers left out", "bold $warning"))
+        if not snap.intervals:
+            parts.append(("  intervals: computing …" if self.app.bootstrap else "  intervals off", "$accent"))
         self.query_one("#sel-summary", Static).update(Content.assemble(*parts))
 
     def _tables(self, snap: Snapshot) -> None:

@@ -15,10 +15,8 @@ from textual.widgets import Button, Footer, Input, Label, Static
 
 from tui.widgets.status import StatusLine
 
-WELCOME = (
-    "No study is open. A study is a folder with a protocol.toml (what is measured),\n"
-    "an intake/ drop folder for batch files, and one record store.\n"
-)
+WELCOME = ("No study is open. A study is a folder with a protocol.toml (what is measured), "
+           "an intake/ drop folder for batch files, and one record store.")
 
 
 class StartScreen(Screen):

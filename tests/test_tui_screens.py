@@ -1,0 +1,324 @@
+"""The dashboard driven by keys (Textual Pilot), at 80x24 and at a larger size.
+
+Every number checked on screen is compared with the estimates table the
+estimators produce for the same stored data (the estimators themselves are
+checked against outside references in the analysis tests).
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import pytest
+
+from tui.app import FieldslopeApp
+from tui.widgets.pictures import fmt
+
+SIZES = [(80, 24), (120, 40)]
+
+
+def screen_text(app) -> str:
+    """What the terminal shows now, as plain text with runs of blanks and line ends made one space
+    (so a sentence wrapped over two lines still reads as one)."""
+    lines = [strip.text for strip in app.screen._compositor.render_strips()]
+    return " ".join(" ".join(lines).split())
+
+
+async def wait_for(app, pilot, cond, timeout: float = 20.0, what: str = "") -> None:
+    start = time.monotonic()
+    while time.monotonic() - start < timeout:
+        await pilot.pause(0.05)
+        if cond():
+            await app.workers.wait_for_complete()
+            await pilot.pause()
+            return
+    raise AssertionError(f"timed out waiting for {what or cond}; screen:\n{screen_text(app)}")
+
+
+def make_app(study_dir: Path, **kw) -> FieldslopeApp:
+    kw.setdefault("bootstrap", 0)
+    kw.setdefault("poll_interval", 0.05)
+    kw.setdefault("clock", lambda: "12:00:00")
+    return FieldslopeApp(study_dir, **kw)
+
+
+@pytest.fixture
+def filled(study, write_batch, hopper_rows):
+    """The study with two seasons at two sites stored."""
+    for season, seed in (("2024", 1), ("2025", 2)):
+        for k, site in enumerate(("Gull Flat", "Reed Bend")):
+            path = write_batch(hopper_rows(season, site, n=40, seed=seed * 10 + k), f"{season}-{k}.csv")
+            assert study.store.import_file(path, operator="test").outcome == "stored"
+    return study
+
+
+def ready(app) -> bool:
+    return app.snapshot is not None and not app.updating
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_start_screen_creates_a_study(tmp_path, protocol_file, size):
+    app = make_app(None)
+    async with app.run_test(size=size) as pilot:
+        await pilot.pause()
+        assert "No study is open" in screen_text(app)
+        app.screen.query_one("#start-protocol").value = str(protocol_file)
+        app.screen.query_one("#start-dir").value = str(tmp_path / "new-study")
+        await pilot.click("#start-create-btn")
+        await wait_for(app, pilot, lambda: app.study_ready and app.snapshot is not None, what="the new study")
+        assert (tmp_path / "new-study" / "protocol.toml").is_file()
+        assert app.current_mode == "selection"
+        assert "No estimates yet" in screen_text(app)
+
+
+async def test_start_screen_names_a_folder_without_study(tmp_path):
+    app = make_app(None)
+    async with app.run_test(size=(80, 24)) as pilot:
+        app.screen.query_one("#start-dir").value = str(tmp_path)
+        await pilot.click("#start-open-btn")
+        await pilot.pause()
+        assert "holds no protocol.toml" in screen_text(app)
+        assert not app.study_ready
+
+
+async def test_a_damaged_store_is_one_clear_message(tmp_path, protocol_file):
+    from schemas.study import Study
+
+    Study.create(tmp_path / "s", protocol_file).close()
+    (tmp_path / "s" / "fieldslope.sqlite").write_bytes(b"this is not a database" * 100)
+    app = make_app(tmp_path / "s")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: bool(app.error), what="an error")
+        assert "Traceback" not in screen_text(app)
+        assert "!" in screen_text(app)                 # the status line shows the one sentence
+        assert not app.study_ready
+        await pilot.press("f1")                        # still usable: the key list opens
+        await pilot.pause()
+        assert "Keys" in screen_text(app)
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_selection_table_matches_the_estimates_and_switches(filled, size):
+    app = make_app(filled.root)
+    async with app.run_test(size=size) as pilot:
+        await wait_for(app, pilot, lambda: ready(app), what="first figures")
+        screen = app.screen
+        assert app.current_mode == "selection"
+        snap = app.snapshot
+        c = screen.choices
+        assert (c.season, c.site, c.fitness) == ("2025", "all", "total")
+
+        def shown_beta(trait: str) -> str:
+            row = screen.query_one("#sel-linear").get_row(trait)
+            return str(row[3])
+
+        def table_beta(season, site, fitness, trait) -> str:
+            return fmt(snap.value(season, site, fitness, "gradient", trait)["estimate"])
+
+        assert shown_beta("wing") == table_beta("2025", "all", "total", "wing")
+        await pilot.press("s")                         # next season wraps to 2024
+        await pilot.pause()
+        assert c.season == "2024" and shown_beta("tibia") == table_beta("2024", "all", "total", "tibia")
+        await pilot.press("t")                         # pooled -> first site
+        await pilot.pause()
+        assert c.site == "Gull Flat" and shown_beta("wing") == table_beta("2024", "Gull Flat", "total", "wing")
+        await pilot.press("w")                         # total -> survived
+        await pilot.pause()
+        assert c.fitness == "survived"
+        assert shown_beta("wing") == table_beta("2024", "Gull Flat", "survived", "wing")
+        text = screen_text(app)
+        assert "Season 2024" in text and "Site Gull Flat" in text and "Fitness survived" in text
+        # n and I in the summary line come from the table too
+        opp = snap.value("2024", "Gull Flat", "survived", "opportunity", "")
+        assert f"I {fmt(opp['estimate'])}" in text and f"n {int(opp['n'])}" in text
+        await pilot.press("v")
+        await pilot.pause()
+        assert "w = 1 + β·x" in screen_text(app)
+        await pilot.press("v")
+        await pilot.pause()
+        assert "Δw from mean" in screen_text(app)
+
+
+async def test_intervals_arrive_in_a_second_pass(filled):
+    app = make_app(filled.root, bootstrap=60, seed=5)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: app.snapshot is not None and app.snapshot.intervals, what="intervals")
+        snap = app.snapshot
+        row = snap.value("2025", "all", "total", "gradient", "wing")
+        assert row["ci_low"] is not None and row["ci_low"] <= row["estimate"] <= row["ci_high"]
+        shown = app.screen.query_one("#sel-linear").get_row("wing")
+        assert str(shown[4]) == f"{fmt(row['ci_low'])}, {fmt(row['ci_high'])}"
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_live_update_after_another_connection_imports(filled, write_batch, hopper_rows, size):
+    app = make_app(filled.root)
+    async with app.run_test(size=size) as pilot:
+        await wait_for(app, pilot, lambda: ready(app), what="first figures")
+        before = app.snapshot
+        assert before.n_batches == 4 and "4 batches" in screen_text(app)
+        # another connection (as another process would) takes in a third season
+        path = write_batch(hopper_rows("2026", "Reed Bend", n=30, seed=7), "late.csv")
+        assert filled.store.import_file(path, operator="crew").outcome == "stored"
+        await wait_for(app, pilot, lambda: app.snapshot.n_batches == 5 and ready(app), what="the new batch")
+        assert app.snapshot.generation > before.generation
+        assert "5 batches" in screen_text(app)
+        assert "2026" in app.snapshot.seasons()
+        assert app.screen.choices.season == "2025"     # what the user was looking at stays
+
+
+async def test_sensitivity_toggle_recomputes_without_open_outliers(filled):
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("o")
+        await wait_for(app, pilot, lambda: app.snapshot.sensitivity and ready(app), what="sensitivity")
+        assert "outliers out" in screen_text(app)
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_intake_takes_in_a_good_file_and_quarantines_a_bad_one(filled, hopper_rows, size, tmp_path):
+    good = filled.intake_dir / "good.csv"
+    rows = hopper_rows("2026", "Gull Flat", n=12, seed=3)
+    header = list(rows[0])
+    good.write_text("\n".join([",".join(header)] + [",".join(str(r[h]) for h in header) for r in rows]) + "\n")
+    bad_rows = hopper_rows("2026", "Reed Bend", n=6, seed=4)
+    bad_rows[2]["site"] = "Nowhere Marsh"                # a site the protocol does not allow
+    bad = tmp_path / "outside" / "bad.csv"
+    bad.parent.mkdir()
+    bad.write_text("\n".join([",".join(header)] + [",".join(str(r[h]) for h in header) for r in bad_rows]) + "\n")
+    app = make_app(filled.root)
+    async with app.run_test(size=size) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("1")
+        screen = app.screen
+        await wait_for(app, pilot, lambda: any(f["state"] == "new" for f in screen.files), what="good.csv listed")
+        await pilot.press("c")
+        await wait_for(app, pilot, lambda: screen.checked is not None, what="the check")
+        assert "no errors" in screen_text(app)
+        await pilot.press("i")
+        await pilot.pause()
+        assert "Rows stored as records: 12 of 12" in screen_text(app)
+        await pilot.press("y")
+        await wait_for(app, pilot, lambda: app.snapshot.n_batches == 5 and ready(app), what="good.csv stored")
+        assert [b.outcome for b in filled.store.batches()][-1] == "stored"
+
+        # a file outside the drop folder, by path
+        await pilot.press("slash")
+        await pilot.pause()
+        screen.query_one("#intake-path").value = str(bad)
+        await pilot.press("enter")
+        await wait_for(app, pilot, lambda: screen.checked is not None and screen.current == bad, what="bad checked")
+        text = screen_text(app)
+        assert "1 with errors" in text and "Nowhere Marsh" in text
+        await pilot.press("i")                          # refused whole: nothing is asked, nothing stored
+        await pilot.pause()
+        assert app.screen is screen and len(filled.store.batches()) == 5
+        await pilot.press("a")
+        await pilot.pause()
+        text = screen_text(app)
+        assert "Rows stored as records: 5 of 6" in text and "quarantine" in text
+        await pilot.press("y")
+        await wait_for(app, pilot, lambda: app.snapshot.n_batches == 6 and ready(app), what="bad.csv partly stored")
+        last = filled.store.batches()[-1]
+        assert (last.outcome, last.n_stored, last.n_quarantined) == ("partial", 5, 1)
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_flags_resolve_with_a_reason_and_move_to_history(study, write_batch, hopper_rows, size):
+    rows = hopper_rows("2025", "Gull Flat", n=30, seed=9)
+    rows[4]["wing"] = "45.1"                             # outside 3-6 mm: flagged out of range
+    study.store.import_file(write_batch(rows, "slip.csv"), operator="test")
+    flag = next(f for f in study.store.flags() if f.kind == "out_of_range")
+    app = make_app(study.root)
+    async with app.run_test(size=size) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("2")
+        await pilot.pause()
+        screen = app.screen
+        assert screen.rows and screen.rows[0]["id"] == flag.id
+        text = screen_text(app)
+        assert "45.1" in text and "where the value sits" in text
+        await pilot.press("e")
+        await pilot.pause()
+        await pilot.press("ctrl+s")                      # no reason yet: refused, form stays
+        await pilot.pause()
+        assert "Reason is required" in screen_text(app)
+        app.screen.query_one("#form-reason").value = "decimal slip, animal re-measured at 4.51"
+        await pilot.press("ctrl+s")
+        await wait_for(app, pilot, lambda: not any(f["id"] == flag.id and f["status"] == "open"
+                                                   for f in app.snapshot.flags), what="the flag resolved")
+        resolved = [f for f in study.store.flags(include_resolved=True) if f.id == flag.id][0]
+        assert resolved.status == "exclude" and resolved.reason.startswith("decimal slip")
+        assert all(r["id"] != flag.id for r in screen.rows)
+        await pilot.press("h")
+        await pilot.pause()
+        assert any(r["id"] == flag.id for r in screen.rows)
+        assert "History" in screen_text(app)
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_response_uses_an_entered_heritability(filled, size):
+    app = make_app(filled.root)
+    async with app.run_test(size=size) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("4")
+        await pilot.pause()
+        assert "none: press h" in screen_text(app)
+        await pilot.press("h")                           # the cursor is on the first trait, wing
+        await pilot.pause()
+        app.screen.query_one("#form-value").value = "0.4"
+        app.screen.query_one("#form-source").value = "sister population, 2019 breeding design"
+        await pilot.press("ctrl+s")
+        await wait_for(app, pilot, lambda: bool(app.snapshot.heritability) and ready(app), what="h² stored")
+        snap = app.snapshot
+        screen = app.screen
+        row = screen.query_one("#resp-table").get_row("wing")
+        r = snap.value("2025", "all", "total", "response", "wing")
+        assert str(row[1]) == fmt(0.4) and str(row[4]) == fmt(r["estimate"])
+        assert "entered" in str(row[2])
+        screen.query_one("#resp-k").value = "5"
+        await pilot.pause()
+        mean = snap.value("2025", "all", "total", "mean", "wing")["estimate"]
+        # the projected mean: mean + k·R (Falconer & Mackay 1996, constant response per generation)
+        assert fmt(mean + 5 * r["estimate"]) in screen_text(app)
+
+
+@pytest.mark.parametrize("size", SIZES)
+async def test_seasons_show_each_season_and_the_batch_trend(filled, size):
+    app = make_app(filled.root)
+    async with app.run_test(size=size) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("5")
+        screen = app.screen
+        await wait_for(app, pilot, lambda: bool(screen.trend_rows), what="the batch trend")
+        text = screen_text(app)
+        snap = app.snapshot
+        assert "2024 Gull Flat" in text and "2025 Reed Bend" in text
+        assert fmt(snap.value("2024", "Gull Flat", "total", "gradient", "wing")["estimate"]) in text
+        mean = snap.value("all", "Gull Flat", "total", "gradient_mean", "wing")
+        assert mean is not None and fmt(mean["estimate"]) in text
+        # the trend: the latest batch's β equals the season's pooled β now
+        last = [r for r in screen.trend_rows if r["site"] == "all" and r["trait"] == "wing"][-1]
+        assert fmt(last["estimate"]) == fmt(snap.value("2025", "all", "total", "gradient", "wing")["estimate"])
+        await pilot.press("v")
+        await pilot.pause()
+        assert "after each batch" in screen_text(app) and "needs about" in screen_text(app)
+
+
+async def test_help_lists_the_keys_of_the_current_screen(filled):
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("2")
+        await pilot.press("f1")
+        await pilot.pause()
+        text = screen_text(app)
+        assert "Keys: Flags" in text and "Exclude" in text and "Correct" in text
+        await pilot.press("escape")
+        await pilot.press("3")
+        await pilot.press("question_mark")
+        await pilot.pause()
+        text = screen_text(app)
+        assert "Keys: Selection" in text and "Fitness" in text and "Keep" not in text
