@@ -87,3 +87,25 @@ def write_batch(tmp_path: Path):
         return path
 
     return write
+
+
+@pytest.fixture
+def hopper_rows():
+    """hopper_rows(season, site, n=40, seed=1, start=0) -> list of dicts for the protocol above (invented data).
+
+    Forewing length drives survival and clutch size, so every estimate is defined."""
+    import numpy as np
+
+    def rows(season: str, site: str, n: int = 40, seed: int = 1, start: int = 0) -> list[dict]:
+        rng = np.random.default_rng(seed)
+        out = []
+        for i in range(n):
+            wing = float(np.clip(rng.normal(4.5, 0.4), 3.2, 5.8))
+            tibia = float(np.clip(rng.normal(1.7, 0.15) + 0.1 * (wing - 4.5), 1.1, 2.4))
+            alive = int(rng.random() < 1 / (1 + np.exp(-(0.3 + 2.0 * (wing - 4.5)))))
+            clutch = int(rng.poisson(3 + 2 * max(tibia - 1.5, 0))) if alive else 0
+            out.append({"tag": f"{site[:2].upper()}{season[-2:]}-{start + i:04d}", "season": season, "site": site,
+                        "wing": f"{wing:.2f}", "tibia": f"{tibia:.2f}", "survived": alive, "clutch": clutch})
+        return out
+
+    return rows
