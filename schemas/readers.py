@@ -201,7 +201,7 @@ def _csv_records(label: str, text: str, sep: str) -> Iterator[tuple[int, list[st
 
 def _refuse_swallowed_rows(label: str, cells: list[str], sep: str, width: int, start: int, end: int) -> None:
     """A stray quote closed by another far below turns whole rows into one cell: refuse that."""
-    need = max(2, width - 1)
+    need = max(3, width - 1)     # a note may hold a comma or two; a swallowed row holds a row's separators
     for cell in cells:
         if "\n" in cell or "\r" in cell:
             if any(line.count(sep) >= need for line in cell.splitlines()):
