@@ -101,6 +101,8 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
         prep.notes.append(("", f"{fitness} has negative values {where}; fitness must be 0 or more, so nothing is estimated for it."))
         return prep
     prep.binary = kind == "binary" and is_binary(Wf)
+    if kind == "binary" and not prep.binary:
+        prep.notes.append(("gradient_logistic", f"{fitness} is declared 0/1 but has other values {where}, so it has no logistic gradient."))
     prep.opp = Sample(rows, cell.z[rows], Wf)
     for j, name in enumerate(traits):
         r = np.flatnonzero(has_w & ~np.isnan(cell.z[:, j]))

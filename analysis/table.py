@@ -104,19 +104,25 @@ def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, se
     if P > 0:
         permuter = SeasonPermuter(preps_by_f, traits, pooled)
         perm = permute_season(permuter, season, P, seed, lambda k: tick(k, f"permutations, season {season}"))
+    failed: dict[tuple, dict] = {}  # (site, fitness) -> {"worst": resamples, "none": [rows without interval]}
     for r in season_rows:
         key = (r["site"], r["fitness"], r["quantity"], r["term"])
         if key in boot:
             lo, hi, bad = percentile_interval(boot[key])
             r["ci_low"], r["ci_high"] = lo, hi
-            if bad and np.isnan(lo):
-                notes.append(Note(season, r["site"], r["fitness"], r["quantity"],
-                                  f"{bad} of {B} resamples could not estimate {r['quantity']} {r['term']}, too many for an interval."))
-            elif bad:
-                notes.append(Note(season, r["site"], r["fitness"], r["quantity"],
-                                  f"{bad} of {B} resamples could not estimate {r['quantity']} {r['term']} and were left out of its interval."))
+            if bad:
+                f = failed.setdefault((r["site"], r["fitness"]), {"worst": 0, "none": []})
+                f["worst"] = max(f["worst"], bad)
+                if np.isnan(lo):
+                    f["none"].append(f"{r['quantity']} {r['term']}".strip())
         if key in perm:
             r["p_value"] = perm[key]
+    for (site, fitness), f in failed.items():
+        msg = (f"Up to {f['worst']} of {B} resamples could not be estimated in season {season}, site {site} "
+               "(a trait constant, mean fitness 0 or separation in the resample) and were left out of the intervals")
+        if f["none"]:
+            msg += f"; too many for an interval of {', '.join(f['none'])}"
+        notes.append(Note(season, site, fitness, "", msg + "."))
     return notes
 
 
@@ -147,7 +153,8 @@ def estimate_table(
     fitness_names = list(fitness) if fitness is not None else list(design.fitness_names)
     check_frame(frame, design, fitness_names)
     permutations = bootstrap if permutations is None else permutations
-    with np.errstate(all="ignore"):
+    # many small matrix products: one BLAS thread is faster and leaves a core for the dashboard
+    with np.errstate(all="ignore"), threadpool_limits(limits=BLAS_THREADS, user_api="blas"):
         data = add_totals(frame, design)
         seasons = split_cells(data, design, fitness_names)
         h_rows, h_notes, used_h2 = heritabilities(data, design, h2)
@@ -173,6 +180,11 @@ def estimate_table(
                 units = [(pr.cell.site, [pr]) for pr in preps]
                 if pooled:
                     units.append((ALL, preps))
+                left_out = [pr.cell.site for pr in preps if pr.multi is None]
+                if pooled and left_out and len(left_out) < len(preps):
+                    notes.append(Note(season, ALL, f, "gradient",
+                                      f"Pooled gradients of season {season} for {f} leave out site(s) {', '.join(left_out)} "
+                                      "(see their notes)."))
                 for site, block in units:
                     res = point_block(block, design.traits, f"in season {season}, site {site}")
                     notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
@@ -185,10 +197,8 @@ def estimate_table(
                     season_rows.extend(extra)
                     rg_assumed |= assumed
             if bootstrap > 0 or permutations > 0:
-                # many small matrix products: one BLAS thread is faster and leaves a core for the dashboard
-                with threadpool_limits(limits=BLAS_THREADS, user_api="blas"):
-                    notes.extend(attach_uncertainty(season, season_rows, preps_by_f, design.traits, pooled,
-                                                    bootstrap, permutations, seed, tick))
+                notes.extend(attach_uncertainty(season, season_rows, preps_by_f, design.traits, pooled,
+                                                bootstrap, permutations, seed, tick))
             rows.extend(season_rows)
         if len(seasons) > 1:
             t_rows, t_notes = temporal_rows(rows, list(seasons))
