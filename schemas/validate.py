@@ -45,8 +45,10 @@ class _Roles:
         missing = [c for c in (self.id, self.season) if c not in columns]
         if missing:
             what = " and ".join(f"{c!r} ({'ID' if c == self.id else 'season'})" for c in missing)
-            raise SheetError(f"{label}: the header has no {what} column; every batch needs the ID and season "
-                             "columns named as in protocol.toml.")
+            near = [m for c in missing for m in _near(c, columns)]
+            hint = f" ({', '.join(map(repr, near))} may be meant: rename it)" if near else ""
+            raise SheetError(f"{label}: the header has no {what} column{hint}; every batch needs the ID and "
+                             "season columns named as in protocol.toml.")
         self.groups = [c for c in protocol.groups if c in columns]
         self.traits = [c for c in protocol.trait_names if c in columns]
         self.components = [c for c in protocol.component_names if c in columns]
@@ -82,12 +84,19 @@ class _Roles:
         return [self.id, self.season, *self.groups, *self.parents, *self.extra]
 
 
+def _near(name: str, candidates: list[str]) -> list[str]:
+    """The candidate that is ``name`` in another case, or else the closest spelling (at most one)."""
+    lower = {n.lower(): n for n in candidates}
+    if name.lower() in lower:
+        return [lower[name.lower()]]
+    return difflib.get_close_matches(name, candidates, n=1, cutoff=0.75)
+
+
 def _unknown_sentence(protocol: Protocol, label: str, unknown: list[str]) -> str:
     names = [protocol.id_col, protocol.season_col, *protocol.groups, *protocol.trait_names,
              *protocol.component_names, *protocol.parent_cols, *OPTIONAL_TEXT]
     c = unknown[0]
-    lower = {n.lower(): n for n in names}
-    near = [lower[c.lower()]] if c.lower() in lower else difflib.get_close_matches(c, names, n=1, cutoff=0.75)
+    near = _near(c, names)
     hint = f"rename it to {near[0]!r} if that is meant, or " if near else "rename it to a protocol column or "
     others = f" (also {', '.join(map(repr, unknown[1:]))})" if len(unknown) > 1 else ""
     return (f"{label}: column {c!r}{others} is not in the protocol; {hint}add it to protocol.toml "

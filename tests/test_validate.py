@@ -90,6 +90,11 @@ def test_missing_id_or_season_column_refuses_the_file():
     assert "'year' (season)" in msg and "protocol.toml" in msg
 
 
+def test_missing_id_column_suggests_the_near_name():
+    assert "'Ring' may be meant" in refusal(["R1,2025"], "Ring,year")
+    assert "'yaer' may be meant" in refusal(["R1,2025"], "ring,yaer")
+
+
 def test_unknown_column_is_named_with_a_fix():
     msg = refusal(["R1,2025,7"], "ring,year,wingspan")
     assert "'wingspan'" in msg and "add it to protocol.toml" in msg
