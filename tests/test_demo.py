@@ -176,15 +176,19 @@ async def test_dashboard_shows_the_demo_season_arriving(tmp_path):
     target = demo.create_demo_study(tmp_path / "d")
     app = FieldslopeApp(target, demo_feed=demo.demo_feed(target, 0), bootstrap=0, poll_interval=0.1)
     async with app.run_test(size=(80, 24)) as pilot:
-        for _ in range(600):
+        def pooled_mass(snap):
+            t = snap.table
+            return t[(t.quantity == "gradient") & (t.site == "all") & (t.fitness == "total") & (t.term == "mass")]
+
+        for _ in range(600):  # the screens catch up with the store within a poll or two
             await pilot.pause(0.1)
             snap = app.snapshot
-            if snap is not None and len(snap.batches) == 20 and app.note.startswith("demo season all in"):
+            if (snap is not None and len(snap.batches) == 20 and app.note.startswith("demo season all in")
+                    and len(pooled_mass(snap)) == 3):
                 break
         snap = app.snapshot
-        assert len(snap.batches) == 20, app.note
+        assert snap is not None and len(snap.batches) == 20, (app.note, app.error)
         assert app.note == "demo season all in: see Flags (2) and Selection (3)"
-        rows = snap.table[(snap.table.quantity == "gradient") & (snap.table.site == "all")
-                          & (snap.table.fitness == "total") & (snap.table.term == "mass")]
+        rows = pooled_mass(snap)
         assert list(rows.season) == ["2023", "2024", "2025"]
         assert rows.set_index("season").loc["2024", "estimate"] < 0
