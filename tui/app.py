@@ -109,7 +109,7 @@ class FieldslopeApp(App):
     text shown as the last refresh time (tests pass a fixed one).
     """
 
-    CSS_PATH = "app.tcss"
+    CSS_PATH = Path(__file__).with_name("app.tcss")  # absolute: subclasses elsewhere find it too
     TITLE = "fieldslope"
     COMMANDS = App.COMMANDS | {FieldslopeCommands}
     ENABLE_COMMAND_PALETTE = True
