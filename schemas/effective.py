@@ -29,6 +29,19 @@ def output_fields(protocol: Protocol) -> list[str]:
     return [*protocol.groups, *protocol.trait_names, *protocol.component_names, *protocol.parent_cols]
 
 
+def _objects(values) -> np.ndarray:
+    out = np.empty(len(values), dtype=object)
+    out[:] = values
+    return out
+
+
+def _numbers(values) -> np.ndarray:
+    try:
+        return np.array(values, dtype=float)     # None becomes NaN
+    except (TypeError, ValueError):              # a stray text in a number column: NaN, not a crash
+        return pd.to_numeric(pd.Series(_objects(values)), errors="coerce").to_numpy(dtype=float)
+
+
 def parse_number(text: str) -> float:
     return float(str(text).strip().replace(",", "."))
 
@@ -49,10 +62,16 @@ def latest(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Field
         args.extend(seasons)
     sql = ("SELECT individual, season, seq_batch, id"
            + "".join(f", {fields[n].col}" for n in names) + " FROM records"
-           + (" WHERE " + " AND ".join(where) if where else "") + " ORDER BY seq_batch, id")
+           + (" WHERE " + " AND ".join(where) if where else "") + " ORDER BY id")
+    # seq_batch never decreases with id (a row joining from quarantine takes the latest batch number),
+    # so rowid order is batch order and SQLite needs no sort.
     rows = conn.execute(sql, args).fetchall()
-    frame = pd.DataFrame(rows, columns=["individual", "season", "_key", "_src", *names])
-    frame["_key"] = frame["_key"].astype(float)
+    columns = list(zip(*rows)) if rows else [()] * (4 + len(names))
+    data = {"individual": _objects(columns[0]), "season": _objects(columns[1]),
+            "_key": np.array(columns[2], dtype=float), "_src": np.array(columns[3], dtype=float)}
+    for n, col in zip(names, columns[4:]):
+        data[n] = _numbers(col) if fields[n].kind == "number" else _objects(col)
+    frame = pd.DataFrame(data)
     if skip:
         frame = frame[~frame["_src"].isin(list(skip))]
     corr = _corrections(conn, fields, as_of, seasons)
@@ -63,10 +82,14 @@ def latest(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Field
         for n in names:
             frame[f"_src:{n}"] = frame["_src"].where(frame[n].notna())
     frame = frame.drop(columns=["_key", "_src"])
-    last = frame.groupby(["individual", "season"], sort=False).last()
+    keys = ["individual", "season"]
+    several = frame.duplicated(keys, keep=False).to_numpy()
+    last = frame[~several].set_index(keys)      # most individuals have one record: no group-by needed
+    if several.any():
+        last = pd.concat([last, frame[several].groupby(keys, sort=False).last()])
     last.index = last.index.set_names([protocol.id_col, protocol.season_col])
     for n in names:
-        if fields[n].kind == "number":
+        if fields[n].kind == "number" and last[n].dtype != float:
             last[n] = pd.to_numeric(last[n], errors="coerce").astype(float)
     return last
 
@@ -89,13 +112,16 @@ def _corrections(conn, fields, as_of, seasons) -> pd.DataFrame:
     return pd.DataFrame(out)
 
 
-def flag_states(conn: sqlite3.Connection, as_of: int | None = None) -> pd.DataFrame:
-    """Every flag on stored values with its current status (open, keep, exclude, set)."""
-    cond = "" if as_of is None else f" AND after_batch <= {int(as_of)}"
-    sql = ("SELECT f.id, f.kind, f.individual, f.season, f.field, f.record_id, "
-           f"(SELECT action FROM resolutions WHERE flag_id = f.id{cond} ORDER BY id DESC LIMIT 1) "
-           "FROM flags f WHERE f.quarantine_id IS NULL"
-           + ("" if as_of is None else f" AND f.batch_id <= {int(as_of)}"))
+def flag_states(conn: sqlite3.Connection, as_of: int | None = None, leaving_out: bool = False) -> pd.DataFrame:
+    """Flags on stored values with their current status (open, keep, exclude, set); with
+    ``leaving_out`` only those that may leave a value out (excluded, or open outlier / out of range)."""
+    cond = "" if as_of is None else f" WHERE after_batch <= {int(as_of)}"
+    sql = ("SELECT f.id, f.kind, f.individual, f.season, f.field, f.record_id, r.action FROM flags f "
+           f"LEFT JOIN (SELECT flag_id, max(id) AS last FROM resolutions{cond} GROUP BY flag_id) m "
+           "ON m.flag_id = f.id LEFT JOIN resolutions r ON r.id = m.last WHERE f.quarantine_id IS NULL"
+           + ("" if as_of is None else f" AND f.batch_id <= {int(as_of)}")
+           + (" AND (r.action = 'exclude' OR (r.action IS NULL AND f.kind IN ('out_of_range', 'outlier')))"
+              if leaving_out else ""))
     frame = pd.DataFrame(conn.execute(sql).fetchall(),
                          columns=["id", "kind", "individual", "season", "field", "record_id", "status"])
     frame["status"] = frame["status"].fillna("open")
@@ -105,7 +131,7 @@ def flag_states(conn: sqlite3.Connection, as_of: int | None = None) -> pd.DataFr
 def effective(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, FieldCol], *,
               without_open_outliers: bool = False, as_of: int | None = None) -> pd.DataFrame:
     """The effective frame: columns ID, season, groups, traits, fitness components, parents."""
-    states = flag_states(conn, as_of)
+    states = flag_states(conn, as_of, leaving_out=True)
     leave_out = states["status"].eq("exclude") | (states["status"].eq("open") & states["kind"].eq("out_of_range"))
     if without_open_outliers:
         leave_out |= states["status"].eq("open") & states["kind"].eq("outlier")
