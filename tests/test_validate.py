@@ -317,7 +317,7 @@ _CELLS = st.one_of(
 _OPTIONAL = ["field", "elytra", "horn", "survived", "clutch", "gain", "dam", "notes"]
 
 
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=100, deadline=None)
 @given(
     st.lists(st.sampled_from(_OPTIONAL), unique=True, max_size=6),
     st.integers(min_value=0, max_value=12),
