@@ -44,6 +44,13 @@ def sm_estimates(cells: list[pd.DataFrame], fitness: str) -> dict[str, np.ndarra
     quad_X = np.column_stack([x, 0.5 * x[:, 0] ** 2, x[:, 0] * x[:, 1], 0.5 * x[:, 1] ** 2])
     quad = sm.OLS(w, sm.add_constant(quad_X)).fit()
     out = {"gradient": lin.params[1:], "quadratic": quad.params[3:], "opportunity": np.var(w)}
+    # gradient_raw = beta / sd, sd pooled within cells (ddof 1)
+    dof = sum(len(d) - 1 for d in cells)
+    sd = np.sqrt(sum((len(d) - 1) * d[list(TRAITS)].var(ddof=1).to_numpy() for d in cells) / dof)
+    out["gradient_raw"] = lin.params[1:] / sd
+    out["differential_std"] = (w[:, None] * x).mean(axis=0) - x.mean(axis=0)
+    g = quad.params[3:]
+    out["canonical"] = np.linalg.eigvalsh(np.array([[g[0], g[1]], [g[1], g[2]]]))[::-1]
     # differential: mean(w z) - mean(z) with raw z
     z = np.vstack([d[list(TRAITS)].to_numpy() for d in cells])
     out["differential"] = (w[:, None] * z).mean(axis=0) - z.mean(axis=0)
@@ -76,6 +83,10 @@ def test_vectorized_bootstrap_equals_statsmodels_loop(fitness):
             for j, t in enumerate(TRAITS):
                 assert reps[(site, fitness, "gradient", t)][b] == pytest.approx(ref["gradient"][j], rel=1e-8, abs=1e-12)
                 assert reps[(site, fitness, "differential", t)][b] == pytest.approx(ref["differential"][j], rel=1e-8, abs=1e-12)
+                assert reps[(site, fitness, "differential_std", t)][b] == pytest.approx(
+                    ref["differential_std"][j], rel=1e-8, abs=1e-12)
+                assert reps[(site, fitness, "gradient_raw", t)][b] == pytest.approx(ref["gradient_raw"][j], rel=1e-8, abs=1e-12)
+                assert reps[(site, fitness, "canonical", f"m{j + 1}")][b] == pytest.approx(ref["canonical"][j], rel=1e-7, abs=1e-10)
                 if fitness == "surv":
                     assert reps[(site, fitness, "gradient_logistic", t)][b] == pytest.approx(
                         ref["gradient_logistic"][j], rel=1e-7)
