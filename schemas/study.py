@@ -80,8 +80,13 @@ class Study:
         if root.exists() and not root.is_dir():
             raise StudyError(f"{root}: is a file, not a folder; choose a folder for the study.")
         try:
+            fresh = not root.exists()
             root.mkdir(parents=True, exist_ok=True)
             (root / INTAKE_DIR).mkdir(exist_ok=True)
+            # several accounts on one station laptop: the group may write the store and drop batches;
+            # setgid keeps new files (the -wal and -shm files too) in the folder's group
+            for folder in ([root] if fresh else []) + [root / INTAKE_DIR]:
+                os.chmod(folder, 0o2770)
             tmp = root / (PROTOCOL_FILE + ".tmp")
             shutil.copyfile(protocol_file, tmp)
             os.replace(tmp, root / PROTOCOL_FILE)

@@ -216,6 +216,32 @@ def test_quarantine_then_fix_joins_the_record(study):
         study.store.resolve_flag(q.id, "set", "4.7", reason="again")
 
 
+def test_row_with_two_errors_joins_only_when_both_are_fixed(study):
+    study.store.import_bytes("a.csv", b"tag,season,site,wing,clutch\nH01,2024,Gull Flat,4.5,2\n"
+                                      b"H02,2024,Far Away,4.4,-1\n", accept_valid=True)
+    q = {f.field: f for f in study.store.flags() if f.kind == "quarantined"}
+    assert set(q) == {"site", "clutch"}
+    first = study.store.resolve_flag(q["site"].id, "set", "Reed Bend", reason="site code on the card")
+    assert not first.joined and len(first.remaining) == 1 and "clutch" in first.remaining[0]
+    assert "H02" not in set(study.store.effective_frame()["tag"])
+    second = study.store.resolve_flag(q["clutch"].id, "set", "1", reason="nest card")
+    assert second.joined
+    row = study.store.effective_frame().set_index("tag").loc["H02"]
+    assert (row["site"], row["wing"], row["clutch"]) == ("Reed Bend", 4.4, 1.0)
+
+
+def test_census_row_with_a_wrong_id_is_fixed_by_setting_the_id(study):
+    study.store.import_bytes("m.csv", b"tag,season,site,wing\nH01,2024,Gull Flat,4.5\nH02,2024,Gull Flat,4.6\n")
+    res = study.store.import_bytes("c.csv", b"tag,season,survived\nH01,2024,1\nH2,2024,0\n", accept_valid=True)
+    assert res.outcome == "partial" and res.n_stored == 1
+    q = next(f for f in study.store.flags() if f.kind == "quarantined")
+    assert (q.field, q.value) == ("tag", "H2")
+    with pytest.raises(RecordError, match="not on record"):
+        study.store.resolve_flag(q.id, "set", "H3", reason="guess")
+    assert study.store.resolve_flag(q.id, "set", "H02", reason="leading zero lost on the sheet").joined
+    assert study.store.effective_frame().set_index("tag").at["H02", "survived"] == 0.0
+
+
 def test_set_checks_the_value_against_the_protocol(study):
     study.store.import_bytes("b1.csv", GOOD)
     study.store.import_bytes("c.csv", b"tag,season,survived,clutch\nH01,2024,1,\nH02,2024,0,0\n")

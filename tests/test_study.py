@@ -20,6 +20,16 @@ def test_create_makes_the_folder(tmp_path, protocol_file, protocol_text):
         s.close()
 
 
+def test_new_study_folder_is_group_writable(tmp_path, protocol_file):
+    s = Study.create(tmp_path / "shared", protocol_file)
+    try:
+        assert (tmp_path / "shared").stat().st_mode & 0o7777 == 0o2770
+        assert s.intake_dir.stat().st_mode & 0o7777 == 0o2770
+        assert s.db_path.stat().st_mode & 0o777 == 0o660
+    finally:
+        s.close()
+
+
 def test_create_refuses_an_existing_study(study, protocol_file):
     with pytest.raises(FieldslopeError, match="already holds a study"):
         Study.create(study.root, protocol_file)
