@@ -195,3 +195,14 @@ async def test_dashboard_shows_the_demo_season_arriving(tmp_path):
         rows = pooled_mass(snap)
         assert list(rows.season) == ["2023", "2024", "2025"]
         assert rows.set_index("season").loc["2024", "estimate"] < 0
+
+
+def test_without_a_folder_the_demo_study_goes_under_the_user_data_folder(tmp_path, monkeypatch, capsys):
+    import platformdirs
+
+    monkeypatch.setattr(platformdirs, "user_data_dir", lambda app: str(tmp_path / app))
+    assert run_demo(None, True, delay=0, bootstrap=0) == 0
+    made = list((tmp_path / "fieldslope").glob("demo-*"))
+    assert len(made) == 1 and (made[0] / demo.MARKER).is_file()
+    assert (made[0] / "protocol.toml").is_file()
+    assert "[16/16]" in capsys.readouterr().out

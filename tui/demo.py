@@ -330,4 +330,7 @@ def run_demo(study_dir: Path | None, headless: bool, *, delay: float | None = No
     except FieldslopeError as exc:
         print(f"fieldslope demo: {exc}", file=sys.stderr)
         return 1
+    except KeyboardInterrupt:
+        print("fieldslope demo: stopped; the batches taken in so far stay in the demo study.", file=sys.stderr)
+        return 130
     return 0
