@@ -56,13 +56,21 @@ def natural_key(text: str) -> list:
     return [int(part) if part.isdigit() else part for part in re.split(r"(\d+)", text)]
 
 
+MISSING_LABEL = "(blank)"
+
+
+def as_text(col: pd.Series) -> pd.Series:
+    """Labels as plain text; a missing season or group value becomes "(blank)"."""
+    return col.astype(object).where(col.notna(), MISSING_LABEL).astype(str)
+
+
 def split_cells(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -> dict[str, list[Cell]]:
     """Cells per season (seasons and sites in natural order)."""
-    seasons = frame[design.season].astype(str)
+    seasons = as_text(frame[design.season])
     if design.groups:
-        site = frame[design.groups[0]].astype(str)
+        site = as_text(frame[design.groups[0]])
         for col in design.groups[1:]:
-            site = site + "/" + frame[col].astype(str)
+            site = site + "/" + as_text(frame[col])
     else:
         site = pd.Series("all", index=frame.index)
     z_all = frame[list(design.traits)].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)

@@ -182,3 +182,12 @@ def test_bootstrap_intervals_cover_the_true_gradient():
         r = t[t.quantity == "gradient"].iloc[0]
         hits += r.ci_low <= beta <= r.ci_high
     assert 0.90 <= hits / 200 <= 0.99
+
+
+def test_labels_missing_group_and_numeric_season():
+    f = frame_for()
+    f.loc[:9, "site"] = None
+    f["season"] = 2032
+    t = run_quiet(f, DESIGN, bootstrap=0).table
+    assert set(t.site) == {"(blank)", "reef", "flat", "all"} and set(t.season) == {"2032"}
+    assert run_quiet(f.iloc[:0], DESIGN, bootstrap=20).table.empty
