@@ -75,8 +75,8 @@ def csv_bytes(rows: list[list[str]]) -> bytes:
 
 def xlsx_bytes(rows: list[list[str]]) -> bytes:
     import openpyxl
-    wb = openpyxl.Workbook(write_only=True)
-    ws = wb.create_sheet()
+    wb = openpyxl.Workbook()   # not write_only: like a spreadsheet program, it stores the sheet's dimension
+    ws = wb.active
     ws.append(COLUMNS)
     for r in rows:
         ws.append([r[0], int(r[1]), r[2], *(float(v) if v not in ("5..2",) else v for v in r[3:6]),
