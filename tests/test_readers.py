@@ -411,7 +411,7 @@ def test_workbook_with_unsupported_zip_version_is_refused(tmp_path):
 
 
 def test_password_protected_workbook():
-    # an encrypted .xlsx is stored as an OLE compound file (MS-OFFCRYPTO), the same container as .xls
+    # an encrypted .xlsx is stored as an OLE compound file (MS-OFFCRYPTO; from memory), the same container as .xls
     assert "password-protected" in refused("w.xlsx", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 100)
 
 

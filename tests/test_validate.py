@@ -263,7 +263,7 @@ def test_duplicate_id_in_one_season_flags_each_row():
     ("Mar-01", "date"),
     ("3/1/2025", "date"),
     ("2.31E+13", "scientific"),
-    ("45822", "serial"),             # day 45822 = 2025-06-14 in the 1900 date system (ECMA-376 Part 1, 18.17.4)
+    ("45822", "serial"),             # day 45822 = 2025-06-14 in the 1900 date system (ECMA-376 Part 1, dates and times; from memory)
     ("R0\u200b05", "ZERO WIDTH SPACE"),
     ("R0\u00a005", "NO-BREAK SPACE"),
 ])
