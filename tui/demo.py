@@ -166,10 +166,10 @@ def take_in(store, path: Path, operator: str = OPERATOR) -> BatchOutcome:
 
 def feed_batches(study_dir: Path, *, delay: float = 0.0, say: Callable[[str], None] | None = None,
                  stop: threading.Event | None = None, files: DemoFiles | None = None,
-                 brief: bool = False) -> list[BatchOutcome]:
+                 terse: bool = False) -> list[BatchOutcome]:
     """Take in every demo batch through this thread's own store connection, ``delay`` seconds apart.
 
-    ``say`` gets one line per batch (a short phrase when ``brief``); setting ``stop`` ends the
+    ``say`` gets one line per batch (a short phrase when ``terse``); setting ``stop`` ends the
     feed before the next batch.
     """
     from schemas.study import Study
@@ -188,7 +188,7 @@ def feed_batches(study_dir: Path, *, delay: float = 0.0, say: Callable[[str], No
             outcome = take_in(study.store, path)
             outcomes.append(outcome)
             if say:
-                say(f"demo {i}/{total}: {outcome.short()}" if brief else f"[{i}/{total}] {outcome.line()}")
+                say(f"demo {i}/{total}: {outcome.short()}" if terse else f"[{i}/{total}] {outcome.line()}")
     finally:
         _close(study)
     return outcomes
@@ -199,7 +199,7 @@ def demo_feed(study_dir: Path, delay: float | None = None) -> Callable[[threadin
     pause = demo_delay(delay)
 
     def feed(stop: threading.Event, say: Callable[[str], None]) -> None:
-        feed_batches(study_dir, delay=pause, say=say, stop=stop, brief=True)
+        feed_batches(study_dir, delay=pause, say=say, stop=stop, terse=True)
         if not stop.is_set():
             say("demo season all in: see Flags (2) and Selection (3)")
 
