@@ -33,7 +33,7 @@ def cell_text(value: object) -> str | None:
             return str(value)
         if value.is_integer() and abs(value) < 1e16:
             return str(int(value))
-        return repr(value)
+        return f"{value:.15g}"   # at most 15 significant digits, as a spreadsheet shows and keeps them
     if isinstance(value, dt.datetime):
         if value.time() == dt.time(0, 0):
             return value.date().isoformat()

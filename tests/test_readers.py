@@ -452,3 +452,9 @@ def test_written_table_reads_back(names, data, sep, codec, newline):
     assert list(sheet.frame.columns) == names
     assert sheet.row_numbers == [n for n, _ in kept]
     assert sheet.frame.values.tolist() == [row for _, row in kept]
+
+
+def test_xlsx_float_noise_shown_as_a_spreadsheet_shows_it(tmp_path):
+    # spreadsheets keep and show at most 15 significant digits (common practice; from memory)
+    data = xlsx_bytes(tmp_path, [["tag", "season", "femur"], ["1", 2025, 0.1 + 0.2], ["2", 2025, -0.125]])
+    assert column(read_sheet("w.xlsx", data), "femur") == ["0.3", "-0.125"]
