@@ -213,3 +213,10 @@ def test_demo_and_dashboard_are_wired(folder, protocol_file, capsys, monkeypatch
     call(capsys, "init", str(folder / "st"), "--protocol", str(protocol_file))
     assert call(capsys, "--study", str(folder / "st"))[0] == 0
     assert seen["app"] == folder / "st"
+
+
+def test_a_missing_file_does_not_stop_the_others(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    call(capsys, "init", study, "--protocol", str(protocol_file))
+    code, out, err = call(capsys, "import", str(folder / "nope.csv"), str(folder / "measured.csv"), "--study", study)
+    assert code == 1 and "no such file" in one_line(err) and "12 of 12 rows stored" in out

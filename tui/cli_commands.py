@@ -8,7 +8,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from schemas.errors import FieldslopeError
+from schemas.errors import FieldslopeError, SheetError
 from schemas.study import Study, is_study, resolve_study_dir
 from tui import cli_format as fmt
 
@@ -45,33 +45,43 @@ def _report(result) -> None:
         print(fmt.flag_summary(result.flags), file=out)
 
 
-def check(args) -> int:
+def _each_file(names, work):
+    """Run ``work(name)`` for each file; a file that cannot be read is one line on stderr, not the end."""
     status = 0
+    for name in names:
+        try:
+            result = work(name)
+        except SheetError as exc:
+            print(f"fieldslope: {exc}", file=sys.stderr)
+            status = 1
+            continue
+        _report(result)
+        status = max(status, 0 if result.ok else 1)
+    return status
+
+
+def check(args) -> int:
     with _open(args) as study:
-        for name in args.files:
+        def one(name):
             result = study.store.check_file(name, accept_valid=args.accept_valid)
             if result.outcome in ("stored", "partial"):
                 verb = "would store" if result.outcome == "stored" else "would store (quarantining the rest)"
                 result = replace(result, message=f"{result.file_name}: {verb} {result.n_stored} of "
                                                  f"{result.n_rows} rows.")
-            _report(result)
-            status = max(status, 0 if result.ok else 1)
-    return status
+            return result
+        return _each_file(args.files, one)
 
 
 def import_(args) -> int:
-    status = 0
     with _open(args) as study:
-        for name in args.files:
+        def one(name):
             progress = fmt.Progress(f"importing {Path(name).name}")
             try:
-                result = study.store.import_file(name, operator=args.operator, accept_valid=args.accept_valid,
-                                                 progress=progress)
+                return study.store.import_file(name, operator=args.operator, accept_valid=args.accept_valid,
+                                               progress=progress)
             finally:
                 progress.done()
-            _report(result)
-            status = max(status, 0 if result.ok else 1)
-    return status
+        return _each_file(args.files, one)
 
 
 def flags(args) -> int:
