@@ -84,12 +84,15 @@ class FeatureMatrix:
             cols = single_columns(zt, wt)
         else:
             cols = opp_columns(wt)
+        return Part(self.add_columns(sample.rows, cols), m0, s0, w0, sample.rows)
+
+    def add_columns(self, rows: np.ndarray, cols: np.ndarray) -> slice:
+        """Columns given for ``rows`` (zero elsewhere); returns where they sit."""
         full = np.zeros((self.n_rows, cols.shape[1]))
-        full[sample.rows] = cols
+        full[rows] = cols
         self.blocks.append(full)
-        part = Part(slice(self.width, self.width + cols.shape[1]), m0, s0, w0, sample.rows)
         self.width += cols.shape[1]
-        return part
+        return slice(self.width - cols.shape[1], self.width)
 
     def matrix(self) -> np.ndarray:
         if not self.blocks:

@@ -69,18 +69,37 @@ class SeasonResampler:
                         parts[(f, "single", j)] = fm.add(s, "single")
                 if pr.multi is not None:
                     parts[(f, "multi")] = fm.add(pr.multi, "multi", quadratic=True)
-            self.features.append(fm.matrix())
+            self.features.append(fm)
             self.parts.append(parts)
-        # logistic starting values (standardized scale) per block that needs them
+        # logistic starting values (standardized scale) per block, and the features of a first
+        # Newton step taken at those values, so the step comes out of the moment product
         self.logit_start: dict[tuple[str, str], np.ndarray] = {}
-        for site, f in logistic_blocks:
+        self.logit_theta: dict[tuple[str, str, int], np.ndarray] = {}
+        for site, f in sorted(logistic_blocks):
             block = self.block_cells(f, site)
             samples = [self.preps[f][c].multi for c in block]
             _, x, _, W = stack(samples)
             try:
-                self.logit_start[(site, f)] = fit_logistic(with_intercept(x), W).coef
+                beta = fit_logistic(with_intercept(x), W).coef
             except Separation:
                 continue
+            self.logit_start[(site, f)] = beta
+            for c in block:
+                self.add_first_step(site, f, c, beta)
+        self.features = [fm.matrix() for fm in self.features]
+
+    def add_first_step(self, site: str, f: str, c: int, beta: np.ndarray) -> None:
+        """Columns p(1-p) x~_a x~_b and (y - p) x~ at the block's estimate, on the cell's complete cases."""
+        part = self.parts[c][(f, "multi")]
+        s = self.preps[f][c].multi
+        Xt = with_intercept((s.z - part.m0) / part.s0)
+        m, sd = Xt[:, 1:].mean(axis=0), Xt[:, 1:].std(axis=0, ddof=1)
+        theta = np.concatenate([[beta[0] - np.sum(beta[1:] * m / sd)], beta[1:] / sd])  # same eta on X~
+        p_hat = 1 / (1 + np.exp(-(Xt @ theta)))
+        a, b = np.triu_indices(Xt.shape[1])
+        cols = np.column_stack([(p_hat * (1 - p_hat))[:, None] * Xt[:, a] * Xt[:, b], (s.W - p_hat)[:, None] * Xt])
+        self.parts[c][(f, "logit", site)] = self.features[c].add_columns(s.rows, cols)
+        self.logit_theta[(site, f, c)] = theta
 
     def block_cells(self, f: str, site: str) -> list[int]:
         if site == ALL:
@@ -104,7 +123,7 @@ class SeasonResampler:
             for site, cs in blocks:
                 self.boot_multi(f, site, [mm[c] for c in cs], out)
                 if (site, f) in self.logit_start:
-                    self.boot_logistic(f, site, cs, counts, mm, out)
+                    self.boot_logistic(f, site, cs, counts, mm, moments, out)
         return out
 
     def boot_opp(self, f, moments, out):
@@ -160,18 +179,35 @@ class SeasonResampler:
         for i in range(self.p):
             out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
 
-    def boot_logistic(self, f, site, cs, counts, mm, out):
+    def boot_logistic(self, f, site, cs, counts, mm, moments, out):
         k = 1 + self.p
+        a, b = np.triu_indices(k)
+        beta0 = self.logit_start[(site, f)]
+        B = counts[0].shape[0]
         cells = []
+        H = np.zeros((B, k, k))
+        g = np.zeros((B, k))
         for c in cs:
             part = self.parts[c][(f, "multi")]
             pr = self.preps[f][c]
             zt = (pr.multi.z - part.m0) / part.s0
-            cells.append((with_intercept(zt), pr.multi.W, counts[c][:, part.rows], mm[c].T[:, :k, :k]))
-        B = counts[0].shape[0]
-        start = np.tile(self.logit_start[(site, f)], (B, 1))
-        beta, mean_pq, mean_w, ok = batched_logistic(cells, start)
-        ok &= np.logical_and.reduce([mm[c].ok for c in cs])
+            T = mm[c].T[:, :k, :k]
+            cells.append((with_intercept(zt), pr.multi.W, counts[c][:, part.rows], T))
+            # first Newton step from beta0: the moments hold it at the full-sample predictor;
+            # a first-order correction moves it to beta0 under the resample's standardization
+            M = moments[c][:, self.parts[c][(f, "logit", site)]]
+            Hz = np.empty((B, k, k))
+            Hz[:, a, b] = M[:, : len(a)]
+            Hz[:, b, a] = M[:, : len(a)]
+            delta = np.einsum("bak,a->bk", T, beta0) - self.logit_theta[(site, f, c)]
+            gz = M[:, len(a) :] - np.einsum("bij,bj->bi", Hz, delta)
+            H += T @ Hz @ np.swapaxes(T, 1, 2)
+            g += np.einsum("bij,bj->bi", T, gz)
+        ok = np.logical_and.reduce([mm[c].ok for c in cs])
+        start = beta0 + batched_solve(H, g, ok)
+        start[~np.isfinite(start)] = 0.0
+        beta, mean_pq, mean_w, ok2 = batched_logistic(cells, start)
+        ok &= ok2
         grad = beta[:, 1:] * (mean_pq / mean_w)[:, None]
         grad[~ok] = np.nan
         for j, name in enumerate(self.traits):
