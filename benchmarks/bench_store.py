@@ -44,18 +44,42 @@ site = ["North", "South"]
 """
 
 
-def batch(n: int, seed: int, season: str = "2025", start: int = 0) -> bytes:
-    """n rows x 10 columns: tag, season, site, t1..t4, alive, young, dam."""
+def columns(n: int, seed: int):
     rng = np.random.default_rng(seed)
     t = rng.normal(50, 5, size=(n, 4)).round(3)
     alive = (rng.random(n) < 0.6).astype(int)
     young = rng.poisson(2, n) * alive
+    return t, alive, young
+
+
+def batch(n: int, seed: int, season: str = "2025", start: int = 0) -> bytes:
+    """n rows x 10 columns: tag, season, site, t1..t4, alive, young, dam."""
+    t, alive, young = columns(n, seed)
     lines = ["tag,season,site,t1,t2,t3,t4,alive,young,dam"]
     for i in range(n):
         site = "North" if i % 2 else "South"
         lines.append(f"K{start + i:07d},{season},{site},{t[i, 0]},{t[i, 1]},{t[i, 2]},{t[i, 3]},"
                      f"{alive[i]},{young[i]},")
     return ("\n".join(lines) + "\n").encode()
+
+
+def census(n: int, seed: int) -> bytes:
+    """A fitness census over batch(n, seed): the same counts, 1 % of them recounted differently."""
+    _, alive, young = columns(n, seed)
+    young = young + (np.arange(n) % 100 == 0)
+    lines = ["tag,season,alive,young"] + [f"K{i:07d},2025,{alive[i]},{young[i]}" for i in range(n)]
+    return ("\n".join(lines) + "\n").encode()
+
+
+class Clock:
+    """Wall time and this process's CPU time (the machine may be shared: CPU time is the steadier figure)."""
+
+    def __enter__(self):
+        self.wall, self.cpu = time.perf_counter(), time.process_time()
+        return self
+
+    def __exit__(self, *exc):
+        self.wall, self.cpu = time.perf_counter() - self.wall, time.process_time() - self.cpu
 
 
 def main() -> None:
@@ -69,37 +93,35 @@ def main() -> None:
         store = study.store
 
         data = batch(args.rows, 1)
-        t0 = time.perf_counter()
-        res = store.import_bytes("big.csv", data)
-        dt = time.perf_counter() - t0
-        print(f"import {res.n_stored:,} rows x 10 columns ({len(data) / 2**20:.1f} MB, {res.outcome}, "
-              f"{len(res.flags)} flags): {dt:.2f} s = {res.n_stored / dt:,.0f} rows/s (target >= 50,000)")
+        with Clock() as c:
+            res = store.import_bytes("big.csv", data)
+        print(f"import with validation, {res.n_stored:,} rows x 10 columns ({len(data) / 2**20:.1f} MB, "
+              f"{res.outcome}, {len(res.flags)} flags): {c.wall:.2f} s wall = {res.n_stored / c.wall:,.0f} rows/s; "
+              f"{c.cpu:.2f} s CPU = {res.n_stored / c.cpu:,.0f} rows/s (target >= 50,000)")
 
-        rng = np.random.default_rng(2)
-        census = ["tag,season,alive,young"] + [f"K{i:07d},2025,1,{k}" for i, k in
-                                                enumerate(rng.poisson(2, args.rows))]
-        t0 = time.perf_counter()
-        res = store.import_bytes("census.csv", ("\n".join(census) + "\n").encode())
-        dt = time.perf_counter() - t0
-        print(f"fitness census of {args.rows:,} rows over {args.rows:,} on record (census, differs and "
-              f"outlier checks against the record): {dt:.2f} s = {res.n_stored / dt:,.0f} rows/s, "
-              f"{len(res.flags):,} flags")
+        with Clock() as c:
+            res = store.import_bytes("census.csv", census(args.rows, 1))
+        print(f"fitness census of {args.rows:,} rows over the record (census, differs, outlier checks): "
+              f"{c.wall:.2f} s wall = {res.n_stored / c.wall:,.0f} rows/s; {c.cpu:.2f} s CPU = "
+              f"{res.n_stored / c.cpu:,.0f} rows/s; {len(res.flags):,} flags")
 
         # effective data for 10,000 individuals: a fresh study, measurements plus a census batch
         study2 = Study.create(Path(tmp) / "s2", proto)
         study2.store.import_bytes("m.csv", batch(10_000, 3))
-        census = ["tag,season,young"] + [f"K{i:07d},2025,{i % 4}" for i in range(0, 10_000, 2)]
-        study2.store.import_bytes("c.csv", ("\n".join(census) + "\n").encode())
+        late = ["tag,season,young"] + [f"K{i:07d},2025,{i % 4}" for i in range(0, 10_000, 2)]
+        study2.store.import_bytes("c.csv", ("\n".join(late) + "\n").encode())
         flags = study2.store.flags()
         for f in flags[:200]:
             study2.store.resolve_flag(f.id, "exclude" if f.id % 2 else "keep", reason="bench")
-        times = []
+        walls, cpus = [], []
         for _ in range(15):
-            t0 = time.perf_counter()
-            frame = study2.store.effective_frame()
-            times.append(time.perf_counter() - t0)
+            with Clock() as c:
+                frame = study2.store.effective_frame()
+            walls.append(c.wall)
+            cpus.append(c.cpu)
         print(f"effective data, {len(frame):,} individuals from 15,000 records: median "
-              f"{1000 * float(np.median(times)):.1f} ms, max {1000 * max(times):.1f} ms (target <= 100 ms)")
+              f"{1000 * float(np.median(walls)):.1f} ms wall, {1000 * float(np.median(cpus)):.1f} ms CPU "
+              f"(target <= 100 ms)")
 
         t0 = time.perf_counter()
         n = 20_000
