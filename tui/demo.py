@@ -140,18 +140,20 @@ class BatchOutcome:
 
 
     def short(self) -> str:
-        """One status-bar phrase: what became of the file."""
+        """One status-bar phrase: the file's date and what became of it."""
         final = self.final
         if self.retake is not None:
-            what = f"{final.n_stored} stored, {final.n_quarantined} bad row(s) quarantined"
+            what = f"{final.n_stored} stored, {final.n_quarantined} quarantined"
         elif final.outcome == "refused":
-            what = "refused whole (see the Intake screen)"
+            what = "refused whole"
         elif final.outcome == "duplicate":
             what = "already taken in"
         else:
             what = f"{final.n_stored} stored"
         n_flags = len(final.flags)
-        return f"{self.file_name[:2]} {what}" + (f", {n_flags} flag(s)" if n_flags else "")
+        parts = self.file_name.split("_")
+        when = parts[1] if len(parts) > 1 else self.file_name
+        return f"{when} {what}" + (f", {n_flags} flagged" if n_flags else "")
 
 
 def take_in(store, path: Path, operator: str = OPERATOR) -> BatchOutcome:
