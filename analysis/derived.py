@@ -37,9 +37,10 @@ def heritabilities(data: pd.DataFrame, design: Design, entered: dict | None):
         if trait in entered:
             value, se, source = entered[trait]
             used[trait] = (float(value), None if se is None else float(se))
+            exact = "" if se is not None else "; with no standard error entered, response standard errors treat it as exact"
             notes.append((ALL, ALL, "", "response",
                           f"Responses of {trait} use the entered heritability {value:g} ({source}), "
-                          f"as it cannot be estimated here: {why}."))
+                          f"as it cannot be estimated here: {why}{exact}."))
         else:
             notes.append((ALL, ALL, "", "response",
                           f"No heritability for {trait} ({why}); enter one to get its response to selection."))

@@ -1,7 +1,20 @@
 """The tidy estimates table: every number the tool reports, one row each, plus notes.
 
 ``estimate_table`` is the one entry point the command line and the dashboard
-call. Columns are exactly ``COLUMNS``; quantities follow the binding
+call. Choices within the binding conventions, stated here once:
+
+- per-trait quantities (mean, sd, differentials) use the individuals with that
+  trait and the fitness value; models with several traits use complete cases;
+- the se of a differential is the OLS se of the slope of w on that trait alone
+  times the trait's variance (divisor n), since S = that slope x variance;
+- pooled ``mean`` and ``sd`` are over all rows of the season; the pooled
+  ``gradient_raw`` divides by the sd pooled within cells;
+- the se of a logistic gradient is the logistic coefficient's se times the
+  same factor mean(p(1-p))/mean(W);
+- ``response`` se by the delta method (h^2 and S independent); no intervals;
+- percentile intervals leave out resamples that cannot be estimated and are
+  withheld when more than 5 % cannot (a note says so);
+- permutation p-values are two-sided, (1 + #{|T*| >= |T|}) / (1 + P). Columns are exactly ``COLUMNS``; quantities follow the binding
 estimation conventions (relative fitness within cells, traits standardized
 with sd of divisor n - 1, classical OLS standard errors, percentile bootstrap
 intervals and permutation p-values with a fixed default seed).
@@ -62,7 +75,7 @@ class Estimates:
         for rec in self.table.to_dict(orient="records"):
             clean = {}
             for k, v in rec.items():
-                if isinstance(v, float) and math.isnan(v):
+                if v is pd.NA or (isinstance(v, float) and math.isnan(v)):
                     v = None
                 elif isinstance(v, (np.integer,)):
                     v = int(v)
