@@ -16,6 +16,7 @@ import pandas as pd
 
 from analysis.design import Design
 from analysis.fitness import is_binary
+from analysis.standardize import constant_columns
 
 MIN_SINGLE = 3  # individuals for a per-trait differential with a standard error
 
@@ -118,7 +119,7 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
             prep.notes.append(("differential", f"Only {len(r)} individuals {where} have {name} and {fitness}; at least {MIN_SINGLE} are needed for its differential."))
             continue
         zj = cell.z[r, j]
-        if np.ptp(zj) <= 1e-12 * max(1.0, np.abs(zj).max()):
+        if constant_columns(zj[:, None]):
             prep.notes.append(("differential", f"{name} is constant {where}, so it cannot be standardized and has no differential for {fitness}."))
             continue
         if W[r].mean() <= 0:
@@ -131,7 +132,7 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
         prep.notes.append(("gradient", f"Only {len(r)} individuals {where} have {fitness} and every trait; gradients need at least {p + 2}."))
         return prep
     zc = cell.z[r]
-    const = [traits[j] for j in range(p) if np.ptp(zc[:, j]) <= 1e-12 * max(1.0, np.abs(zc[:, j]).max())]
+    const = [traits[j] for j in constant_columns(zc)]
     if const:
         prep.notes.append(("gradient", f"{', '.join(const)} is constant among complete cases {where}, so no gradients are estimated for {fitness}."))
         return prep

@@ -12,9 +12,11 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analysis.cells import Prepared, Sample
+from analysis.fitness import relative
 from analysis.linear import Collinear, ols
 from analysis.logistic import Separation, fit_logistic, logistic_gradient
 from analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
+from analysis.standardize import standardize
 
 
 @dataclass(frozen=True)
@@ -39,8 +41,8 @@ class BlockResult:
 def stack(samples: list[Sample]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Raw traits, standardized traits, relative fitness, absolute fitness of the block's rows."""
     z = np.vstack([s.z for s in samples])
-    x = np.vstack([(s.z - s.z.mean(axis=0)) / s.z.std(axis=0, ddof=1) for s in samples])
-    w = np.concatenate([s.W / s.W.mean() for s in samples])
+    x = np.vstack([standardize(s.z)[0] for s in samples])
+    w = np.concatenate([relative(s.W) for s in samples])
     W = np.concatenate([s.W for s in samples])
     return z, x, w, W
 

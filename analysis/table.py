@@ -14,10 +14,12 @@ call. Choices within the binding conventions, stated here once:
 - ``response`` se by the delta method (h^2 and S independent); no intervals;
 - percentile intervals leave out resamples that cannot be estimated and are
   withheld when more than 5 % cannot (a note says so);
-- permutation p-values are two-sided, (1 + #{|T*| >= |T|}) / (1 + P). Columns are exactly ``COLUMNS``; quantities follow the binding
-estimation conventions (relative fitness within cells, traits standardized
-with sd of divisor n - 1, classical OLS standard errors, percentile bootstrap
-intervals and permutation p-values with a fixed default seed).
+- permutation p-values are two-sided, (1 + #{|T*| >= |T|}) / (1 + P).
+
+Columns are exactly ``COLUMNS``; quantities follow the binding estimation
+conventions (relative fitness within cells, traits standardized with sd of
+divisor n - 1, classical OLS standard errors, percentile bootstrap intervals
+and permutation p-values with a fixed default seed).
 """
 
 from __future__ import annotations
