@@ -65,7 +65,7 @@ async def test_start_screen_creates_a_study(tmp_path, protocol_file, size):
         assert "No study is open" in screen_text(app)
         app.screen.query_one("#start-protocol").value = str(protocol_file)
         app.screen.query_one("#start-dir").value = str(tmp_path / "new-study")
-        await pilot.click("#start-create-btn")
+        await pilot.press("ctrl+n")                     # keyboard only
         await wait_for(app, pilot, lambda: app.study_ready and app.snapshot is not None, what="the new study")
         assert (tmp_path / "new-study" / "protocol.toml").is_file()
         assert app.current_mode == "selection"

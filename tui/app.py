@@ -117,7 +117,8 @@ class FieldslopeApp(App):
         Binding("f1", "help", "Help", id="help", key_display="F1"),
         Binding("question_mark", "help", "Help", id="help_q", show=False, key_display="?"),
         # the footer shows one entry for the five screen keys; F1 lists each
-        Binding("1", "show('intake')", "Screens", id="go_intake", key_display="1-5"),
+        Binding("1", "show('intake')", "Screens", id="go_intake", key_display="1-5",
+                tooltip="1 Intake, 2 Flags, 3 Selection, 4 Response, 5 Seasons"),
         Binding("2", "show('flags')", "Flags screen", id="go_flags", show=False),
         Binding("3", "show('selection')", "Selection screen", id="go_selection", show=False),
         Binding("4", "show('response')", "Response screen", id="go_response", show=False),
@@ -416,10 +417,10 @@ class FieldslopeApp(App):
                 parts.append((" │ read-only", "bold $warning"))
         elif self.study_ready:
             parts.append(" │ reading the store …")
-        if self.updating:
-            parts.append((f" │ {self.updating}", "$accent"))
         if self.progress:
-            parts.append((f" {self.progress}", "$accent"))
+            parts.append((f" │ {self.progress}", "$accent"))
+        elif self.updating:
+            parts.append((f" │ {self.updating}", "$accent"))
         if self.note:
             parts.append((f" │ {self.note}", "$text-muted"))
         return Content.assemble(*parts)

@@ -40,7 +40,11 @@ class HelpScreen(ModalScreen[None]):
             if known is not None:
                 known[0] += " / " + key_name(self.app, b)
                 continue
-            index[(b.action, b.description)] = row = [key_name(self.app, b), b.description, where]
+            if b.id == "go_intake":  # the footer's "1-5 Screens" entry: list the one key it is
+                row = ["1", "Intake screen", where]
+            else:
+                row = [key_name(self.app, b), b.description, where]
+            index[(b.action, b.description)] = row
             rows.append(row)
         order = {"screen": 0, "field": 1, "app": 2}
         rows.sort(key=lambda r: order[r[2]])

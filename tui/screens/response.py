@@ -29,7 +29,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         Binding("t", "next_site", "Site", id="resp_site"),
         Binding("w", "next_fitness", "Fitness", id="resp_fitness"),
         Binding("h", "enter_h2", "Enter h²", id="resp_h2"),
-        Binding("g", "focus_generations", "Projection", id="resp_project"),
+        Binding("g", "focus_generations", "Projection", id="resp_project", show=False),
         Binding("escape", "leave_field", "Leave field", id="resp_leave", show=False),
     ]
 

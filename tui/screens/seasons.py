@@ -83,39 +83,47 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         rows, marks = [], []
         sites = sorted({s for s in snap.rows(fitness=c.fitness, quantity="gradient", term=trait)["site"]})
         per_site = [s for s in sites if s != ALL] or sites
+        se_based = False
         for season in snap.seasons():
             for site in per_site:
                 v = snap.value(season, site, c.fitness, "gradient", trait)
                 if v is None:
                     continue
-                rows.append((f"{season} {site}", v["estimate"], v["ci_low"], v["ci_high"]))
-                marks.append("" if snap.intervals else "…")
+                lo, hi = v["ci_low"], v["ci_high"]
+                if lo is None and v["se"] is not None:   # until the bootstrap is in: β ± 1.96 se
+                    lo, hi, se_based = v["estimate"] - 1.96 * v["se"], v["estimate"] + 1.96 * v["se"], True
+                rows.append((f"{season} {site}", v["estimate"], lo, hi))
+                marks.append("se" if v["ci_low"] is None else "")
         summary: list[Content] = []
-        for site in per_site:
+        for site in per_site + ([ALL] if ALL in sites and per_site != sites else []):
+            name = "pooled" if site == ALL else site
             mean = snap.value(ALL, site, c.fitness, "gradient_mean", trait)
             if mean is not None:
-                rows.append((f"mean {site}", mean["estimate"], mean["ci_low"], mean["ci_high"]))
+                lo, hi = mean["ci_low"], mean["ci_high"]
+                if lo is None and mean["se"] is not None:  # fixed-effect interval, mean ± 1.96 se
+                    lo, hi = mean["estimate"] - 1.96 * mean["se"], mean["estimate"] + 1.96 * mean["se"]
+                rows.append((f"mean {name}", mean["estimate"], lo, hi))
                 marks.append("w")
             tau2 = snap.value(ALL, site, c.fitness, "gradient_tau2", trait)
             q = snap.value(ALL, site, c.fitness, "gradient_q", trait)
             sc = snap.value(ALL, site, c.fitness, "sign_changes", trait)
             if mean or tau2 or sc:
                 summary.append(Content.assemble(
-                    (f"{site}: ", "bold"), "weighted mean β ", (_e(mean), "bold"), "  τ² ", (_e(tau2), "bold"),
+                    (f"{name}: ", "bold"), "weighted mean β ", (_e(mean), "bold"), "  τ² ", (_e(tau2), "bold"),
                     "  Q ", (_e(q), "bold"), (f" (p {fmt(q['p_value'])})" if q and q["p_value"] is not None else ""),
                     "  sign changes ", (_e(sc, digits=0), "bold")))
         forest = self.query_one("#sea-forest", Static)
         if rows:
             forest.update(Content("\n").join([
                 Content.assemble((f"β of {trait} for {c.fitness}, 95 % interval", "bold"),
-                                 ("" if snap.intervals else "  (bootstrap running: points only)", "$accent")),
+                                 ("  se: β ± 1.96 se until the bootstrap is in" if se_based else "", "$accent")),
                 interval_rows(rows, width=width, marks=marks)]))
         else:
             forest.update("No gradients yet for this trait and fitness measure.")
         if not summary:
             summary.append(Content("Across-season summaries need at least two seasons with gradients at a site."))
         summary.append(Content.assemble(("Weighted mean: weights 1/se²; τ²: DerSimonian–Laird between-season "
-                                         "variance; w marks a weighted mean.", "$text-muted")))
+                                         "variance; w: weighted mean ± 1.96 se.", "$text-muted")))
         self.query_one("#sea-summary", Static).update(Content("\n").join(summary))
 
     # -- this season, batch by batch ---------------------------------------

@@ -22,10 +22,11 @@ WELCOME = ("No study is open. A study is a folder with a protocol.toml (what is 
 class StartScreen(Screen):
     """Shown when there is no study: one form to create or open one."""
 
+    # ctrl keys, because a text field has the focus here and takes plain letters
     BINDINGS = [
-        Binding("c", "focus_create", "Create", id="start_create"),
-        Binding("d", "demo", "Demo", id="start_demo"),
-        Binding("escape", "blur", "Leave field", id="start_blur", show=False),
+        Binding("ctrl+n", "create", "Create study", id="start_create"),
+        Binding("ctrl+o", "open_folder", "Open folder", id="start_open"),
+        Binding("ctrl+t", "demo", "Open the demo", id="start_demo"),
     ]
 
     @dataclass
@@ -41,18 +42,12 @@ class StartScreen(Screen):
             yield Label("Study folder (created if missing, or an existing study to open):")
             yield Input(value=str(self.app.study_dir or ""), placeholder="path/to/study", id="start-dir", compact=True)
             with Horizontal(id="start-buttons"):
-                yield Button("Create study", id="start-create-btn", variant="primary", compact=True)
-                yield Button("Open folder", id="start-open-btn", compact=True)
-                yield Button("Open the demo", id="start-demo-btn", compact=True)
+                yield Button("Create study ^n", id="start-create-btn", variant="primary", compact=True)
+                yield Button("Open folder ^o", id="start-open-btn", compact=True)
+                yield Button("Open the demo ^t", id="start-demo-btn", compact=True)
             yield Static("", id="start-message")
         yield StatusLine()
         yield Footer(compact=True)
-
-    def action_focus_create(self) -> None:
-        self.query_one("#start-protocol", Input).focus()
-
-    def action_blur(self) -> None:
-        self.set_focus(None)
 
     def say(self, text: str, error: bool = False) -> None:
         msg = self.query_one("#start-message", Static)
@@ -61,7 +56,7 @@ class StartScreen(Screen):
 
     @on(Button.Pressed, "#start-create-btn")
     @on(Input.Submitted, "#start-protocol")
-    def create(self) -> None:
+    def action_create(self) -> None:
         protocol = self.query_one("#start-protocol", Input).value.strip()
         folder = self.query_one("#start-dir", Input).value.strip()
         if not protocol or not folder:
@@ -83,7 +78,7 @@ class StartScreen(Screen):
 
     @on(Button.Pressed, "#start-open-btn")
     @on(Input.Submitted, "#start-dir")
-    def open_folder(self) -> None:
+    def action_open_folder(self) -> None:
         folder = Path(self.query_one("#start-dir", Input).value.strip() or ".").expanduser()
         if not (folder / "protocol.toml").is_file():
             self.say(f"{folder} holds no protocol.toml; give a protocol file above to create a study there.",

@@ -64,7 +64,9 @@ def fmt(value: float | None, digits: int = 3) -> str:
     mag = abs(value)
     if mag >= 1000 or mag < 0.001:
         return f"{value:.{max(digits - 1, 1)}e}"
-    return f"{value:.{digits}g}" if mag >= 1 else f"{value:.{digits}f}"
+    if mag >= 1:
+        return f"{value:#.{digits}g}".rstrip(".")
+    return f"{value:.{digits}f}"
 
 
 def _axis_label(value: float) -> str:

@@ -1,0 +1,98 @@
+"""Screenshots of the main screens at 80x24, compared with accepted ones (pytest-textual-snapshot).
+
+Kept deterministic: a fixed clock text, fixed study folders (their path shows
+on the Intake screen), a fixed bootstrap seed, and screenshots taken only after
+every worker has finished. Update after a deliberate change with
+``pytest tests/test_tui_snapshots.py --snapshot-update`` and look at the SVGs.
+"""
+
+from __future__ import annotations
+
+import shutil
+import tempfile
+from pathlib import Path
+
+import pytest
+
+from tui.app import FieldslopeApp
+
+BASE = Path(tempfile.gettempdir()) / "fieldslope-snapshots"
+
+
+@pytest.fixture
+def snap_study(request, protocol_file, write_batch, hopper_rows):
+    """A study in a fixed folder (named after the test): two seasons at two sites, one slip flagged."""
+    from schemas.study import Study
+
+    root = BASE / request.node.name.replace("[", "-").replace("]", "")
+    shutil.rmtree(root, ignore_errors=True)
+    root.parent.mkdir(parents=True, exist_ok=True)
+    with Study.create(root, protocol_file) as study:
+        for season, seed in (("2024", 1), ("2025", 2)):
+            for k, site in enumerate(("Gull Flat", "Reed Bend")):
+                rows = hopper_rows(season, site, n=40, seed=seed * 10 + k)
+                if season == "2025" and k == 0:
+                    rows[3]["tibia"] = "21.0"            # a decimal slip, flagged out of range
+                study.store.import_file(write_batch(rows, f"{season}-{k}.csv"), operator="test")
+    yield root
+    shutil.rmtree(root, ignore_errors=True)
+
+
+def app_for(root: Path | None, **kw) -> FieldslopeApp:
+    kw.setdefault("bootstrap", 0)
+    return FieldslopeApp(root, clock=lambda: "12:00:00", poll_interval=0.05, seed=11, **kw)
+
+
+def settled(*keys: str, intervals: bool = False):
+    """run_before: wait for the figures (and intervals), press keys, wait for workers again."""
+
+    async def run(pilot) -> None:
+        app = pilot.app
+        for _ in range(400):
+            await pilot.pause(0.05)
+            snap = app.snapshot
+            if snap is not None and not app.updating and (snap.intervals or not intervals):
+                break
+        await app.workers.wait_for_complete()
+        for key in keys:
+            await pilot.press(key)
+            await pilot.pause(0.1)
+            await app.workers.wait_for_complete()
+        await pilot.pause(0.2)
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+
+    return run
+
+
+def test_start_screen(snap_compare):
+    assert snap_compare(app_for(None), terminal_size=(80, 24))
+
+
+def test_selection_table(snap_compare, snap_study):
+    assert snap_compare(app_for(snap_study, bootstrap=100), terminal_size=(80, 24),
+                        run_before=settled(intervals=True))
+
+
+def test_selection_fitness_picture(snap_compare, snap_study):
+    assert snap_compare(app_for(snap_study), terminal_size=(80, 24), run_before=settled("v"))
+
+
+def test_selection_surface(snap_compare, snap_study):
+    assert snap_compare(app_for(snap_study), terminal_size=(80, 24), run_before=settled("v", "v"))
+
+
+def test_flags(snap_compare, snap_study):
+    assert snap_compare(app_for(snap_study), terminal_size=(80, 24), run_before=settled("2"))
+
+
+def test_response(snap_compare, snap_study):
+    assert snap_compare(app_for(snap_study), terminal_size=(80, 24), run_before=settled("4"))
+
+
+def test_seasons(snap_compare, snap_study):
+    assert snap_compare(app_for(snap_study), terminal_size=(80, 24), run_before=settled("5"))
+
+
+def test_help(snap_compare, snap_study):
+    assert snap_compare(app_for(snap_study), terminal_size=(80, 24), run_before=settled("3", "f1"))
