@@ -214,9 +214,17 @@ class Store:
                      progress: Progress | None = None) -> ImportResult:
         """Check and store one batch; a refused batch stores only the record of its refusal."""
         progress = progress or (lambda done, total, stage: None)
+        earlier = self._taken_in(hashlib.sha256(data).hexdigest())
+        if earlier is not None:     # quick answer without reading the sheet (checked again when writing)
+            plan = _Plan(name, data, None, None)
+            return _Outcome(plan, "duplicate", duplicate_of=earlier[0],
+                            message=_duplicate_message(name, *earlier)).result(earlier[0])
         plan = _Plan.make(self.protocol, name, data, progress)
         operator = operator or default_operator()
         return self._write(lambda conn: self._store(conn, plan, operator, accept_valid, progress))
+
+    def _taken_in(self, sha: str) -> tuple[int, str] | None:
+        return self._read(lambda conn: _earlier_batch(conn, sha))
 
     def check_bytes(self, name: str, data: bytes, accept_valid: bool = False) -> ImportResult:
         """Run every check an import would run, without writing anything."""
@@ -229,12 +237,9 @@ class Store:
         return self.check_bytes(path.name, _read_file(path), accept_valid=accept_valid)
 
     def _evaluate(self, conn: sqlite3.Connection, plan: "_Plan", accept_valid: bool) -> "_Outcome":
-        dup = plan.sha and conn.execute("SELECT id, received FROM batches WHERE sha256 = ? AND outcome <> 'refused'",
-                                        (plan.sha,)).fetchone()
+        dup = plan.sha and _earlier_batch(conn, plan.sha)
         if dup:
-            return _Outcome(plan, "duplicate", duplicate_of=dup[0],
-                            message=f"{plan.name}: these exact bytes were already taken in as batch {dup[0]} "
-                                    f"on {dup[1]}; nothing was done.")
+            return _Outcome(plan, "duplicate", duplicate_of=dup[0], message=_duplicate_message(plan.name, *dup))
         if plan.report is None:
             return _Outcome(plan, "refused", message=plan.refusal)
         p, report = self.protocol, plan.report
@@ -468,6 +473,15 @@ class Store:
         frame = self.heritability_entries()
         return {t: (float(v), None if pd.isna(s) else float(s), str(src))
                 for t, v, s, src in zip(frame["trait"], frame["value"], frame["se"], frame["source"])}
+
+
+def _earlier_batch(conn, sha: str) -> tuple[int, str] | None:
+    return conn.execute("SELECT id, received FROM batches WHERE sha256 = ? AND outcome <> 'refused'",
+                        (sha,)).fetchone()
+
+
+def _duplicate_message(name: str, batch_id: int, received: str) -> str:
+    return f"{name}: these exact bytes were already taken in as batch {batch_id} on {received}; nothing was done."
 
 
 def _texts(series: pd.Series) -> list:
