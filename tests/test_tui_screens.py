@@ -322,3 +322,45 @@ async def test_help_lists_the_keys_of_the_current_screen(filled):
         await pilot.pause()
         text = screen_text(app)
         assert "Keys: Selection" in text and "Fitness" in text and "Keep" not in text
+
+
+async def test_a_store_you_cannot_write_opens_read_only(filled, monkeypatch):
+    import tui.loading
+
+    monkeypatch.setattr(tui.loading, "writable", lambda path: False)
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: app.snapshot is not None and not app.updating, what="figures")
+        assert app.readonly and "read-only" in screen_text(app)
+        assert app.screen.query_one("#sel-linear").row_count == 2      # the figures are still shown
+        await pilot.press("4")
+        await pilot.press("h")                                         # entering h² is refused, with a reason
+        await pilot.pause()
+        assert "read-only" in screen_text(app) and not filled.store.heritability_entries().shape[0]
+
+
+async def test_command_palette_offers_the_main_actions(filled):
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("ctrl+p")
+        await pilot.pause()
+        for ch in "show flags":
+            await pilot.press("space" if ch == " " else ch)
+        await pilot.pause(0.3)
+        await pilot.press("enter")
+        await pilot.pause(0.3)
+        assert app.current_mode == "flags"
+
+
+async def test_intake_skips_files_still_being_written(filled):
+    (filled.intake_dir / "day3.csv.part").write_text("tag,season\n")
+    (filled.intake_dir / "~$day3.xlsx").write_bytes(b"lock")
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("1")
+        await pilot.pause(0.5)
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert app.screen.files == [] and "drop folder is empty" in screen_text(app)

@@ -14,10 +14,10 @@ from tui.snapshot import Snapshot, records
 
 
 def open_study(study_dir: Path):
-    """Open the study; fall back to read-only when the store cannot be written.
+    """Open the study and read from it once; fall back to read-only when it cannot be written.
 
     Returns (protocol, readonly, warning). Raises FieldslopeError with one
-    sentence when the study cannot be read at all.
+    sentence when the study cannot be read at all (missing, damaged).
     """
     from schemas.errors import FieldslopeError
     from schemas.study import Study
@@ -27,12 +27,27 @@ def open_study(study_dir: Path):
     except FieldslopeError as exc:
         try:
             study = Study.open(study_dir, readonly=True)
+            study.store.batches()
         except FieldslopeError:
             raise exc from None
         _close(study)
         return study.protocol, True, f"{exc} The dashboard is read-only until this is fixed."
-    _close(study)
+    try:
+        study.store.batches()                  # a damaged file fails here, with the store's sentence
+    finally:
+        _close(study)
+    if not writable(study.db_path):
+        return study.protocol, True, (
+            f"{study.db_path}: you cannot write to the record store (file or folder permissions), so the "
+            "dashboard is read-only; ask the station manager for group write access to the study folder.")
     return study.protocol, False, ""
+
+
+def writable(db_path: Path) -> bool:
+    """True if this user may write the store file and create its journal files beside it."""
+    import os
+
+    return os.access(db_path, os.W_OK) and os.access(db_path.parent, os.W_OK)
 
 
 def _close(study) -> None:

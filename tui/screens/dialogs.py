@@ -79,8 +79,8 @@ class ConfirmScreen(ModalScreen[bool]):
             with VerticalScroll(classes="dialog-body"):
                 yield Static(self.text)
             with Horizontal(classes="dialog-buttons"):
-                yield Button(f"{self.yes} [y]", id="confirm-yes", variant="primary", compact=True)
-                yield Button("Cancel [n]", id="confirm-no", compact=True)
+                yield Button(f"{self.yes} (y)", id="confirm-yes", variant="primary", compact=True)
+                yield Button("Cancel (n)", id="confirm-no", compact=True)
 
     def action_answer(self, value: bool) -> None:
         self.dismiss(value)
@@ -117,8 +117,8 @@ class FormScreen(ModalScreen[dict | None]):
                 yield Input(value=value, id=f"form-{name}", compact=True)
             yield Static("", id="form-message", classes="dialog-error")
             with Horizontal(classes="dialog-buttons"):
-                yield Button("OK [ctrl+s]", id="form-ok", variant="primary", compact=True)
-                yield Button("Cancel [esc]", id="form-cancel", compact=True)
+                yield Button("OK (ctrl+s)", id="form-ok", variant="primary", compact=True)
+                yield Button("Cancel (esc)", id="form-cancel", compact=True)
 
     def values(self) -> dict[str, str]:
         return {name: self.query_one(f"#form-{name}", Input).value.strip() for name, _, _ in self.fields}

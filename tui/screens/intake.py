@@ -58,7 +58,7 @@ class IntakeScreen(StudyScreen):
         self.files: list[dict] = []
         self.current: Path | None = None
         self.checked = None
-        self._listed_version: int | None = None
+        self.problems: list[str] = []
 
     def body(self) -> ComposeResult:
         yield Static(id="intake-folder", classes="choices")
@@ -71,6 +71,7 @@ class IntakeScreen(StudyScreen):
         with TabbedContent(id="intake-tabs"):
             with TabPane("Problems", id="intake-problems"):
                 yield DataTable(id="intake-report", cursor_type="row", zebra_stripes=True)
+                yield Static(id="intake-problem", classes="notes")
             with TabPane("Preview", id="intake-preview"):
                 yield DataTable(id="intake-sheet", cursor_type="row")
 
@@ -149,6 +150,8 @@ class IntakeScreen(StudyScreen):
         self.query_one("#intake-summary", Static).update(_summary_line(msg.path.name, r))
         report = self.query_one("#intake-report", DataTable)
         report.clear()
+        self.problems = [e.sentence() for e in r.errors] + [f"row {f.row}: {f.message}" for f in r.flags]
+        self.query_one("#intake-problem", Static).update(self.problems[0] if self.problems else "")
         for e in r.errors:
             report.add_row(str(e.row), e.column, e.value or "", f"ERROR {e.reason}")
         for f in r.flags:
@@ -240,6 +243,11 @@ class IntakeScreen(StudyScreen):
             return
         self.action_leave_path()
         self.check(path)
+
+    @on(DataTable.RowHighlighted, "#intake-report")
+    def _problem_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        if 0 <= event.cursor_row < len(self.problems):
+            self.query_one("#intake-problem", Static).update(self.problems[event.cursor_row])
 
     @on(DataTable.RowSelected, "#intake-files")
     def _row_chosen(self) -> None:

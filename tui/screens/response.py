@@ -100,9 +100,11 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
                           _e(s), _e(r), _e(rp), _e(rm), key=trait)
         if snap.protocol.trait_names:
             table.move_cursor(row=max(0, min(keep, len(snap.protocol.trait_names) - 1)))
-        notes = [getattr(n, "message", str(n)) for n in snap.notes
-                 if getattr(n, "quantity", "") in ("response", "response_multi", "heritability", "response_pct")
-                 and getattr(n, "season", c.season) in (c.season, ALL)]
+        order = ("response_multi", "response", "response_pct", "heritability")   # the G assumption first
+        picked = [n for n in snap.notes if getattr(n, "quantity", "") in order
+                  and getattr(n, "season", c.season) in (c.season, ALL)]
+        picked.sort(key=lambda n: order.index(n.quantity))
+        notes = [getattr(n, "message", str(n)) for n in picked]
         g_text = "Δz̄ = G·β_raw (Lande 1979). " + (" ".join(dict.fromkeys(notes))[:400] if notes else "")
         self.query_one("#resp-g", Static).update(Content.assemble((g_text, "$text-muted")))
         self._projection()
