@@ -19,6 +19,7 @@ from schemas.errors import StoreError
 
 SCHEMA_VERSION = 1
 BUSY_TIMEOUT_S = 5.0
+RETRY_DELAYS = (0.05, 0.1, 0.2, 0.4, 0.8, 1.0, 1.0)   # then give up (about 45 s with the busy timeouts)
 
 _APPEND_ONLY = ("batches", "records", "quarantine", "flags", "resolutions", "heritability", "fields")
 
@@ -209,19 +210,18 @@ def backup(conn: sqlite3.Connection, target: Path) -> Path:
     return target
 
 
-def retry_locked(op: Callable, attempts: int = 8):
-    """Run ``op``; on 'database is locked/busy' wait with backoff and retry, then give a clear StoreError."""
-    delay = 0.05
-    for i in range(attempts):
+def retry_locked(op: Callable):
+    """Run ``op``; on 'database is locked/busy' (after SQLite's own busy timeout) wait and retry
+    along RETRY_DELAYS, then give one clear StoreError: the raw message never reaches the user."""
+    for delay in (*RETRY_DELAYS, None):
         try:
             return op()
         except sqlite3.OperationalError as exc:
             text = str(exc).lower()
             if "locked" not in text and "busy" not in text:
                 raise
-            if i == attempts - 1:
+            if delay is None:
                 raise StoreError("the record store is busy (another fieldslope is writing to it); "
                                  "try again in a moment.") from None
             time.sleep(delay)
-            delay = min(delay * 2, 1.0)
     return None  # pragma: no cover

@@ -220,3 +220,21 @@ def test_a_missing_file_does_not_stop_the_others(folder, protocol_file, capsys):
     call(capsys, "init", study, "--protocol", str(protocol_file))
     code, out, err = call(capsys, "import", str(folder / "nope.csv"), str(folder / "measured.csv"), "--study", study)
     assert code == 1 and "no such file" in one_line(err) and "12 of 12 rows stored" in out
+
+
+def test_progress_shows_only_on_a_terminal():
+    from tui.cli_format import Progress
+
+    class Tty(io.StringIO):
+        def isatty(self):
+            return True
+
+    tty, pipe = Tty(), io.StringIO()
+    for stream in (tty, pipe):
+        p = Progress("importing a.csv", stream)
+        p(1, 4, "storing")
+        p(4, 4, "storing")
+        p.done()
+    assert "importing a.csv: storing 25%" in tty.getvalue() and "100%" in tty.getvalue()
+    assert all(len(part) <= 80 for part in tty.getvalue().split("\r"))
+    assert pipe.getvalue() == ""

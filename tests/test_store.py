@@ -364,3 +364,30 @@ def test_garbage_database_gives_one_sentence(tmp_path, protocol_text):
     db.write_bytes(b"this is not a database at all" * 100)
     with pytest.raises(StoreError, match="damaged or not a fieldslope database"):
         Store(db, parse_protocol(protocol_text))
+
+
+def test_a_long_write_lock_is_waited_for_then_reported_in_one_sentence(study, monkeypatch):
+    import threading
+    import time
+
+    from schemas import store_schema
+
+    monkeypatch.setattr(store_schema, "BUSY_TIMEOUT_S", 0.05)
+    monkeypatch.setattr(store_schema, "RETRY_DELAYS", (0.05, 0.1, 0.2))
+    holder = sqlite3.connect(study.db_path, isolation_level=None, check_same_thread=False)
+    holder.execute("BEGIN IMMEDIATE")
+    threading.Timer(0.2, lambda: holder.execute("COMMIT")).start()
+    from schemas.store import Store
+
+    other = Store(study.db_path, study.protocol)        # a fresh connection with the short timeout
+    try:
+        assert other.import_bytes("b1.csv", GOOD).outcome == "stored"   # waited, then wrote
+        holder.execute("BEGIN IMMEDIATE")
+        start = time.monotonic()
+        with pytest.raises(StoreError, match="busy") as err:
+            other.set_heritability("wing", 0.3, 0.1, "x")
+        assert "locked" not in str(err.value) and time.monotonic() - start < 5
+    finally:
+        holder.execute("ROLLBACK")
+        holder.close()
+        other.close()
