@@ -94,7 +94,7 @@ def estimates_text(table: pd.DataFrame, notes=()) -> str:
     if table.empty:
         lines.append("no estimates (see the notes below)")
     for (season, site, fitness), block in table.groupby(["season", "site", "fitness"], sort=False):
-        lines += ["", f"season {season} · site {site} · fitness {fitness}", _HEAD]
+        lines += ["", cut(f"season {season} · site {site} · fitness {fitness}", WIDTH), _HEAD]
         for r in block.itertuples(index=False):
             n = "" if pd.isna(r.n) else str(int(r.n))
             lines.append(f"{cut(r.quantity, 17):<17} {cut(r.term, 10):<10} {number(r.estimate, 9)} "
