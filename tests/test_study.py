@@ -26,6 +26,9 @@ def test_new_study_folder_is_group_writable(tmp_path, protocol_file):
         assert (tmp_path / "shared").stat().st_mode & 0o7777 == 0o2770
         assert s.intake_dir.stat().st_mode & 0o7777 == 0o2770
         assert s.db_path.stat().st_mode & 0o777 == 0o660
+        s.store.import_bytes("a.csv", b"tag,season\nA,2024\n")
+        for suffix in ("-wal", "-shm"):     # SQLite gives them the database file's mode
+            assert (tmp_path / "shared" / (DB_FILE + suffix)).stat().st_mode & 0o777 == 0o660
     finally:
         s.close()
 
