@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, replace
+from functools import cached_property
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -83,13 +84,32 @@ class Snapshot:
                 t = t[t[col] == val]
         return t
 
+    @cached_property
+    def _index(self) -> dict:
+        """(season, site, fitness, quantity, term) -> the row's numbers, built once per snapshot."""
+        out: dict = {}
+        if self.table is None or self.table.empty:
+            return out
+        cols = ("season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n")
+        for rec in zip(*(self.table[c].tolist() for c in cols)):
+            key = tuple("" if v is None or v != v else v for v in rec[:5])
+            out.setdefault(key, dict(zip(cols[5:], (_num(v) for v in rec[5:]))))
+        return out
+
+    @cached_property
+    def _terms(self) -> dict:
+        """(season, site, fitness, quantity) -> its terms in table order."""
+        out: dict = {}
+        for key in self._index:
+            out.setdefault(key[:4], []).append(key[4])
+        return out
+
     def value(self, season, site, fitness, quantity, term) -> dict | None:
         """One row of the table as a dict (estimate, se, ci_low, ci_high, p_value, n), or None."""
-        t = self.rows(season=season, site=site, fitness=fitness, quantity=quantity, term=term)
-        if t.empty:
-            return None
-        row = t.iloc[0]
-        return {k: _num(row[k]) for k in ("estimate", "se", "ci_low", "ci_high", "p_value", "n")}
+        return self._index.get((season, site, fitness, quantity, term))
+
+    def terms(self, season, site, fitness, quantity) -> list[str]:
+        return list(self._terms.get((season, site, fitness, quantity), ()))
 
     def cell_frame(self, season: str, site: str) -> "pd.DataFrame":
         """The effective data of one cell (all sites of the season for ``all``)."""

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.content import Content
@@ -46,6 +47,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
         self.choices = Choices()
+        self._drawn: tuple | None = None
 
     def body(self) -> ComposeResult:
         yield Static(id="sel-choices", classes="choices")
@@ -89,13 +91,15 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             return
         self._summary(snap)
         self._tables(snap)
+        self._drawn = None
         self._pictures(snap, trait)
 
     def _summary(self, snap: Snapshot) -> None:
         c = self.choices
         opp = snap.value(c.season, c.site, c.fitness, "opportunity", "")
-        grads = snap.rows(season=c.season, site=c.site, fitness=c.fitness, quantity="gradient")
-        n = opp["n"] if opp and opp["n"] is not None else (grads["n"].max() if not grads.empty else None)
+        grads = [snap.value(c.season, c.site, c.fitness, "gradient", t) for t in snap.protocol.trait_names]
+        ns = [g["n"] for g in grads if g and g["n"] is not None]
+        n = opp["n"] if opp and opp["n"] is not None else (max(ns) if ns else None)
         missing = snap.missing_fitness(c.season, c.site, c.fitness)
         parts = [("n ", "$text-muted"), (str(int(n)) if n is not None else "–", "bold"),
                  ("  missing fitness ", "$text-muted"), (str(missing), "bold"),
@@ -118,24 +122,41 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             n = b["n"] if b and b["n"] is not None else (s["n"] if s and s["n"] is not None else None)
             lin.add_row(trait, est_text(s), est_text(s_std), est_text(b), ci_text(b), p_text(b),
                         "–" if n is None else str(int(n)), key=trait)
-        logit = snap.rows(**key, quantity="gradient_logistic")
-        for row in logit.itertuples(index=False):
-            lin.add_row(f"{row.term} (logit β)", "", "", fmt(float(row.estimate)),
-                        ci_text(snap.value(**key, quantity="gradient_logistic", term=row.term)),
-                        p_text(snap.value(**key, quantity="gradient_logistic", term=row.term)),
-                        str(int(row.n)) if row.n == row.n else "–", key=f"logit:{row.term}")
+        for term in snap.terms(**key, quantity="gradient_logistic"):
+            v = snap.value(**key, quantity="gradient_logistic", term=term)
+            lin.add_row(f"{term} (logit β)", "", "", est_text(v), ci_text(v), p_text(v),
+                        "–" if v["n"] is None else str(int(v["n"])), key=f"logit:{term}")
         gam = self.query_one("#sel-gamma", DataTable)
         gam.clear()
         for quantity, label in (("quadratic", "γ "), ("correlational", "γ "), ("canonical", "λ ")):
-            for row in snap.rows(**key, quantity=quantity).itertuples(index=False):
-                v = snap.value(**key, quantity=quantity, term=row.term)
-                gam.add_row(label + str(row.term), est_text(v), ci_text(v) if quantity != "canonical" else "",
-                            p_text(v) if quantity != "canonical" else "", key=f"{quantity}:{row.term}")
+            for term in snap.terms(**key, quantity=quantity):
+                v = snap.value(**key, quantity=quantity, term=term)
+                gam.add_row(label + str(term), est_text(v), ci_text(v) if quantity != "canonical" else "",
+                            p_text(v) if quantity != "canonical" else "", key=f"{quantity}:{term}")
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
         self.query_one("#sel-notes", Static).update(
             Content.assemble(("λ: canonical axes (eigenvalues of γ). ", "$text-muted"), *[(n + " ", "$text-muted") for n in notes]))
 
+    @on(TabbedContent.TabActivated, "#sel-tabs")
+    def _tab_shown(self) -> None:
+        snap = self.app.snapshot
+        if snap is not None and self.choices.season is not None:
+            self._pictures(snap, self.choices.trait_name(snap))
+
     def _pictures(self, snap: Snapshot, trait: str) -> None:
+        """Draw the picture of the tab in view (the other is drawn when its tab is shown)."""
+        tab = self.query_one("#sel-tabs", TabbedContent).active
+        key = (snap.generation, snap.intervals, tab, trait, self.choices.season, self.choices.site,
+               self.choices.fitness, self.size)
+        if tab == "sel-table" or key == self._drawn:
+            return
+        self._drawn = key
+        if tab == "sel-picture":
+            self._scatter(snap, trait)
+        else:
+            self._surface(snap, trait)
+
+    def _scatter(self, snap: Snapshot, trait: str) -> None:
         from tui.picture_data import scatter_data
 
         c = self.choices
@@ -145,6 +166,11 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         b = snap.value(c.season, c.site, c.fitness, "gradient", trait)
         self.query_one("#sel-scatter", Static).update(
             scatter_picture(x, w, b["estimate"] if b else None, bins, width=width, height=height, xlabel=trait))
+
+    def _surface(self, snap: Snapshot, trait: str) -> None:
+        c = self.choices
+        width = max(40, self.size.width - 4)
+        height = max(8, self.size.height - 9)
         traits = snap.protocol.trait_names
         surf = self.query_one("#sel-surf", Static)
         if len(traits) < 2:
