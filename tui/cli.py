@@ -130,7 +130,9 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("fieldslope: interrupted; nothing half-done was kept.", file=sys.stderr)
         return 1
-    except BrokenPipeError:
+    except BrokenPipeError:   # e.g. ``fieldslope estimate | head``: stop quietly
+        import os
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
     except Exception as exc:  # a bug: still one line, unless --debug
         if debug:
