@@ -178,7 +178,8 @@ class Store:
         p = self.protocol
         out = [(g, "text") for g in p.groups]
         out += [(t, "number") for t in p.trait_names] + [(c, "number") for c in p.component_names]
-        out += [(c, "text") for c in (*p.parent_cols, *OPTIONAL_TEXT)]
+        out += [(c, "text") for c in p.parent_cols]
+        out += [(c, "text") for c in OPTIONAL_TEXT if c not in {n for n, _ in out}]
         return out
 
     def _ensure_fields(self, conn: sqlite3.Connection) -> None:

@@ -391,3 +391,22 @@ def test_a_long_write_lock_is_waited_for_then_reported_in_one_sentence(study, mo
         holder.execute("ROLLBACK")
         holder.close()
         other.close()
+
+
+def test_protocol_gaining_a_trait_adds_a_column_and_keeps_the_data(study):
+    from schemas.protocol import parse_protocol
+    from schemas.store import Store
+
+    study.store.import_bytes("b1.csv", GOOD)
+    study.close()
+    text = (study.root / "protocol.toml").read_text()
+    wider = parse_protocol(text.replace("[fitness.survived]", "[traits.antenna]\nunit = \"mm\"\n\n[fitness.survived]"))
+    store = Store(study.db_path, wider)
+    try:
+        frame = store.effective_frame()
+        assert "antenna" in frame.columns and frame["antenna"].isna().all()
+        assert frame.set_index("tag").at["H01", "wing"] == 4.5
+        store.import_bytes("b3.csv", b"tag,season,antenna\nH01,2024,2.5\n")
+        assert store.effective_frame().set_index("tag").at["H01", "antenna"] == 2.5
+    finally:
+        store.close()
