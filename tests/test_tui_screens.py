@@ -299,6 +299,8 @@ async def test_seasons_show_each_season_and_the_batch_trend(filled, size):
         assert fmt(snap.value("2024", "Gull Flat", "total", "gradient", "wing")["estimate"]) in text
         mean = snap.value("all", "Gull Flat", "total", "gradient_mean", "wing")
         assert mean is not None and fmt(mean["estimate"]) in text
+        # the trend lists only the batches that brought 2025 data (the third and fourth)
+        assert {r["batch"] for r in screen.trend_rows} == {3, 4}
         # the trend: the latest batch's β equals the season's pooled β now
         last = [r for r in screen.trend_rows if r["site"] == "all" and r["trait"] == "wing"][-1]
         assert fmt(last["estimate"]) == fmt(snap.value("2025", "all", "total", "gradient", "wing")["estimate"])

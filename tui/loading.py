@@ -109,7 +109,8 @@ def add_intervals(snap: Snapshot, *, bootstrap: int, seed: int | None,
 
 def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivity: bool,
                 should_stop: Callable[[], bool] = lambda: False):
-    """β of each trait in ``season`` after each stored batch (bootstrap 0, se-based 95 % interval).
+    """β of each trait in ``season`` after each stored batch that changed that season's data
+    (bootstrap 0, se-based 95 % interval β ± 1.96 se).
 
     Returns a list of dicts: batch, n, site, trait, estimate, se, ci_low, ci_high.
     """
@@ -118,6 +119,7 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
 
     study = Study.open(study_dir, readonly=True)
     out: list[dict] = []
+    previous = None
     try:
         store = study.store
         ids = [b["id"] for b in records(store.batches()) if b.get("outcome", "stored") != "refused"]
@@ -125,11 +127,13 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
             if should_stop():
                 break
             frame = store.effective_frame(without_open_outliers=sensitivity, as_of_batch=k)
-            if frame.empty or protocol.season_col not in frame or not (frame[protocol.season_col].astype(str) == season).any():
+            if frame.empty:
                 continue
-            sub = frame[frame[protocol.season_col].astype(str) == season]
-            est = estimates_for_frame(sub, protocol, bootstrap=0)
-            t = est.table
+            sub = frame[frame[protocol.season_col].astype(str) == season].reset_index(drop=True)
+            if sub.empty or (previous is not None and sub.equals(previous)):
+                continue                       # this batch did not touch the season
+            previous = sub
+            t = estimates_for_frame(sub, protocol, bootstrap=0).table
             t = t[(t["season"] == season) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")]
             for row in t.itertuples(index=False):
                 se = row.se if row.se == row.se else None
