@@ -130,6 +130,17 @@ class ImportCorrectExclude(RuleBasedStateMachine):
         if action == "set":
             self.values.add(value)
 
+    @precondition(lambda self: hasattr(self, "study"))
+    @rule(sensitivity=st.booleans())
+    def export(self, sensitivity):
+        import csv
+
+        from schemas.export import frame_to_safe_csv
+
+        frame = self.study.store.effective_frame(without_open_outliers=sensitivity)
+        rows = list(csv.reader(io.StringIO(frame_to_safe_csv(frame))))
+        assert rows[0] == list(frame.columns) and len(rows) == len(frame) + 1
+
     @invariant()
     def raw_and_audit_intact(self):
         if not hasattr(self, "study"):
