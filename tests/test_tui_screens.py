@@ -366,3 +366,25 @@ async def test_intake_skips_files_still_being_written(filled):
         await app.workers.wait_for_complete()
         await pilot.pause()
         assert app.screen.files == [] and "drop folder is empty" in screen_text(app)
+
+
+async def test_flags_correct_a_value(study, write_batch, hopper_rows):
+    rows = hopper_rows("2025", "Reed Bend", n=30, seed=12)
+    rows[7]["tibia"] = "17.4"                            # a slipped decimal point, outside 1-2.5 mm
+    study.store.import_file(write_batch(rows, "slip.csv"), operator="test")
+    tag = rows[7]["tag"]
+    app = make_app(study.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("2")
+        await pilot.pause()
+        assert app.screen.rows[0]["kind"] == "out_of_range"
+        await pilot.press("c")
+        await pilot.pause()
+        app.screen.query_one("#form-value").value = "1.74"
+        app.screen.query_one("#form-reason").value = "sheet re-read: 1.74"
+        await pilot.press("ctrl+s")
+        await wait_for(app, pilot, lambda: not any(f["status"] == "open" and f["kind"] == "out_of_range"
+                                                   for f in app.snapshot.flags), what="the correction")
+        frame = app.snapshot.frame
+        assert frame.loc[frame["tag"] == tag, "tibia"].item() == pytest.approx(1.74)
