@@ -127,6 +127,40 @@ def test_disk_full_gives_one_sentence_and_the_store_stays_usable(study, tmp_path
     assert len(study.store.effective_frame()) == 70
 
 
+SAME_PROCESS = r"""
+import resource, signal, sys
+from schemas.errors import StoreError
+from schemas.study import Study
+signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+study = Study.open(sys.argv[1])
+big, small, limit = open(sys.argv[2], "rb").read(), open(sys.argv[3], "rb").read(), int(sys.argv[4])
+hard = resource.getrlimit(resource.RLIMIT_FSIZE)[1]
+resource.setrlimit(resource.RLIMIT_FSIZE, (limit, hard))
+try:
+    study.store.import_bytes("big.csv", big)
+    print("stored?!")
+except StoreError as exc:
+    print("error:", exc)
+resource.setrlimit(resource.RLIMIT_FSIZE, (hard, hard))      # space freed
+print("then:", study.store.import_bytes("small.csv", small).outcome)
+"""
+
+
+def test_after_disk_full_the_same_store_object_keeps_working(study, tmp_path):
+    pytest.importorskip("resource")
+    study.store.import_bytes("first.csv", batch_bytes(1, 20))
+    (tmp_path / "big.csv").write_bytes(batch_bytes(2, 20000))
+    (tmp_path / "small.csv").write_bytes(batch_bytes(3, 30))
+    limit = sum(p.stat().st_size for p in study.root.iterdir() if p.is_file()) + 64 * 1024
+    r = subprocess.run([sys.executable, "-c", SAME_PROCESS, str(study.root), str(tmp_path / "big.csv"),
+                        str(tmp_path / "small.csv"), str(limit)], env=ENV, capture_output=True, text=True,
+                       timeout=120)
+    assert r.returncode == 0, r.stderr
+    lines = r.stdout.splitlines()
+    assert lines[0].startswith("error: the disk is full") and lines[1] == "then: stored"
+    assert sorted(check_whole(study.db_path).values()) == [20, 30]
+
+
 READER = r"""
 import json, sys, time
 from pathlib import Path
