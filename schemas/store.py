@@ -359,24 +359,23 @@ class Store:
                                                   without_open_outliers=without_open_outliers, as_of=as_of_batch))
 
     def flags(self, include_resolved: bool = False) -> list[StoredFlag]:
-        def q(c):
-            return c.execute(
-                "SELECT f.id, f.kind, f.individual, f.season, f.field, f.value, f.message, f.batch_id, "
-                "b.file_name, f.row, f.created, coalesce(r.action, 'open'), coalesce(r.operator, ''), "
-                "coalesce(r.created, ''), coalesce(r.reason, ''), coalesce(r.new, ''), "
-                "f.quarantine_id IS NOT NULL FROM flags f JOIN batches b ON b.id = f.batch_id "
-                "LEFT JOIN resolutions r ON r.id = (SELECT max(id) FROM resolutions WHERE flag_id = f.id) "
-                + ("" if include_resolved else "WHERE r.id IS NULL ") + "ORDER BY f.id").fetchall()
-        return [StoredFlag(*r[:16], quarantined=bool(r[16])) for r in self._read(q)]
+        """Open flags (all with ``include_resolved``), oldest first, each with its latest resolution."""
+        return self._flag_rows("" if include_resolved else "WHERE r.id IS NULL", ())
 
     def flag(self, flag_id: int) -> StoredFlag:
-        for f in self._flags_by_id([flag_id]):
+        for f in self._flag_rows("WHERE f.id = ?", (int(flag_id),)):
             return f
         raise RecordError(f"there is no flag {flag_id}; list the flags with fieldslope flags --all.")
 
-    def _flags_by_id(self, ids: list[int]) -> list[StoredFlag]:
-        wanted = set(ids)
-        return [f for f in self.flags(include_resolved=True) if f.id in wanted]
+    def _flag_rows(self, where: str, args: tuple) -> list[StoredFlag]:
+        sql = ("SELECT f.id, f.kind, f.individual, f.season, f.field, f.value, f.message, f.batch_id, "
+               "b.file_name, f.row, f.created, coalesce(r.action, 'open'), coalesce(r.operator, ''), "
+               "coalesce(r.created, ''), coalesce(r.reason, ''), coalesce(r.new, ''), "
+               "f.quarantine_id IS NOT NULL FROM flags f JOIN batches b ON b.id = f.batch_id "
+               "LEFT JOIN resolutions r ON r.id = (SELECT max(id) FROM resolutions WHERE flag_id = f.id) "
+               f"{where} ORDER BY f.id")
+        rows = self._read(lambda c: c.execute(sql, args).fetchall())
+        return [StoredFlag(*r[:16], quarantined=bool(r[16])) for r in rows]
 
     # -- resolving flags --------------------------------------------------------------
     def resolve_flag(self, flag_id: int, action: str, value: str | None = None, reason: str = "",
