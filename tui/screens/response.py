@@ -163,9 +163,12 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
                 return
             self._h2_worker(self.app.study_dir, trait, value, se, values["source"])
 
-        self.app.push_screen(FormScreen(f"Heritability of {trait}",
-                                        "Used where the study has no parent–offspring data for this trait; "
-                                        "kept in the study with its source.", fields, ("value", "source")), done)
+        h2, source = self.h2_of(snap, trait)
+        text = "Used where the study has no parent–offspring data for this trait; kept in the study with its source."
+        if h2 is not None and source == "parent–offspring":
+            text = (f"This study estimates h² of {trait} from parents and offspring ({fmt(h2['estimate'])}); "
+                    "that estimate stays in use. An entered value is kept with its source for reference.")
+        self.app.push_screen(FormScreen(f"Heritability of {trait}", text, fields, ("value", "source")), done)
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="resp-h2")
     def _h2_worker(self, study_dir: Path, trait: str, value: float, se: float | None, source: str) -> None:
