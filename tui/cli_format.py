@@ -12,6 +12,7 @@ import pandas as pd
 
 WIDTH = 80
 MAX_LISTED = 50
+MAX_NOTES = 20
 
 
 def cut(text: object, width: int) -> str:
@@ -101,10 +102,14 @@ def estimates_text(table: pd.DataFrame, notes=()) -> str:
                          f"{number(r.se, 8)} {number(r.ci_low, 9)} {number(r.ci_high, 9)} "
                          f"{p_text(r.p_value):>6} {n:>5}")
     if notes:
+        notes = list(notes)
         lines += ["", "notes:"]
-        for note in notes:
+        for note in notes[:MAX_NOTES]:
             where = " · ".join(str(x) for x in (note.season, note.site, note.fitness, note.quantity) if x)
             lines.append(wrap(f"{where}: {note.message}" if where else note.message, indent="  "))
+        if len(notes) > MAX_NOTES:
+            lines.append(wrap(f"… and {len(notes) - MAX_NOTES} more notes; narrow the table with --season, "
+                              "--site or --fitness to see theirs.", indent="  "))
     return "\n".join(lines).lstrip("\n") + "\n"
 
 
