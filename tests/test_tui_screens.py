@@ -168,13 +168,26 @@ async def test_live_update_after_another_connection_imports(filled, write_batch,
         assert app.screen.choices.season == "2025"     # what the user was looking at stays
 
 
-async def test_sensitivity_toggle_recomputes_without_open_outliers(filled):
-    app = make_app(filled.root)
+async def test_sensitivity_toggle_recomputes_without_open_outliers(study, write_batch, hopper_rows):
+    rows = hopper_rows("2025", "Gull Flat", n=40, seed=21)
+    rows[5]["tibia"] = "2.49"            # inside 1-2.5 mm but far out in its cell: a robust outlier
+    study.store.import_file(write_batch(rows, "b.csv"), operator="test")
+    assert any(f.kind == "outlier" for f in study.store.flags())
+    app = make_app(study.root)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(app, pilot, lambda: ready(app))
+        kept_in = app.snapshot.value("2025", "Gull Flat", "total", "gradient", "tibia")["estimate"]
         await pilot.press("o")
         await wait_for(app, pilot, lambda: app.snapshot.sensitivity and ready(app), what="sensitivity")
-        assert "outliers out" in screen_text(app)
+        left_out = app.snapshot.value("2025", "Gull Flat", "total", "gradient", "tibia")["estimate"]
+        assert left_out != kept_in
+        text = screen_text(app)
+        assert "outliers out" in text and "β with the open outliers kept in: wing" in text
+        assert f"tibia {fmt(kept_in)}" in text
+        assert str(app.screen.query_one("#sel-linear").get_row("tibia")[3]) == fmt(left_out)
+        await pilot.press("o")
+        await wait_for(app, pilot, lambda: not app.snapshot.sensitivity and ready(app), what="back")
+        assert "outliers out" not in screen_text(app)
 
 
 @pytest.mark.parametrize("size", SIZES)

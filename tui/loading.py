@@ -82,6 +82,7 @@ def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity
     try:
         store = study.store
         frame = store.effective_frame(without_open_outliers=sensitivity)
+        included = store.effective_frame() if sensitivity else None
         flags = records(store.flags(include_resolved=True))
         batches = records(store.batches())
         h2 = records(store.heritability_entries())
@@ -89,11 +90,19 @@ def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity
     finally:
         _close(study)
     est = estimates_for_frame(frame, study.protocol, bootstrap=0, h2=h2_values)
+    extras: dict = {"h2": h2_values}
+    if included is not None:
+        # the other side of the sensitivity comparison: gradients with the open outliers kept in
+        t = estimates_for_frame(included, study.protocol, bootstrap=0, h2=h2_values).table
+        t = t[t["quantity"] == "gradient"]
+        extras["gradient_with_outliers"] = {
+            (s, site, f, term): float(v) for s, site, f, term, v in zip(t["season"], t["site"], t["fitness"],
+                                                                       t["term"], t["estimate"])}
     return Snapshot(
         protocol=study.protocol, table=est.table, notes=tuple(est.notes), frame=frame, flags=flags,
         batches=batches, heritability=h2, data_version=version, refreshed_at=refreshed_at,
         sensitivity=sensitivity, intervals=False, generation=generation, readonly=readonly,
-        extras={"h2": h2_values},
+        extras=extras,
     )
 
 

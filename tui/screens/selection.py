@@ -134,8 +134,14 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
                 gam.add_row(label + str(term), est_text(v), ci_text(v) if quantity != "canonical" else "",
                             p_text(v) if quantity != "canonical" else "", key=f"{quantity}:{term}")
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
-        self.query_one("#sel-notes", Static).update(
-            Content.assemble(("λ: canonical axes (eigenvalues of γ). ", "$text-muted"), *[(n + " ", "$text-muted") for n in notes]))
+        parts: list[tuple[str, str]] = []
+        kept = snap.extras.get("gradient_with_outliers")
+        if snap.sensitivity and kept is not None:
+            shown = [f"{t} {fmt(kept[(c.season, c.site, c.fitness, t)])}" for t in snap.protocol.trait_names
+                     if (c.season, c.site, c.fitness, t) in kept]
+            parts.append(("β with the open outliers kept in: " + (", ".join(shown) or "none") + ". ", "$warning"))
+        parts.append(("λ: canonical axes (eigenvalues of γ). ", "$text-muted"))
+        self.query_one("#sel-notes", Static).update(Content.assemble(*parts, *[(n + " ", "$text-muted") for n in notes]))
 
     @on(TabbedContent.TabActivated, "#sel-tabs")
     def _tab_shown(self) -> None:
