@@ -191,3 +191,25 @@ def test_labels_missing_group_and_numeric_season():
     t = run_quiet(f, DESIGN, bootstrap=0).table
     assert set(t.site) == {"(blank)", "reef", "flat", "all"} and set(t.season) == {"2032"}
     assert run_quiet(f.iloc[:0], DESIGN, bootstrap=20).table.empty
+
+
+def test_permutation_p_value_is_close_to_the_ols_t_test():
+    """With normal errors a permutation p-value approximates the OLS t-test's (statsmodels; common practice)."""
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(77)
+    n = 300
+    x = rng.normal(size=n)
+    W = 5 + 0.12 * x + rng.normal(size=n)
+    frame = pd.DataFrame({"id": np.arange(n).astype(str), "season": "s", "z": x, "W": W})
+    t = estimate_table(frame, Design(traits=("z",), fitness={"W": "continuous"}, groups=()),
+                       bootstrap=0, permutations=4000).table
+    r = t[t.quantity == "gradient"].iloc[0]
+    p_t = sm.OLS(W, sm.add_constant(x)).fit().pvalues[1]
+    assert 0.005 < p_t < 0.3
+    assert r.p_value == pytest.approx(p_t, abs=0.02)
+    # strong selection: no permutation reaches the observed gradient, p = 1 / (P + 1)
+    strong = frame.assign(W=12 + 2 * x + rng.normal(size=n))
+    s = estimate_table(strong, Design(traits=("z",), fitness={"W": "continuous"}, groups=()),
+                       bootstrap=0, permutations=999).table
+    assert s[s.quantity == "gradient"].p_value.iloc[0] == pytest.approx(1 / 1000)
