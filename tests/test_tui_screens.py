@@ -210,6 +210,8 @@ async def test_intake_takes_in_a_good_file_and_quarantines_a_bad_one(filled, hop
         await pilot.press("c")
         await wait_for(app, pilot, lambda: screen.checked is not None, what="the check")
         assert "no errors" in screen_text(app)
+        sheet = screen.query_one("#intake-sheet")
+        assert sheet.row_count == 12 and str(sheet.get_row_at(0)[0]) == rows[0]["tag"]   # the preview
         await pilot.press("i")
         await pilot.pause()
         assert "Rows stored as records: 12 of 12" in screen_text(app)

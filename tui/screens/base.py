@@ -48,6 +48,5 @@ class StudyScreen(Screen):
         """Mark panels (widgets with class ``panel``) as updating while a worker runs."""
         for panel in self.query(".panel"):
             panel.set_class(bool(what), "-updating")
-            panel.border_subtitle = what or ""
         for status in self.query(StatusLine):
             status.update_from_app()

@@ -11,7 +11,7 @@ from textual.widgets import DataTable, Static, TabbedContent, TabPane
 
 from tui.screens.base import StudyScreen
 from tui.screens.choices import ChoiceKeys, Choices
-from tui.snapshot import ALL, Snapshot
+from tui.snapshot import Snapshot
 from tui.widgets.pictures import fmt, scatter_picture, surface_picture
 
 
