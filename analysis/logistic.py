@@ -82,6 +82,7 @@ def batched_logistic(
     start: np.ndarray,
     max_iter: int = 30,
     step_tol: float = 1e-4,
+    sums: list[np.ndarray] | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Count-weighted logistic fits of many resamples at once (Newton's method, batched).
 
@@ -93,38 +94,42 @@ def batched_logistic(
     quadratic the remaining error is of order step_tol squared (about 1e-8,
     far below the Monte Carlo error of a bootstrap interval). Returns
     (coefficients B x k, mean of p(1-p), mean of y, usable mask), the means
-    weighted by the counts and taken at the final coefficients.
+    weighted by the counts and taken at the final coefficients. ``sums``
+    may give, per cell, the count-weighted sums [C y x~ (k), C y, C] (B x k+2)
+    when they are known already.
     """
     beta = start.copy()
     B, k = beta.shape
     a, b = np.triu_indices(k)
     prep = []
-    for X, y, C, _ in cells:
+    for i, (X, y, C, _) in enumerate(cells):
         feats = np.column_stack([X[:, a] * X[:, b], np.ones(len(X))])
-        const = C @ np.column_stack([X * y[:, None], y, np.ones(len(X))])  # sum C y x, sum C y, sum C
+        if sums is not None:
+            const = sums[i]
+        else:  # sum C y x, sum C y, sum C
+            const = C @ np.column_stack([X * y[:, None], y, np.ones(len(X))])
         prep.append((feats, const, np.empty(C.shape), np.empty(C.shape), np.ascontiguousarray(X.T)))
     ok = np.ones(B, dtype=bool)
     eye = np.eye(k)
 
-    def predict(XT, T, out):
-        """Linear predictors of every resample (B x n) into ``out``."""
-        theta = np.einsum("bak,ba->bk", T, beta)
+    def predict_negative(XT, T, out):
+        """Minus the linear predictors of every resample (B x n), into ``out``."""
+        theta = np.einsum("bak,ba->bk", T, -beta)
         np.matmul(theta, XT, out=out)
         return out
 
-    def sigmoid(eta):
-        """1 / (1 + exp(-eta)) in place (numpy's vectorized exp is faster than expit here)."""
-        np.negative(eta, out=eta)
+    def sigmoid_of_negative(neg_eta):
+        """1 / (1 + exp(-eta)) in place from -eta (numpy's vectorized exp is faster than expit here)."""
         with np.errstate(over="ignore"):
-            np.exp(eta, out=eta)
-        eta += 1.0
-        return np.reciprocal(eta, out=eta)
+            np.exp(neg_eta, out=neg_eta)
+        neg_eta += 1.0
+        return np.reciprocal(neg_eta, out=neg_eta)
 
     for _ in range(max_iter):
         H = np.zeros((B, k, k))
         g = np.zeros((B, k))
         for (X, _, C, T), (feats, const, buf, cp, XT) in zip(cells, prep):
-            p = sigmoid(predict(XT, T, buf))
+            p = sigmoid_of_negative(predict_negative(XT, T, buf))
             np.multiply(C, p, out=cp)  # C p
             gz = const[:, :k] - cp @ X  # sum C (y - p) x
             np.multiply(cp, p, out=buf)
@@ -159,9 +164,9 @@ def batched_logistic(
     y_sum = np.zeros(B)
     n_sum = np.zeros(B)
     for (_, _, C, T), (_, const, buf, cp, XT) in zip(cells, prep):
-        eta = predict(XT, T, buf)
-        ok &= np.abs(eta).max(axis=1, initial=0.0) < ETA_LIMIT
-        p = sigmoid(eta)
+        neg_eta = predict_negative(XT, T, buf)
+        ok &= np.abs(neg_eta).max(axis=1, initial=0.0) < ETA_LIMIT
+        p = sigmoid_of_negative(neg_eta)
         np.multiply(p, p, out=cp)
         np.subtract(p, cp, out=cp)  # p (1 - p)
         pq_sum += np.einsum("bn,bn->b", C, cp)

@@ -17,7 +17,15 @@ import numpy as np
 
 from analysis.cells import Prepared
 from analysis.logistic import Separation, batched_logistic, fit_logistic
-from analysis.moments import FeatureMatrix, MultiMoments, batched_solve, multi_moments, opp_sums, single_sums
+from analysis.moments import (
+    FeatureMatrix,
+    MultiMoments,
+    batched_solve,
+    multi_moments,
+    opp_sums,
+    single_sums,
+    unpack_multi,
+)
 from analysis.point import stack, with_intercept
 from analysis.quadratic import canonical_axes, gamma_matrix, quad_pairs, quad_terms
 
@@ -179,6 +187,14 @@ class SeasonResampler:
         for i in range(self.p):
             out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
 
+    def logit_sums(self, f, c, moments) -> np.ndarray:
+        """[sum C y x~, sum C y, sum C] of a cell's complete cases, from the linear-model moments."""
+        part = self.parts[c][(f, "multi")]
+        k = 1 + self.p
+        Mz, vz, _ = unpack_multi(moments[c][:, part.cols], k + len(quad_pairs(self.p)))
+        yx = vz[:, :k] * part.w0  # W~ = W / w0
+        return np.column_stack([yx, yx[:, 0], Mz[:, 0, 0]])
+
     def boot_logistic(self, f, site, cs, counts, mm, moments, out):
         k = 1 + self.p
         a, b = np.triu_indices(k)
@@ -206,7 +222,7 @@ class SeasonResampler:
         ok = np.logical_and.reduce([mm[c].ok for c in cs])
         start = beta0 + batched_solve(H, g, ok)
         start[~np.isfinite(start)] = 0.0
-        beta, mean_pq, mean_w, ok2 = batched_logistic(cells, start)
+        beta, mean_pq, mean_w, ok2 = batched_logistic(cells, start, sums=[self.logit_sums(f, c, moments) for c in cs])
         ok &= ok2
         grad = beta[:, 1:] * (mean_pq / mean_w)[:, None]
         grad[~ok] = np.nan
