@@ -403,3 +403,23 @@ async def test_flags_correct_a_value(study, write_batch, hopper_rows):
                                                    for f in app.snapshot.flags), what="the correction")
         frame = app.snapshot.frame
         assert frame.loc[frame["tag"] == tag, "tibia"].item() == pytest.approx(1.74)
+
+
+async def test_intake_names_an_unreadable_file_in_one_sentence(filled, tmp_path):
+    junk = tmp_path / "photo.csv"
+    junk.write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(range(256)) * 20)
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("1")
+        await pilot.press("slash")
+        app.screen.query_one("#intake-path").value = str(junk)
+        await pilot.press("enter")
+        await wait_for(app, pilot, lambda: app.screen.checked is not None or bool(app.error), what="the check")
+        text = screen_text(app)
+        assert "photo.csv" in text and "Traceback" not in text
+        result = app.screen.checked
+        assert result is not None and result.outcome == "refused" and result.message
+        await pilot.press("i")
+        await pilot.pause()
+        assert len(filled.store.batches()) == 4       # nothing stored
