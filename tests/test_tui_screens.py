@@ -322,6 +322,14 @@ async def test_seasons_show_each_season_and_the_batch_trend(filled, size):
         await pilot.press("v")
         await pilot.pause()
         assert "after each batch" in screen_text(app) and "needs about" in screen_text(app)
+        await pilot.press("n")                           # the wanted interval width, typed
+        for key in ("ctrl+u", "0", "full_stop", "1"):
+            await pilot.press(key)
+        await pilot.pause()
+        from analysis.planning import individuals_for_gradient
+
+        need = individuals_for_gradient(0.05, last["se"] ** 2 * (int(last["n"]) - 3), 1.0, 2)
+        assert f"0.100 wide needs about {need} individuals" in screen_text(app)
 
 
 async def test_help_lists_the_keys_of_the_current_screen(filled):
@@ -368,6 +376,14 @@ async def test_command_palette_offers_the_main_actions(filled):
         await pilot.press("enter")
         await pilot.pause(0.3)
         assert app.current_mode == "flags"
+        await pilot.press("ctrl+p")
+        await pilot.pause()
+        for ch in "by path":
+            await pilot.press("space" if ch == " " else ch)
+        await pilot.pause(0.3)
+        await pilot.press("enter")
+        await pilot.pause(0.3)
+        assert app.current_mode == "intake" and app.focused is app.screen.query_one("#intake-path")
 
 
 async def test_intake_skips_files_still_being_written(filled):

@@ -29,6 +29,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         Binding("t", "next_site", "Site (trend)", id="sea_site"),
         Binding("s", "next_season", "Season (trend)", id="sea_season"),
         Binding("v", "next_view", "View", id="sea_view"),
+        Binding("n", "focus_width", "Interval width", id="sea_width", show=False),
         Binding("escape", "leave_field", "Leave field", id="sea_leave", show=False),
     ]
 
@@ -62,6 +63,10 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
     def action_next_view(self) -> None:
         tabs = self.query_one("#sea-tabs", TabbedContent)
         tabs.active = "sea-trend" if tabs.active == "sea-across" else "sea-across"
+
+    def action_focus_width(self) -> None:
+        self.query_one("#sea-tabs", TabbedContent).active = "sea-trend"
+        self.query_one("#sea-width", Input).focus()
 
     def action_leave_field(self) -> None:
         self.query_one("#sea-tabs", TabbedContent).focus()
