@@ -35,9 +35,12 @@ CHUNK = 200  # resamples per chunk: bounds memory to CHUNK x cell size numbers
 
 def draw_counts(rng: np.random.Generator, n: int, size: int) -> np.ndarray:
     """How often each of ``n`` individuals is drawn in each of ``size`` resamples of n draws (size x n)."""
-    idx = rng.integers(0, n, size=(size, n))
-    idx += (np.arange(size) * n)[:, None]
-    return np.bincount(idx.ravel(), minlength=size * n).reshape(size, n).astype(np.float64)
+    # small integer draws and one bincount per resample: about twice as fast as one big bincount
+    idx = rng.integers(0, n, size=(size, n), dtype=np.uint16 if n <= np.iinfo(np.uint16).max else np.uint32)
+    out = np.empty((size, n))
+    for b in range(size):
+        out[b] = np.bincount(idx[b], minlength=n)
+    return out
 
 
 def counts_from_indices(indices: np.ndarray, n: int) -> np.ndarray:
