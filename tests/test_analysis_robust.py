@@ -213,3 +213,18 @@ def test_permutation_p_value_is_close_to_the_ols_t_test():
     s = estimate_table(strong, Design(traits=("z",), fitness={"W": "continuous"}, groups=()),
                        bootstrap=0, permutations=999).table
     assert s[s.quantity == "gradient"].p_value.iloc[0] == pytest.approx(1 / 1000)
+
+
+BOOT_REF = estimate_table(BASE, GRAD_DESIGN, bootstrap=200, permutations=100).table
+
+
+@settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(c=st.floats(1e-3, 1e3), d=st.floats(-1e4, 1e4), k=st.floats(1e-3, 1e3))
+def test_intervals_and_p_values_do_not_depend_on_units_or_fitness_scale(c, d, k):
+    """Same seed, same resamples: a change of units moves nothing on the standardized scale (Lande & Arnold 1983)."""
+    f = BASE.assign(size=BASE["size"] * c + d, clutch=BASE["clutch"] * k)
+    t = estimate_table(f, GRAD_DESIGN, bootstrap=200, permutations=100).table
+    keep = BOOT_REF.quantity.isin(["gradient", "quadratic", "correlational", "canonical", "differential_std"])
+    cols = ["ci_low", "ci_high", "p_value"]
+    pd.testing.assert_frame_equal(t[keep][cols].reset_index(drop=True), BOOT_REF[keep][cols].reset_index(drop=True),
+                                  rtol=1e-6, atol=1e-9)
