@@ -249,6 +249,7 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
                 errors.append(RowError(int(rows[pos]), col, value, _odd_character(value) or reason))
 
     errors.extend(_rule_errors(protocol, typed, text, rows))
+    errors.extend(_group_errors(protocol, roles, text, rows, sheet.name))
     position = {c: i for i, c in enumerate(frame.columns)}
     errors.sort(key=lambda e: (e.row, position.get(e.column, -1)))
     bad_rows = sorted({e.row for e in errors})
@@ -263,6 +264,18 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
     flags = _flags(protocol, roles, valid, text, good)
     census = not roles.traits and bool(roles.components)
     return CheckReport(sheet=sheet, valid=valid, errors=errors, flags=flags, bad_rows=bad_rows, census=census)
+
+
+def _group_errors(protocol: Protocol, roles: _Roles, text: dict[str, pd.Series], rows: np.ndarray,
+                  label: str) -> list[RowError]:
+    """A measured row must name its cell: a group column present in the sheet may not be blank there."""
+    if not roles.traits:
+        return []     # a census or parent list completes individuals already placed in a cell
+    out = []
+    for g in roles.groups:
+        for pos in np.flatnonzero(text[g].isna().to_numpy()):
+            out.append(RowError(int(rows[pos]), g, "", f"is blank; a measured individual needs its {g}: fill it in"))
+    return out
 
 
 def _rule_errors(protocol: Protocol, typed: dict[str, pd.Series], text: dict[str, pd.Series],

@@ -381,3 +381,12 @@ def test_look_alike_characters_in_numbers_are_named(value, name):
     report = check([f"R1,2025,{value}"], "ring,year,elytra")
     assert errors_of(report) == [(2, "elytra", value)]
     assert name in report.errors[0].reason
+
+
+def test_measured_row_without_its_group_is_a_hard_error():
+    # A measured individual must belong to an estimation cell (intake spec: cells are season x group).
+    report = check([GOOD[0], "R020,2025,,5.5,1.2,1,4,0.5,,"])
+    assert errors_of(report) == [(3, "field", "")]
+    assert "fill it in" in report.errors[0].reason
+    census = check(["R001,2025,1,4"], header="ring,year,survived,clutch")
+    assert census.errors == [] and census.census
