@@ -30,7 +30,8 @@ def scatter_data(snap: Snapshot, season: str, site: str, fitness: str, trait: st
         frame = add_totals(frame, design)
     if fitness not in frame.columns:
         return [], [], []
-    groups = [frame] if site != ALL or not snap.site_col else [g for _, g in frame.groupby(snap.site_col)]
+    cols = list(snap.protocol.groups)
+    groups = [frame] if site != ALL or not cols else [g for _, g in frame.groupby(cols)]
     xs, ws = [], []
     for g in groups:
         z = g[trait].to_numpy(dtype=float)

@@ -117,8 +117,11 @@ class Snapshot:
         if f is None or f.empty:
             return f
         f = f[f[self.protocol.season_col].astype(str) == str(season)]
-        if site != ALL and self.site_col:
-            f = f[f[self.site_col].astype(str) == str(site)]
+        groups = list(self.protocol.groups)
+        if site != ALL and groups:
+            # a cell is named by its group values joined with "/" (as the estimators name it)
+            key = f[groups].astype(str).agg("/".join, axis=1) if len(groups) > 1 else f[groups[0]].astype(str)
+            f = f[key == str(site)]
         return f
 
     def missing_fitness(self, season: str, site: str, fitness: str) -> int:

@@ -72,7 +72,8 @@ class FlagsScreen(StudyScreen):
 
     def site_of(self, snap: Snapshot, flag: dict) -> str:
         rec = self.record_of(snap, flag)
-        return "" if rec is None or not snap.site_col else str(rec[snap.site_col])
+        groups = snap.protocol.groups
+        return "" if rec is None or not groups else "/".join(str(rec[g]) for g in groups)
 
     def show(self, snap: Snapshot) -> None:
         flags = [dict(f) for f in snap.flags if is_open(f) != self.history]
