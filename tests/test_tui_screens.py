@@ -120,6 +120,11 @@ async def test_selection_table_matches_the_estimates_and_switches(filled, size):
         await pilot.press("s")                         # next season wraps to 2024
         await pilot.pause()
         assert c.season == "2024" and shown_beta("tibia") == table_beta("2024", "all", "total", "tibia")
+        await pilot.press("S")                         # and back
+        await pilot.pause()
+        assert c.season == "2025"
+        await pilot.press("s")
+        await pilot.pause()
         await pilot.press("t")                         # pooled -> first site
         await pilot.pause()
         assert c.site == "Gull Flat" and shown_beta("wing") == table_beta("2024", "Gull Flat", "total", "wing")
@@ -439,3 +444,26 @@ async def test_intake_names_an_unreadable_file_in_one_sentence(filled, tmp_path)
         await pilot.press("i")
         await pilot.pause()
         assert len(filled.store.batches()) == 4       # nothing stored
+
+
+async def test_flags_keep_a_whole_group_with_one_reason(study, write_batch, hopper_rows):
+    rows = hopper_rows("2025", "Gull Flat", n=30, seed=13)
+    for i in (2, 9, 17):
+        rows[i]["wing"] = "6.4"                          # just over 6 mm: a new ruler reads long
+    study.store.import_file(write_batch(rows, "long.csv"), operator="test")
+    ids = {f.id for f in study.store.flags() if f.kind == "out_of_range"}
+    assert len(ids) == 3
+    app = make_app(study.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("2")
+        await pilot.pause()
+        await pilot.press("K")
+        await pilot.pause()
+        assert "Keep all 3 out_of_range flags of batch 1 at Gull Flat" in screen_text(app)
+        app.screen.query_one("#form-reason").value = "checked: large animals this week"
+        await pilot.press("ctrl+s")
+        await wait_for(app, pilot, lambda: not any(f["status"] == "open" and f["kind"] == "out_of_range"
+                                                   for f in app.snapshot.flags), what="the group kept")
+        kept = [f for f in study.store.flags(include_resolved=True) if f.id in ids]
+        assert {f.status for f in kept} == {"keep"} and {f.reason for f in kept} == {"checked: large animals this week"}

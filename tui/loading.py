@@ -170,13 +170,15 @@ def demo_study():
     return target, demo.demo_feed(target)
 
 
-def resolve_flag(study_dir: Path, flag_id: int, action: str, value: str | None, reason: str, operator: str):
-    """Keep, exclude or correct one flag (its own writing connection); returns the store's Resolution."""
+def resolve_flags(study_dir: Path, flag_ids: list[int], action: str, value: str | None, reason: str,
+                  operator: str) -> list:
+    """Keep, exclude or correct flags (its own writing connection); returns the store's Resolutions."""
     from schemas.study import Study
 
     study = Study.open(study_dir)
     try:
-        return study.store.resolve_flag(flag_id, action=action, value=value, reason=reason, operator=operator)
+        return [study.store.resolve_flag(i, action=action, value=value, reason=reason, operator=operator)
+                for i in flag_ids]
     finally:
         _close(study)
 

@@ -36,6 +36,9 @@ class FlagsScreen(StudyScreen):
         Binding("e", "resolve('exclude')", "Exclude", id="flag_exclude"),
         Binding("c", "resolve('set')", "Correct", id="flag_correct"),
         Binding("h", "toggle_history", "History", id="flag_history"),
+        Binding("K", "resolve_group('keep')", "Keep the whole group", id="flag_keep_group", show=False),
+        Binding("E", "resolve_group('exclude')", "Exclude the whole group", id="flag_exclude_group",
+                show=False),
     ]
 
     @dataclass
@@ -147,38 +150,64 @@ class FlagsScreen(StudyScreen):
         if self.app.snapshot is not None:
             self.show(self.app.snapshot)
 
-    def action_resolve(self, action: str) -> None:
+    TEXTS = {"keep": "The value stays in the estimates as it is.",
+             "exclude": "The value (or record) is left out of the estimates; it stays stored.",
+             "set": "The new value is used from now on; the old one stays in the history."}
+    VERBS = {"keep": "Keep", "exclude": "Exclude", "set": "Correct"}
+
+    def _picked(self) -> dict | None:
         table = self.query_one("#flags-table", DataTable)
         if self.history or not self.rows or not (0 <= table.cursor_row < len(self.rows)):
             self.app.notify("Pick an open flag first.", severity="warning")
-            return
+            return None
         if self.app.readonly:
             self.app.notify("The store is read-only now; flags cannot be resolved.", severity="warning")
+            return None
+        return self.rows[table.cursor_row]
+
+    def action_resolve(self, action: str) -> None:
+        flag = self._picked()
+        if flag is None:
             return
-        flag = self.rows[table.cursor_row]
-        verb = {"keep": "Keep", "exclude": "Exclude", "set": "Correct"}[action]
         what = f"{flag.get('individual')} {flag.get('field') or 'record'} = {flag.get('value')!s} ({flag.get('kind')})"
         fields = [("reason", "Reason", "")]
         if action == "set":
             fields.insert(0, ("value", "New value", str(flag.get("value") or "")))
         required = ("reason", "value") if action == "set" else ("reason",)
-        text = {"keep": "The value stays in the estimates as it is.",
-                "exclude": "The value (or record) is left out of the estimates; it stays stored.",
-                "set": "The new value is used from now on; the old one stays in the history."}[action]
 
         def done(values: dict | None) -> None:
             if values:
-                self._resolve_worker(self.app.study_dir, int(flag["id"]), action, values.get("value"), values["reason"])
+                self._resolve_worker(self.app.study_dir, [int(flag["id"])], action, values.get("value"),
+                                     values["reason"])
 
-        self.app.push_screen(FormScreen(f"{verb}: {what}", text, fields, required), done)
+        self.app.push_screen(FormScreen(f"{self.VERBS[action]}: {what}", self.TEXTS[action], fields, required), done)
+
+    def action_resolve_group(self, action: str) -> None:
+        """Keep or exclude every open flag of the highlighted group (same kind, site and batch)."""
+        flag = self._picked()
+        if flag is None:
+            return
+        group = (flag.get("kind"), flag["_site"], flag.get("batch_id"))
+        ids = [int(f["id"]) for f in self.rows if (f.get("kind"), f["_site"], f.get("batch_id")) == group]
+        title = (f"{self.VERBS[action]} all {len(ids)} {group[0]} flags of batch {group[2]}"
+                 + (f" at {group[1]}" if group[1] else ""))
+
+        def done(values: dict | None) -> None:
+            if values:
+                self._resolve_worker(self.app.study_dir, ids, action, None, values["reason"])
+
+        self.app.push_screen(FormScreen(title, self.TEXTS[action] + " One reason is recorded for each flag.",
+                                        [("reason", "Reason", "")], ("reason",)), done)
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="flags-resolve")
-    def _resolve_worker(self, study_dir: Path, flag_id: int, action: str, value: str | None, reason: str) -> None:
-        from tui.loading import resolve_flag
+    def _resolve_worker(self, study_dir: Path, flag_ids: list[int], action: str, value: str | None,
+                        reason: str) -> None:
+        from tui.loading import resolve_flags
 
-        res = resolve_flag(study_dir, flag_id, action, value, reason, operator_name())
-        msg = getattr(res, "message", "") or f"Flag {flag_id}: {action} recorded."
-        self.post_message(self.Resolved(msg))
+        results = resolve_flags(study_dir, flag_ids, action, value, reason, operator_name())
+        msg = (getattr(results[0], "message", "") if len(results) == 1 else
+               f"{len(results)} flags: {action} recorded with the reason given.")
+        self.post_message(self.Resolved(msg or f"{action} recorded."))
 
     def on_flags_screen_resolved(self, msg: Resolved) -> None:
         self.app.notify(msg.text, timeout=4)

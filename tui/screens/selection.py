@@ -36,7 +36,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
     TITLE_TEXT = "Selection"
     BINDINGS = [
         Binding("s", "next_season", "Season", id="sel_season"),
-        Binding("shift+s", "prev_season", "Previous season", id="sel_season_prev", show=False),
+        Binding("S", "prev_season", "Previous season", id="sel_season_prev", show=False),
         Binding("t", "next_site", "Site", id="sel_site"),
         Binding("w", "next_fitness", "Fitness", id="sel_fitness"),
         Binding("x", "next_trait", "Trait", id="sel_trait"),
