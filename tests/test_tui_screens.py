@@ -467,3 +467,27 @@ async def test_flags_keep_a_whole_group_with_one_reason(study, write_batch, hopp
                                                    for f in app.snapshot.flags), what="the group kept")
         kept = [f for f in study.store.flags(include_resolved=True) if f.id in ids]
         assert {f.status for f in kept} == {"keep"} and {f.reason for f in kept} == {"checked: large animals this week"}
+
+
+async def test_canonical_axes_shown_are_eigenvectors_of_the_tables_gamma(filled):
+    """Each axis m_i shown satisfies γ·m_i = λ_i·m_i with γ and λ from the table (checked with numpy)."""
+    import re
+
+    import numpy as np
+
+    app = make_app(filled.root)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        snap, key = app.snapshot, dict(season="2025", site="all", fitness="total")
+        g = np.array([[snap.value(**key, quantity="quadratic", term="wing^2")["estimate"],
+                       snap.value(**key, quantity="correlational", term="wing:tibia")["estimate"]],
+                      [snap.value(**key, quantity="correlational", term="wing:tibia")["estimate"],
+                       snap.value(**key, quantity="quadratic", term="tibia^2")["estimate"]]])
+        text = screen_text(app)
+        for i in (1, 2):
+            m = re.search(rf"m{i} = ([+-][0-9.]+)·wing ([+-][0-9.]+)·tibia", text)
+            assert m, text
+            v = np.array([float(m.group(1)), float(m.group(2))])
+            lam = snap.value(**key, quantity="canonical", term=f"m{i}")["estimate"]
+            assert np.allclose(g @ v, lam * v, atol=0.02)
+            assert np.isclose(np.linalg.norm(v), 1, atol=0.02)

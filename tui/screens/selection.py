@@ -15,21 +15,48 @@ from tui.snapshot import Snapshot
 from tui.widgets.pictures import fmt, scatter_picture, surface_picture
 
 
-def ci_text(row: dict | None) -> str:
+def ci_text(row: dict | None, pending: bool = True) -> str:
+    """The 95 % interval; "…" while the bootstrap is still running, "–" when there is none."""
     if row is None or row["ci_low"] is None or row["ci_high"] is None:
-        return "…"
+        return "…" if pending else "–"
     return f"{fmt(row['ci_low'])}, {fmt(row['ci_high'])}"
 
 
-def p_text(row: dict | None) -> str:
+def p_text(row: dict | None, pending: bool = True) -> str:
     if row is None or row["p_value"] is None:
-        return "…"
+        return "…" if pending else "–"
     p = row["p_value"]
     return "<0.001" if p < 0.001 else f"{p:.3f}"
 
 
 def est_text(row: dict | None) -> str:
     return "–" if row is None else fmt(row["estimate"])
+
+
+def axes_text(snap: Snapshot, key: dict) -> str:
+    """The canonical axes as combinations of the standardized traits (Phillips & Arnold 1989),
+    from the γ of the table through the estimators' own eigen-decomposition."""
+    import numpy as np
+
+    from analysis.quadratic import canonical_axes
+
+    traits = snap.protocol.trait_names
+    p = len(traits)
+    g = np.full((p, p), np.nan)
+    for j, a in enumerate(traits):
+        v = snap.value(**key, quantity="quadratic", term=f"{a}^2")
+        g[j, j] = np.nan if v is None or v["estimate"] is None else v["estimate"]
+        for k in range(j + 1, p):
+            v = snap.value(**key, quantity="correlational", term=f"{a}:{traits[k]}")
+            g[j, k] = g[k, j] = np.nan if v is None or v["estimate"] is None else v["estimate"]
+    if p < 2 or not np.isfinite(g).all():
+        return ""
+    _, vecs = canonical_axes(g)
+    axes = []
+    for i in range(p):
+        col = vecs[:, i] * (1 if vecs[np.argmax(np.abs(vecs[:, i])), i] >= 0 else -1)
+        axes.append(f"m{i + 1} = " + " ".join(f"{c:+.2f}·{t}" for c, t in zip(col, traits)))
+    return "; ".join(axes) + "."
 
 
 class SelectionScreen(ChoiceKeys, StudyScreen):
@@ -113,6 +140,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
     def _tables(self, snap: Snapshot) -> None:
         c = self.choices
         key = dict(season=c.season, site=c.site, fitness=c.fitness)
+        wait = not snap.intervals and self.app.bootstrap > 0
         lin = self.query_one("#sel-linear", DataTable)
         lin.clear()
         for trait in snap.protocol.trait_names:
@@ -120,19 +148,19 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             s_std = snap.value(**key, quantity="differential_std", term=trait)
             b = snap.value(**key, quantity="gradient", term=trait)
             n = b["n"] if b and b["n"] is not None else (s["n"] if s and s["n"] is not None else None)
-            lin.add_row(trait, est_text(s), est_text(s_std), est_text(b), ci_text(b), p_text(b),
+            lin.add_row(trait, est_text(s), est_text(s_std), est_text(b), ci_text(b, wait), p_text(b, wait),
                         "–" if n is None else str(int(n)), key=trait)
         for term in snap.terms(**key, quantity="gradient_logistic"):
             v = snap.value(**key, quantity="gradient_logistic", term=term)
-            lin.add_row(f"{term} (logit β)", "", "", est_text(v), ci_text(v), p_text(v),
+            lin.add_row(f"{term} (logit β)", "", "", est_text(v), ci_text(v, wait), p_text(v, wait),
                         "–" if v["n"] is None else str(int(v["n"])), key=f"logit:{term}")
         gam = self.query_one("#sel-gamma", DataTable)
         gam.clear()
         for quantity, label in (("quadratic", "γ "), ("correlational", "γ "), ("canonical", "λ ")):
             for term in snap.terms(**key, quantity=quantity):
                 v = snap.value(**key, quantity=quantity, term=term)
-                gam.add_row(label + str(term), est_text(v), ci_text(v) if quantity != "canonical" else "",
-                            p_text(v) if quantity != "canonical" else "", key=f"{quantity}:{term}")
+                gam.add_row(label + str(term), est_text(v), ci_text(v, wait) if quantity != "canonical" else "",
+                            p_text(v, wait) if quantity != "canonical" else "", key=f"{quantity}:{term}")
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
         parts: list[tuple[str, str]] = []
         kept = snap.extras.get("gradient_with_outliers")
@@ -140,7 +168,8 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             shown = [f"{t} {fmt(kept[(c.season, c.site, c.fitness, t)])}" for t in snap.protocol.trait_names
                      if (c.season, c.site, c.fitness, t) in kept]
             parts.append(("β with the open outliers kept in: " + (", ".join(shown) or "none") + ". ", "$warning"))
-        parts.append(("λ: canonical axes (eigenvalues of γ). ", "$text-muted"))
+        parts.append(("λ: eigenvalues of γ; ", "$text-muted"))
+        parts.append((axes_text(snap, key) + " ", "$text-muted"))
         self.query_one("#sel-notes", Static).update(Content.assemble(*parts, *[(n + " ", "$text-muted") for n in notes]))
 
     @on(TabbedContent.TabActivated, "#sel-tabs")
