@@ -491,3 +491,24 @@ async def test_canonical_axes_shown_are_eigenvectors_of_the_tables_gamma(filled)
             lam = snap.value(**key, quantity="canonical", term=f"m{i}")["estimate"]
             assert np.allclose(g @ v, lam * v, atol=0.02)
             assert np.isclose(np.linalg.norm(v), 1, atol=0.02)
+
+
+async def test_beta_on_screen_equals_an_ols_fit_by_statsmodels(filled):
+    """End to end, store to screen: β of one cell is the OLS coefficient of relative fitness on the
+    standardized traits (Lande & Arnold 1983, Evolution 37:1210-1226), here fitted with statsmodels."""
+    import statsmodels.api as sm
+
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("s", "t")                  # season 2024, site Gull Flat
+        await pilot.pause()
+        frame = app.snapshot.frame
+        cell = frame[(frame["season"] == "2024") & (frame["site"] == "Gull Flat")]
+        W = (cell["survived"] * cell["clutch"]).to_numpy(dtype=float)
+        z = cell[["wing", "tibia"]].to_numpy(dtype=float)
+        x = (z - z.mean(axis=0)) / z.std(axis=0, ddof=1)
+        fit = sm.OLS(W / W.mean(), sm.add_constant(x)).fit()
+        table = app.screen.query_one("#sel-linear")
+        for j, trait in enumerate(("wing", "tibia")):
+            assert str(table.get_row(trait)[3]) == fmt(fit.params[j + 1])
