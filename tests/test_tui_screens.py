@@ -170,7 +170,13 @@ async def test_live_update_after_another_connection_imports(filled, write_batch,
         assert app.snapshot.generation > before.generation
         assert "5 batches" in screen_text(app)
         assert "2026" in app.snapshot.seasons()
-        assert app.screen.choices.season == "2025"     # what the user was looking at stays
+        assert app.screen.choices.season == "2026"     # no season picked yet: the latest is followed
+        await pilot.press("s")                         # a season picked by the user stays picked
+        await pilot.pause()
+        picked = app.screen.choices.season
+        await pilot.press("ctrl+r")
+        await wait_for(app, pilot, lambda: app.snapshot.generation > before.generation + 1 and ready(app))
+        assert app.screen.choices.season == picked != "2026"
 
 
 async def test_sensitivity_toggle_recomputes_without_open_outliers(study, write_batch, hopper_rows):

@@ -128,7 +128,7 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
 
     study = Study.open(study_dir, readonly=True)
     out: list[dict] = []
-    previous = None
+    previous = last_figures = None
     try:
         store = study.store
         ids = [b["id"] for b in records(store.batches()) if b.get("outcome", "stored") != "refused"]
@@ -144,6 +144,10 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
             previous = sub
             t = estimates_for_frame(sub, protocol, bootstrap=0).table
             t = t[(t["season"] == season) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")]
+            figures = t[["site", "term", "estimate", "se", "n"]].to_numpy().tolist()
+            if figures == last_figures:
+                continue                       # the batch changed nothing these gradients use
+            last_figures = figures
             for row in t.itertuples(index=False):
                 se = row.se if row.se == row.se else None
                 out.append({"batch": k, "site": row.site, "trait": row.term, "estimate": row.estimate,

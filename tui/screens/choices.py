@@ -15,12 +15,19 @@ class Choices:
         self.site: str | None = None
         self.fitness: str | None = None
         self.trait = 0
+        self.season_picked = False
 
     def settle(self, snap: Snapshot) -> None:
-        """Keep each choice if the snapshot still has it, else take the latest season, pooled, the total."""
+        """Keep each choice if the snapshot still has it, else take the latest season, pooled, the total.
+
+        Until the user picks a season, the latest one is followed as new seasons arrive.
+        """
         seasons = snap.seasons()
-        if self.season not in seasons:
-            self.season = seasons[-1] if seasons else None
+        latest = seasons[-1] if seasons else None
+        if self.season not in seasons or not self.season_picked:
+            if self.season != latest:
+                self.site = None
+            self.season = latest
         sites = snap.sites(self.season) if self.season else []
         if self.site not in sites:
             self.site = sites[0] if sites else None
@@ -67,6 +74,7 @@ class ChoiceKeys:
         setattr(self.choices, attr, Choices.step(options, getattr(self.choices, attr), step))
         if attr == "season":
             self.choices.site = None
+            self.choices.season_picked = True
         self._redraw()
 
     def _redraw(self) -> None:
