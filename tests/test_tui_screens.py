@@ -518,3 +518,20 @@ async def test_beta_on_screen_equals_an_ols_fit_by_statsmodels(filled):
         table = app.screen.query_one("#sel-linear")
         for j, trait in enumerate(("wing", "tibia")):
             assert str(table.get_row(trait)[3]) == fmt(fit.params[j + 1])
+
+
+async def test_missing_fitness_counts_the_dead_as_measured(study, write_batch, hopper_rows):
+    """A total is 0 for an individual that died, even without a clutch count; only truly unknown
+    totals are missing (the estimators' rule in analysis.fitness.add_totals)."""
+    rows = hopper_rows("2025", "Gull Flat", n=30, seed=31)
+    dead = [r for r in rows if r["survived"] == 0][:3]
+    alive = [r for r in rows if r["survived"] == 1][:2]
+    for r in dead + alive:
+        r["clutch"] = ""                                 # clutch not counted
+    study.store.import_file(write_batch(rows, "b.csv"), operator="test")
+    app = make_app(study.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        assert app.snapshot.missing_fitness("2025", "Gull Flat", "total") == 2
+        assert app.snapshot.missing_fitness("2025", "Gull Flat", "clutch") == 5
+        assert "missing fitness 2" in screen_text(app)

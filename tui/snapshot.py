@@ -125,15 +125,16 @@ class Snapshot:
         return f
 
     def missing_fitness(self, season: str, site: str, fitness: str) -> int:
-        """Individuals of the cell lacking this fitness value (all its components, for a total)."""
+        """Individuals of the cell lacking this fitness value (a total as the estimators form it)."""
         f = self.cell_frame(season, site)
         if f is None or f.empty:
             return 0
-        parts = self.protocol.totals.get(fitness, (fitness,))
-        cols = [c for c in parts if c in f.columns]
-        if not cols:
-            return len(f)
-        return int(f[cols].isna().any(axis=1).sum())
+        if fitness in self.protocol.totals:
+            from analysis.fitness import add_totals
+            from tui.bridge import design_from_protocol
+
+            f = add_totals(f, design_from_protocol(self.protocol))
+        return int(f[fitness].isna().sum()) if fitness in f.columns else len(f)
 
     def notes_for(self, season: str, site: str, fitness: str) -> list[str]:
         """The estimators' notes about one cell (and its pooled estimate) for one fitness measure."""
