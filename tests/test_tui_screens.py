@@ -535,3 +535,18 @@ async def test_missing_fitness_counts_the_dead_as_measured(study, write_batch, h
         assert app.snapshot.missing_fitness("2025", "Gull Flat", "total") == 2
         assert app.snapshot.missing_fitness("2025", "Gull Flat", "clutch") == 5
         assert "missing fitness 2" in screen_text(app)
+
+
+async def test_a_store_that_vanishes_and_returns_is_reported_then_cleared(filled):
+    db = filled.root / "fieldslope.sqlite"
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        hidden = db.with_name("hidden.sqlite")
+        app._poller = None                          # as after a restart of the poll connection
+        db.rename(hidden)
+        await wait_for(app, pilot, lambda: bool(app.error), what="the error")
+        assert "!" in screen_text(app) and "Traceback" not in screen_text(app)
+        hidden.rename(db)
+        await wait_for(app, pilot, lambda: not app.error, timeout=15, what="the error cleared")
+        assert "4 batches" in screen_text(app)

@@ -159,6 +159,7 @@ class FieldslopeApp(App):
         self.generation = 0
         self.version_seen: int | None = None
         self._poll_pending = False
+        self._poll_failed = False
         self._poll_executor = None
         self._poller = None
         self.stop = threading.Event()        # set on exit: background loops end
@@ -259,6 +260,10 @@ class FieldslopeApp(App):
         self.post_message(Polled(version))
 
     def on_polled(self, msg: Polled) -> None:
+        if self._poll_failed:                  # the store answers again: the poll's error is over
+            self._poll_failed = False
+            self.error = ""
+            self.refresh_status()
         if msg.version != self.version_seen:
             self.timings["poll_saw_change"] = time.perf_counter()
             self.version_seen = msg.version
@@ -371,6 +376,7 @@ class FieldslopeApp(App):
         elif group == "poll":
             # try again after a pause, so a locked or vanished store does not end live refresh
             self._poller = None
+            self._poll_failed = True
             self.schedule_poll(2.0)
         if hasattr(self.screen, "worker_failed"):
             self.screen.worker_failed(group, text)
