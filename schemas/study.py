@@ -8,7 +8,7 @@ import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
-from schemas.errors import FieldslopeError, StoreError
+from schemas.errors import FieldslopeError
 from schemas.protocol import Protocol, load_protocol
 from schemas.store import Progress, Store
 from schemas.store_types import ImportResult

@@ -20,9 +20,6 @@ ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_season"
 
 
-from demo_season import generate as gen
-
-
 def _cells(data: bytes) -> list[tuple]:
     from openpyxl import load_workbook
 

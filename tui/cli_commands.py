@@ -9,7 +9,7 @@ from dataclasses import replace
 from pathlib import Path
 
 from schemas.errors import FieldslopeError, SheetError
-from schemas.study import Study, is_study, resolve_study_dir
+from schemas.study import Study, resolve_study_dir
 from tui import cli_format as fmt
 
 
@@ -195,10 +195,8 @@ def demo(args) -> int:
 
 def dashboard(args) -> int:
     root = resolve_study_dir(args.study)
-    if not is_study(root):
-        raise FieldslopeError(f"{root}: no study here; create one with fieldslope init DIR --protocol FILE, "
-                              "pick one with --study DIR, or try fieldslope demo.")
     from tui.app import run_app
 
+    # Without a study here the app opens its start screen: create one from a protocol, open one, or the demo.
     run_app(root)
     return 0
