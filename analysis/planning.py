@@ -7,6 +7,8 @@ import math
 import numpy as np
 from scipy import stats
 
+from analysis.errors import EstimationError
+
 
 def variance_inflation(correlation: np.ndarray) -> np.ndarray:
     """Variance inflation factor of each trait: the diagonal of the inverse trait correlation matrix."""
@@ -25,8 +27,11 @@ def individuals_for_gradient(
     Starts from the normal-theory lower bound and steps up to the smallest n
     that is narrow enough.
     """
-    if half_width <= 0 or residual_variance <= 0 or vif < 1 - 1e-9:
-        raise ValueError("half width and residual variance must be positive and VIF at least 1")
+    for name, value, low in (("interval half width", half_width, 0.0), ("residual variance", residual_variance, 0.0)):
+        if not (math.isfinite(value) and value > low):
+            raise EstimationError(f"The planning {name} is {value}; give a positive number to plan a sample size.")
+    if not (math.isfinite(vif) and vif >= 1 - 1e-9):
+        raise EstimationError(f"The variance inflation factor is {vif}; it is at least 1, so give 1 or more.")
     z = stats.norm.ppf(0.5 + level / 2)
     n = max(n_traits + 3, math.ceil((z / half_width) ** 2 * residual_variance * vif) + n_traits + 1)
     while True:

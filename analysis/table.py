@@ -35,11 +35,11 @@ from threadpoolctl import threadpool_limits
 from analysis.cells import prepare, split_cells
 from analysis.derived import heritabilities, response_rows, temporal_rows
 from analysis.design import Design
+from analysis.errors import EstimationError  # also importable from here, as before
 from analysis.fitness import add_totals, total_kind
 from analysis.permute import SeasonPermuter
 from analysis.point import point_block
 from analysis.resample import SeasonResampler, bootstrap_season, percentile_interval, permute_season
-from schemas.errors import FieldslopeError
 
 COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
 # the default random seed for bootstrap resamples and permutations (same seed, same numbers)
@@ -47,10 +47,6 @@ DEFAULT_SEED = 20260601
 ALL = "all"
 # BLAS threads while resampling (measured faster than several on a shared two-core machine)
 BLAS_THREADS = 1
-
-
-class EstimationError(FieldslopeError):
-    """The data frame does not match the design (a named column is missing)."""
 
 
 @dataclass(frozen=True)

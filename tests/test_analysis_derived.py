@@ -200,3 +200,20 @@ def test_planning_matches_simulated_ols_standard_errors():
         ses.append(sm.OLS(w, sm.add_constant(x)).fit().bse[1])
     half = 1.96 * np.mean(ses)
     assert half == pytest.approx(0.1, rel=0.1)
+
+
+@pytest.mark.parametrize(
+    ("half_width", "variance", "vif", "words"),
+    [(0.0, 0.5, 1.0, "half width"), (-0.1, 0.5, 1.0, "half width"), (0.1, 0.0, 1.0, "residual variance"),
+     (0.1, -2.0, 1.0, "residual variance"), (0.1, float("nan"), 1.0, "residual variance"),
+     (0.1, 0.5, 0.5, "variance inflation")],
+)
+def test_planning_refuses_a_zero_or_negative_input_in_one_sentence(half_width, variance, vif, words):
+    from analysis.errors import EstimationError
+    from schemas.errors import FieldslopeError
+
+    with pytest.raises(EstimationError) as err:
+        individuals_for_gradient(half_width, variance, vif=vif, n_traits=2)
+    assert isinstance(err.value, FieldslopeError)
+    msg = str(err.value)
+    assert words in msg and msg.count(". ") == 0 and msg.endswith(".") and "\n" not in msg
