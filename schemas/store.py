@@ -15,6 +15,7 @@ import json
 import math
 import sqlite3
 import threading
+from dataclasses import replace
 from datetime import datetime, timezone
 from itertools import islice, repeat
 from pathlib import Path
@@ -25,11 +26,13 @@ import pandas as pd
 
 from schemas import effective as eff
 from schemas import store_checks as checks
+from schemas import store_health as health
 from schemas import store_schema as schema
 from schemas.errors import SheetError, StoreError
 from schemas.protocol import Protocol
 from schemas.records import CheckReport, FlagNote, RowError
 from schemas.store_quarantine import QuarantineFix
+from schemas.store_supersede import supersede
 from schemas.store_types import BatchInfo, ImportResult, RecordError, Resolution, StoredFlag
 
 Progress = Callable[[int, int, str], None]
@@ -59,11 +62,19 @@ class Store:
         self._lock = threading.Lock()
         self._conns: list[sqlite3.Connection] = []
         self._writes = 0
+        self.damaged = ""              # one sentence when the open-time check found the store damaged
+        self.checked_on_open = False   # the last session left a -wal behind, so the store was checked
         if not self.path.exists():
             raise StoreError(f"{self.path}: no record store here; create the study with fieldslope init.")
+        unclean = health.needs_check(self.path)
         with self._errors():
             conn = self._conn()
-            if readonly:
+            if unclean:
+                conn = self._check_on_open(conn)
+            if self.damaged:
+                self.fields = self._load_fields(conn)
+                return
+            if self.readonly:
                 version = conn.execute("PRAGMA user_version").fetchone()[0]
                 if version != schema.SCHEMA_VERSION:
                     raise StoreError(f"{self.path}: the store needs an upgrade; open it once without read-only.")
@@ -71,6 +82,20 @@ class Store:
                 schema.migrate(conn, self.path)
                 self._ensure_fields(conn)
             self.fields = self._load_fields(conn)
+
+    def _check_on_open(self, conn: sqlite3.Connection) -> sqlite3.Connection:
+        """After an unclean shutdown: quick_check and foreign_key_check; if damaged, go read-only."""
+        self.checked_on_open = True
+        found = health.problems(conn)
+        if not found:
+            if not self.readonly:
+                health.remember(self.path, None)
+            return conn
+        self.damaged = health.damaged_sentence(self.path, found)
+        health.remember(self.path, self.damaged)
+        self.close()
+        self.readonly = True
+        return self._conn()
 
     @classmethod
     def create(cls, path: str | Path, protocol: Protocol) -> "Store":
@@ -120,16 +145,14 @@ class Store:
                 raise StoreError(f"the disk is full or cannot be written ({self.path.parent}); nothing of this "
                                  "change was stored: free some space and try again.") from None
             if "locked" in text or "busy" in text:
-                raise StoreError("the record store is busy (another fieldslope is writing to it); "
-                                 "try again in a moment.") from None
+                raise StoreError(schema.BUSY_SENTENCE) from None
             if "readonly" in text or "read-only" in text:
                 raise StoreError(f"{self.path}: the record store is read-only for this account; ask for group "
                                  "write access (mode 0660 on the file and its folder).") from None
             raise StoreError(f"{self.path}: the record store failed ({exc}); run fieldslope again, and if it "
                              "persists restore the study from a backup.") from None
         except sqlite3.DatabaseError as exc:
-            raise StoreError(f"{self.path}: the record store is damaged or not a fieldslope database ({exc}); "
-                             "restore it from a backup.") from None
+            raise StoreError(self.damaged or health.damaged_sentence(self.path, [str(exc)], opened=False)) from None
 
     def _read(self, fn):
         """Run ``fn(conn)`` in one short read transaction (a consistent snapshot)."""
@@ -145,6 +168,8 @@ class Store:
 
     def _write(self, fn):
         """Run ``fn(conn)`` in one ``BEGIN IMMEDIATE`` transaction, retrying while another writer holds it."""
+        if self.damaged:
+            raise StoreError(self.damaged)
         if self.readonly:
             raise StoreError("this study was opened read-only; open it without read-only to change it.")
 
@@ -168,6 +193,23 @@ class Store:
         """Changes whenever the record changes (other processes' commits and this store's own)."""
         with self._errors():
             return self._conn().execute("PRAGMA data_version").fetchone()[0] + self._writes
+
+    def writable(self) -> bool:
+        """Can this store write now? A cheap probe (BEGIN IMMEDIATE; ROLLBACK with a 0.1 s wait) for the
+        dashboard's read-only sign: False when opened read-only, damaged, busy or not writable."""
+        if self.readonly or self.damaged:
+            return False
+        try:
+            conn = self._conn()
+            conn.execute("PRAGMA busy_timeout = 100")
+            try:
+                conn.execute("BEGIN IMMEDIATE")
+                conn.execute("ROLLBACK")
+            finally:
+                conn.execute(f"PRAGMA busy_timeout = {int(schema.BUSY_TIMEOUT_S * 1000)}")
+        except sqlite3.Error:
+            return False
+        return True
 
     def integrity_ok(self) -> bool:
         with self._errors():
@@ -227,18 +269,30 @@ class Store:
     def _taken_in(self, sha: str) -> tuple[int, str] | None:
         return self._read(lambda conn: _earlier_batch(conn, sha))
 
-    def check_bytes(self, name: str, data: bytes, accept_valid: bool = False) -> ImportResult:
-        """Run every check an import would run, without writing anything."""
+    def check_bytes(self, name: str, data: bytes, accept_valid: bool = False, recheck: bool = False) -> ImportResult:
+        """Run every check an import would run, without writing anything. Bytes already taken in give
+        outcome ``duplicate``; with ``recheck`` they are checked against the record all the same (a dry
+        run), and ``earlier`` names the batch that took them in."""
         plan = _Plan.make(self.protocol, name, data, lambda *a: None)
-        result = self._read(lambda conn: self._evaluate(conn, plan, accept_valid))
-        return result.result(None, checked_only=True)
 
-    def check_file(self, path: str | Path, accept_valid: bool = False) -> ImportResult:
+        def evaluate(conn):
+            dup = _earlier_batch(conn, plan.sha) if recheck else None
+            out = self._evaluate(conn, plan, accept_valid, recheck=recheck)
+            return out, dup
+        out, dup = self._read(evaluate)
+        result = out.result(None, checked_only=True)
+        if dup:
+            result = replace(result, earlier=f"{name}: these exact bytes were already taken in as batch {dup[0]} "
+                                             f"on {dup[1]}; importing them again would do nothing.")
+        return result
+
+    def check_file(self, path: str | Path, accept_valid: bool = False, recheck: bool = False) -> ImportResult:
         path = Path(path)
-        return self.check_bytes(path.name, _read_file(path), accept_valid=accept_valid)
+        return self.check_bytes(path.name, _read_file(path), accept_valid=accept_valid, recheck=recheck)
 
-    def _evaluate(self, conn: sqlite3.Connection, plan: "_Plan", accept_valid: bool) -> "_Outcome":
-        dup = plan.sha and _earlier_batch(conn, plan.sha)
+    def _evaluate(self, conn: sqlite3.Connection, plan: "_Plan", accept_valid: bool,
+                  recheck: bool = False) -> "_Outcome":
+        dup = plan.sha and not recheck and _earlier_batch(conn, plan.sha)
         if dup:
             return _Outcome(plan, "duplicate", duplicate_of=dup[0], message=_duplicate_message(plan.name, *dup))
         if plan.report is None:
@@ -293,6 +347,7 @@ class Store:
         record_ids = self._insert_records(conn, batch_id, batch_id, out.valid, progress)
         created = now()
         self._insert_flags(conn, batch_id, out.flags, record_ids, created)
+        supersede(conn, self.protocol, batch_id, out.valid, record_ids, created)
         if out.bad_rows:
             QuarantineFix(self).quarantine_rows(conn, batch_id, plan.report, out.errors, out.bad_rows, created)
         progress(1, 1, "stored")
@@ -360,7 +415,7 @@ class Store:
 
     def flags(self, include_resolved: bool = False) -> list[StoredFlag]:
         """Open flags (all with ``include_resolved``), oldest first, each with its latest resolution."""
-        return self._flag_rows("" if include_resolved else "WHERE r.id IS NULL", ())
+        return self._flag_rows("" if include_resolved else "WHERE r.id IS NULL AND s.id IS NULL", ())
 
     def flag(self, flag_id: int) -> StoredFlag:
         for f in self._flag_rows("WHERE f.id = ?", (int(flag_id),)):
@@ -368,11 +423,15 @@ class Store:
         raise RecordError(f"there is no flag {flag_id}; list the flags with fieldslope flags --all.")
 
     def _flag_rows(self, where: str, args: tuple) -> list[StoredFlag]:
+        # a resolution decides the status; without one, a later batch's value makes the flag superseded
         sql = ("SELECT f.id, f.kind, f.individual, f.season, f.field, f.value, f.message, f.batch_id, "
-               "b.file_name, f.row, f.created, coalesce(r.action, 'open'), coalesce(r.operator, ''), "
-               "coalesce(r.created, ''), coalesce(r.reason, ''), coalesce(r.new, ''), "
+               "b.file_name, f.row, f.created, "
+               "coalesce(r.action, CASE WHEN s.id IS NULL THEN 'open' ELSE 'superseded' END), "
+               "coalesce(r.operator, 'batch ' || s.batch_id, ''), coalesce(r.created, s.created, ''), "
+               "coalesce(r.reason, 'a later batch gave a new value', ''), coalesce(r.new, ''), "
                "f.quarantine_id IS NOT NULL FROM flags f JOIN batches b ON b.id = f.batch_id "
                "LEFT JOIN resolutions r ON r.id = (SELECT max(id) FROM resolutions WHERE flag_id = f.id) "
+               "LEFT JOIN supersessions s ON s.id = (SELECT max(id) FROM supersessions WHERE flag_id = f.id) "
                f"{where} ORDER BY f.id")
         rows = self._read(lambda c: c.execute(sql, args).fetchall())
         return [StoredFlag(*r[:16], quarantined=bool(r[16])) for r in rows]

@@ -1,6 +1,10 @@
 """Quarantined rows: rows with hard errors kept (under --accept-valid) with their raw cells,
 visible as flags of kind ``quarantined`` and fixable one cell at a time. When every error
-of a row is fixed, the row joins the record; the corrections stay audited."""
+of a row is fixed, the row joins the record; the corrections stay audited.
+
+Excluding any flag of a quarantined row leaves the whole row out: it never joins, and every
+other flag of that row is closed with the same reason (one ``exclude`` resolution row each).
+A row left out stays out; a corrected row comes back as part of a new batch."""
 
 from __future__ import annotations
 
@@ -60,6 +64,12 @@ class QuarantineFix:
         if joined:
             raise RecordError(f"row {row} of batch {batch_id} has already joined the record; correct its values "
                               "through their own flags.")
+        left_out = conn.execute(
+            "SELECT f.id, r.reason FROM resolutions r JOIN flags f ON f.id = r.flag_id "
+            "WHERE f.quarantine_id = ? AND r.action = 'exclude' ORDER BY r.id LIMIT 1", (qid,)).fetchone()
+        if left_out:
+            raise RecordError(f"row {row} of batch {batch_id} was left out of the record (flag {left_out[0]}: "
+                              f"{left_out[1]}); it cannot join now: take the corrected row in with a new batch.")
         if action == "keep":
             raise RecordError("a quarantined cell cannot be kept as it is; give the right value with --set or "
                               "leave the row out with --exclude.")
@@ -67,9 +77,14 @@ class QuarantineFix:
         insert = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
                   "VALUES (?,?,?,?,?,?,?,?)")
         if action == "exclude":
-            conn.execute(insert, (flag_id, "exclude", flagged, None, reason, operator, now(), after))
+            others = conn.execute("SELECT id, value FROM flags WHERE quarantine_id = ? AND id <> ? ORDER BY id",
+                                  (qid, flag_id)).fetchall()
+            when = now()
+            conn.executemany(insert, [(fid, "exclude", old, None, reason, operator, when, after)
+                                      for fid, old in [(flag_id, flagged), *others]])
+            also = f"; its {len(others)} other flag(s) closed with the same reason" if others else ""
             return Resolution(flag_id, "exclude", old=flagged,
-                              message=f"flag {flag_id}: row {row} of batch {batch_id} stays out of the record.")
+                              message=f"flag {flag_id}: row {row} of batch {batch_id} stays out of the record{also}.")
         data = json.loads(payload)
         fixes = dict(conn.execute(
             "SELECT f.field, r.new FROM resolutions r JOIN flags f ON f.id = r.flag_id "

@@ -17,11 +17,25 @@ from typing import Callable
 
 from schemas.errors import StoreError
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 BUSY_TIMEOUT_S = 5.0
 RETRY_DELAYS = (0.05, 0.1, 0.2, 0.4, 0.8, 1.0, 1.0)   # then give up (about 45 s with the busy timeouts)
+BUSY_SENTENCE = ("the record store is busy: another fieldslope is taking in a batch; try again in a moment "
+                 "(nothing of this change was stored).")
 
 _APPEND_ONLY = ("batches", "records", "quarantine", "flags", "resolutions", "heritability", "fields")
+
+
+def _append_only(tables) -> str:
+    return "".join(
+        f"""
+CREATE TRIGGER {t}_no_update BEFORE UPDATE ON {t}
+BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot be changed'); END;
+CREATE TRIGGER {t}_no_delete BEFORE DELETE ON {t}
+BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot be deleted'); END;
+"""
+        for t in tables)
+
 
 _V1 = """
 CREATE TABLE batches(
@@ -108,18 +122,23 @@ CREATE TABLE heritability(
     operator TEXT NOT NULL,
     created TEXT NOT NULL
 );
-""" + "".join(
-    f"""
-CREATE TRIGGER {t}_no_update BEFORE UPDATE ON {t}
-BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot be changed'); END;
-CREATE TRIGGER {t}_no_delete BEFORE DELETE ON {t}
-BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot be deleted'); END;
-"""
-    for t in _APPEND_ONLY
-)
+""" + _append_only(_APPEND_ONLY)
+
+# v2: an open flag on a value that a later batch replaced is closed by a supersession row (the flag
+# itself and the old value stay on record); the status shown is "superseded".
+_V2 = """
+CREATE TABLE supersessions(
+    id INTEGER PRIMARY KEY,
+    flag_id INTEGER NOT NULL REFERENCES flags(id),
+    batch_id INTEGER NOT NULL REFERENCES batches(id),
+    record_id INTEGER REFERENCES records(id),
+    created TEXT NOT NULL
+);
+CREATE INDEX supersessions_flag ON supersessions(flag_id);
+""" + _append_only(("supersessions",))
 
 # MIGRATIONS[v] brings a database from version v to v + 1.
-MIGRATIONS: dict[int, str] = {0: _V1}
+MIGRATIONS: dict[int, str] = {0: _V1, 1: _V2}
 
 
 def connect(path: Path, readonly: bool = False) -> sqlite3.Connection:
@@ -221,7 +240,6 @@ def retry_locked(op: Callable):
             if "locked" not in text and "busy" not in text:
                 raise
             if delay is None:
-                raise StoreError("the record store is busy (another fieldslope is writing to it); "
-                                 "try again in a moment.") from None
+                raise StoreError(BUSY_SENTENCE) from None
             time.sleep(delay)
     return None  # pragma: no cover

@@ -27,6 +27,7 @@ class ImportResult:
     flags: tuple[FlagNote, ...] = ()
     message: str = ""
     checked_only: bool = False
+    earlier: str = ""             # a recheck of bytes already taken in: the sentence naming that batch
 
     @property
     def ok(self) -> bool:
@@ -66,7 +67,7 @@ class StoredFlag:
     file_name: str
     row: int | None
     created: str
-    status: str = "open"          # open | keep | exclude | set
+    status: str = "open"          # open | keep | exclude | set | superseded (a later batch's value)
     resolved_by: str = ""
     resolved_at: str = ""
     reason: str = ""

@@ -240,3 +240,21 @@ def test_progress_shows_only_on_a_terminal():
     assert "importing a.csv: storing 25%" in tty.getvalue() and "100%" in tty.getvalue()
     assert all(len(part) <= 80 for part in tty.getvalue().split("\r"))
     assert pipe.getvalue() == ""
+
+
+def test_check_of_a_file_already_taken_in_runs_the_checks_and_names_the_batch(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    call(capsys, "init", study, "--protocol", str(protocol_file))
+    fresh = call(capsys, "check", str(folder / "measured.csv"), "--study", study)
+    assert call(capsys, "import", str(folder / "measured.csv"), "--study", study)[0] == 0
+    code, out, err = call(capsys, "check", str(folder / "measured.csv"), "--study", study)
+    assert code == fresh[0] == 0 and err == ""
+    lines = out.strip().splitlines()
+    assert lines[1:] == fresh[1].strip().splitlines()               # the same dry run as before the import
+    assert "would store 12 of 12 rows" in out and "nothing was done" not in out
+    assert "already taken in as batch 1" in lines[0]
+    # a batch with a row error: the check still refuses it (exit 1), as it would a fresh file
+    assert call(capsys, "import", str(folder / "late.csv"), "--accept-valid", "--study", study)[0] == 0
+    code, out, err = call(capsys, "check", str(folder / "late.csv"), "--study", study)
+    assert code == 1 and "already taken in as batch 2" in out and "nothing was stored" in one_line(err)
+    assert call(capsys, "check", str(folder / "late.csv"), "--accept-valid", "--study", study)[0] == 0

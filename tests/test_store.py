@@ -326,17 +326,18 @@ def test_migration_backs_up_and_checks_first(tmp_path, monkeypatch):
                  "VALUES ('wing', 0.3, NULL, 's', 'ana', 't')")
     conn.commit()
     conn.close()
-    monkeypatch.setattr(store_schema, "SCHEMA_VERSION", 2)
-    monkeypatch.setitem(store_schema.MIGRATIONS, 1, "CREATE TABLE notes_v2(id INTEGER PRIMARY KEY, text TEXT);")
+    now = store_schema.SCHEMA_VERSION
+    monkeypatch.setattr(store_schema, "SCHEMA_VERSION", now + 1)
+    monkeypatch.setitem(store_schema.MIGRATIONS, now, "CREATE TABLE notes_next(id INTEGER PRIMARY KEY, text TEXT);")
     conn = store_schema.connect(db)
     store_schema.migrate(conn, db)
-    assert conn.execute("PRAGMA user_version").fetchone()[0] == 2
+    assert conn.execute("PRAGMA user_version").fetchone()[0] == now + 1
     conn.close()
-    backups = list(tmp_path.glob("old.sqlite.v1-*.bak"))
+    backups = list(tmp_path.glob(f"old.sqlite.v{now}-*.bak"))
     assert len(backups) == 1
     copy = sqlite3.connect(backups[0])
     assert copy.execute("SELECT trait FROM heritability").fetchall() == [("wing",)]
-    assert copy.execute("PRAGMA user_version").fetchone()[0] == 1
+    assert copy.execute("PRAGMA user_version").fetchone()[0] == now
     copy.close()
 
 

@@ -22,7 +22,10 @@ def run(args) -> int:
 
 
 def _open(args, readonly: bool = False) -> Study:
-    return Study.open(resolve_study_dir(args.study), readonly=readonly)
+    study = Study.open(resolve_study_dir(args.study), readonly=readonly)
+    if study.store.damaged:     # opened read-only after an unclean shutdown: say so once, then carry on reading
+        print(f"fieldslope: {study.store.damaged}", file=sys.stderr)
+    return study
 
 
 def init(args) -> int:
@@ -37,6 +40,8 @@ def _report(result) -> None:
     out, err = sys.stdout, sys.stderr
     for line in fmt.error_lines(result.errors):
         print(line, file=out)
+    if result.earlier:
+        print(result.earlier, file=out)
     if result.outcome == "refused":
         print(f"fieldslope: {result.message}", file=err)
         return
@@ -63,7 +68,7 @@ def _each_file(names, work):
 def check(args) -> int:
     with _open(args) as study:
         def one(name):
-            result = study.store.check_file(name, accept_valid=args.accept_valid)
+            result = study.store.check_file(name, accept_valid=args.accept_valid, recheck=True)
             if result.outcome in ("stored", "partial"):
                 verb = "would store" if result.outcome == "stored" else "would store (quarantining the rest)"
                 result = replace(result, message=f"{result.file_name}: {verb} {result.n_stored} of "
