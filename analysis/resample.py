@@ -12,11 +12,12 @@ batched Newton iteration with the counts as weights.
 from __future__ import annotations
 
 import zlib
+from itertools import combinations_with_replacement
 
 import numpy as np
 
 from analysis.cells import Prepared
-from analysis.logistic import Separation, batched_logistic, fit_logistic
+from analysis.logistic import Separation, batched_logistic, fit_logistic, taylor_start
 from analysis.moments import (
     FeatureMatrix,
     MultiMoments,
@@ -100,7 +101,9 @@ class SeasonResampler:
         self.features = [fm.matrix() for fm in self.features]
 
     def add_first_step(self, site: str, f: str, c: int, beta: np.ndarray) -> None:
-        """Columns p(1-p) x~_a x~_b and (y - p) x~ at the block's estimate, on the cell's complete cases."""
+        """Columns p(1-p) x~_a x~_b, (y - p) x~ and p(1-p)(1-2p) x~_a x~_b x~_c (a <= b <= c) at the
+        block's estimate, on the cell's complete cases: a Taylor model of each resample's likelihood
+        equations to third order, whose root starts the batched Newton iteration."""
         part = self.parts[c][(f, "multi")]
         s = self.preps[f][c].multi
         Xt = with_intercept((s.z - part.m0) / part.s0)
@@ -108,7 +111,10 @@ class SeasonResampler:
         theta = np.concatenate([[beta[0] - np.sum(beta[1:] * m / sd)], beta[1:] / sd])  # same eta on X~
         p_hat = 1 / (1 + np.exp(-(Xt @ theta)))
         a, b = np.triu_indices(Xt.shape[1])
-        cols = np.column_stack([(p_hat * (1 - p_hat))[:, None] * Xt[:, a] * Xt[:, b], (s.W - p_hat)[:, None] * Xt])
+        pq = p_hat * (1 - p_hat)
+        i, j, l = np.array(list(combinations_with_replacement(range(Xt.shape[1]), 3))).T
+        cols = np.column_stack([pq[:, None] * Xt[:, a] * Xt[:, b], (s.W - p_hat)[:, None] * Xt,
+                                (pq * (1 - 2 * p_hat))[:, None] * Xt[:, i] * Xt[:, j] * Xt[:, l]])
         self.parts[c][(f, "logit", site)] = self.features[c].add_columns(s.rows, cols)
         self.logit_theta[(site, f, c)] = theta
 
@@ -200,31 +206,23 @@ class SeasonResampler:
 
     def boot_logistic(self, f, site, cs, counts, mm, moments, out):
         k = 1 + self.p
+        n_pairs = k * (k + 1) // 2
         a, b = np.triu_indices(k)
         beta0 = self.logit_start[(site, f)]
-        B = counts[0].shape[0]
-        cells = []
-        H = np.zeros((B, k, k))
-        g = np.zeros((B, k))
+        cells, terms = [], []
         for c in cs:
             part = self.parts[c][(f, "multi")]
             pr = self.preps[f][c]
             zt = (pr.multi.z - part.m0) / part.s0
             T = mm[c].T[:, :k, :k]
             cells.append((with_intercept(zt), pr.multi.W, counts[c][:, part.rows], T))
-            # first Newton step from beta0: the moments hold it at the full-sample predictor;
-            # a first-order correction moves it to beta0 under the resample's standardization
             M = moments[c][:, self.parts[c][(f, "logit", site)]]
-            Hz = np.empty((B, k, k))
-            Hz[:, a, b] = M[:, : len(a)]
-            Hz[:, b, a] = M[:, : len(a)]
-            delta = np.einsum("bak,a->bk", T, beta0) - self.logit_theta[(site, f, c)]
-            gz = M[:, len(a) :] - np.einsum("bij,bj->bi", Hz, delta)
-            H += T @ Hz @ np.swapaxes(T, 1, 2)
-            g += np.einsum("bij,bj->bi", T, gz)
+            Hz = np.empty((len(M), k, k))
+            Hz[:, a, b] = M[:, :n_pairs]
+            Hz[:, b, a] = M[:, :n_pairs]
+            terms.append((T, self.logit_theta[(site, f, c)], Hz, M[:, n_pairs : n_pairs + k], M[:, n_pairs + k :]))
         ok = np.logical_and.reduce([mm[c].ok for c in cs])
-        start = beta0 + batched_solve(H, g, ok)
-        start[~np.isfinite(start)] = 0.0
+        start = taylor_start(beta0, terms, ok)
         beta, mean_pq, mean_w, ok2 = batched_logistic(cells, start, sums=[self.logit_sums(f, c, moments) for c in cs])
         ok &= ok2
         grad = beta[:, 1:] * (mean_pq / mean_w)[:, None]
