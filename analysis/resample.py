@@ -215,7 +215,8 @@ class SeasonResampler:
             pr = self.preps[f][c]
             zt = (pr.multi.z - part.m0) / part.s0
             T = mm[c].T[:, :k, :k]
-            cells.append((with_intercept(zt), pr.multi.W, counts[c][:, part.rows], T))
+            C = counts[c] if len(part.rows) == counts[c].shape[1] else counts[c][:, part.rows]  # rows are sorted
+            cells.append((with_intercept(zt), pr.multi.W, C, T))
             M = moments[c][:, self.parts[c][(f, "logit", site)]]
             Hz = np.empty((len(M), k, k))
             Hz[:, a, b] = M[:, :n_pairs]

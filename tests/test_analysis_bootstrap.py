@@ -126,3 +126,23 @@ def test_permutation_statistics_equal_statsmodels_refits_of_shuffled_fitness():
     observed = perm.observed()
     for _, r in table[table.quantity.isin(["gradient", "differential", "correlational"])].iterrows():
         assert observed[(r.site, r.fitness, r.quantity, r.term)] == pytest.approx(r.estimate, rel=1e-9)
+
+
+@pytest.mark.parametrize("W", [[0.0, 0.0, 1.0, 2.0], [1.0, 0.0, 1.0, 0.0, 0.0], [3.0, 1.0, 4.0, 1.5]])
+def test_rank_key_shuffle_is_a_uniform_permutation(W):
+    """Every distinct arrangement of W is equally likely: multinomial count n!/(k1!...km!) arrangements
+    (common practice), checked with scipy's chi-square goodness-of-fit test; each row keeps W's values."""
+    from math import factorial
+
+    from scipy import stats
+
+    from analysis.permute import shuffled
+
+    W = np.array(W)
+    draws = shuffled(np.random.default_rng(8), W, 60_000)
+    assert np.array_equal(np.sort(draws, axis=1), np.broadcast_to(np.sort(W), draws.shape))
+    _, counts = np.unique(draws, axis=0, return_counts=True)
+    _, mult = np.unique(W, return_counts=True)
+    arrangements = factorial(len(W)) // int(np.prod([factorial(int(m)) for m in mult]))
+    assert len(counts) == arrangements
+    assert stats.chisquare(counts).pvalue > 1e-3
