@@ -31,10 +31,13 @@ def supersede(conn: sqlite3.Connection, protocol: Protocol, batch_id: int, valid
         return 0
     keys = valid[p.id_col].astype(str) + "\x1f" + valid[p.season_col].astype(str)
     newest: dict[tuple[str, str], int] = {}      # (individual|season, field) -> record id of the new value
-    for field in {f[3] for f in open_flags}:
+    flagged: dict[str, set[str]] = {}
+    for _, ind, season, field in open_flags:
+        flagged.setdefault(field, set()).add(f"{ind}\x1f{season}")
+    for field, wanted in flagged.items():
         if field not in valid.columns:
             continue
-        filled = valid[field].notna() & valid[field].astype(str).str.strip().ne("")
+        filled = keys.isin(wanted) & valid[field].notna() & valid[field].astype(str).str.strip().ne("")
         for key, row in zip(keys[filled], valid.loc[filled, "_row"]):
             newest[(key, field)] = record_ids.get(int(row))
     rows = []
