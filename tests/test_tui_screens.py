@@ -188,6 +188,7 @@ async def test_sensitivity_toggle_recomputes_without_open_outliers(study, write_
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(app, pilot, lambda: ready(app))
         kept_in = app.snapshot.value("2025", "Gull Flat", "total", "gradient", "tibia")["estimate"]
+        before = app.snapshot                    # the figures with the open outliers kept in
         await pilot.press("o")
         await wait_for(app, pilot, lambda: app.snapshot.sensitivity and ready(app), what="sensitivity")
         left_out = app.snapshot.value("2025", "Gull Flat", "total", "gradient", "tibia")["estimate"]
@@ -196,9 +197,18 @@ async def test_sensitivity_toggle_recomputes_without_open_outliers(study, write_
         assert "outliers out" in text and "β with the open outliers kept in: wing" in text
         assert f"tibia {fmt(kept_in)}" in text
         assert str(app.screen.query_one("#sel-linear").get_row("tibia")[3]) == fmt(left_out)
+        # S, β and γ with the open outliers kept in, side by side with the figures without them
+        row = [str(v) for v in app.screen.query_one("#sel-linear").get_row("tibia")]
+        s_in = before.value("2025", "Gull Flat", "total", "differential", "tibia")["estimate"]
+        assert row[-2:] == [fmt(s_in), fmt(kept_in)]
+        g_in = before.value("2025", "Gull Flat", "total", "quadratic", "tibia^2")["estimate"]
+        g_row = [str(v) for v in app.screen.query_one("#sel-gamma").get_row("quadratic:tibia^2")]
+        assert g_row[1] != g_row[-1] == fmt(g_in)
+        assert "S (in)" in screen_text(app) and "γ (in)" in screen_text(app)
         await pilot.press("o")
         await wait_for(app, pilot, lambda: not app.snapshot.sensitivity and ready(app), what="back")
         assert "outliers out" not in screen_text(app)
+        assert "S (in)" not in screen_text(app) and len(app.screen.query_one("#sel-linear").columns) == 7
 
 
 @pytest.mark.parametrize("size", SIZES)
@@ -333,6 +343,10 @@ async def test_seasons_show_each_season_and_the_batch_trend(filled, size):
         await pilot.press("v")
         await pilot.pause()
         assert "after each batch" in screen_text(app) and "needs about" in screen_text(app)
+        # two batches changed the pooled β of 2025: the trend says why it has so few points
+        from tui.screens.seasons import few_batches_sentence
+
+        assert few_batches_sentence(2) in screen_text(app)
         await pilot.press("n")                           # the wanted interval width, typed
         for key in ("ctrl+u", "0", "full_stop", "1"):
             await pilot.press(key)
@@ -550,3 +564,56 @@ async def test_a_store_that_vanishes_and_returns_is_reported_then_cleared(filled
         hidden.rename(db)
         await wait_for(app, pilot, lambda: not app.error, timeout=15, what="the error cleared")
         assert "4 batches" in screen_text(app)
+
+
+async def test_a_store_held_by_another_program_makes_the_dashboard_read_only_until_free(filled):
+    import sqlite3
+
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app), what="figures")
+        assert not app.locked
+        other = sqlite3.connect(str(filled.db_path), isolation_level=None)
+        other.execute("BEGIN IMMEDIATE")                       # another program is writing
+        try:
+            await wait_for(app, pilot, lambda: app.locked, what="the lock seen")
+            assert "read-only: store in use elsewhere" in screen_text(app)
+            await pilot.press("4")
+            await pilot.press("h")                             # refused at once, with one sentence
+            await pilot.pause()
+            from tui.loading import LOCKED_SENTENCE
+
+            assert [n.message for n in app._notifications][-1] == LOCKED_SENTENCE
+            assert len(app.screen_stack) == 1                  # no form was opened
+            await pilot.press("3")                             # browsing still works
+            await wait_for(app, pilot, lambda: app.screen.query_one("#sel-linear").row_count == 2)
+        finally:
+            other.execute("ROLLBACK")
+            other.close()
+        await wait_for(app, pilot, lambda: not app.locked, what="the lock released")
+        assert "store in use elsewhere" not in screen_text(app)
+
+
+async def test_screens_say_why_they_are_empty_when_no_batch_has_fitness(study, write_batch, hopper_rows):
+    rows = [{k: v for k, v in r.items() if k not in study.protocol.component_names}
+            for r in hopper_rows("2026", "Gull Flat", n=12, seed=5)]      # measurements only, no fitness
+    batch = write_batch(rows, "m.csv")
+    assert study.store.import_file(batch, operator="test").outcome == "stored"
+    app = make_app(study.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app), what="figures")
+        assert "batches so far carry no fitness" in screen_text(app)
+        await pilot.press("5")
+        screen = app.screen
+        await pilot.press("v")
+        await pilot.pause()
+        assert "No season has a β yet" in screen_text(app) and "Recomputing" not in screen_text(app)
+        await pilot.press("1")
+        await wait_for(app, pilot, lambda: bool(app.screen.files) or "empty" in screen_text(app), what="listing")
+        from tui.screens.intake import EMPTY_SENTENCE
+
+        assert EMPTY_SENTENCE in screen_text(app)
+        (study.intake_dir / "late.csv").write_bytes(batch.read_bytes())
+        await wait_for(app, pilot, lambda: bool(app.screen.files), timeout=10, what="the arrived file")
+        await pilot.pause()
+        assert EMPTY_SENTENCE not in screen_text(app) and "Pick a file" in screen_text(app)

@@ -109,6 +109,7 @@ class FieldslopeApp(App):
     text shown as the last refresh time (tests pass a fixed one).
     """
 
+    PROBE_EVERY = 4        # probe the write lock on every 4th poll (and on every poll while locked)
     CSS_PATH = Path(__file__).with_name("app.tcss")  # absolute: subclasses elsewhere find it too
     TITLE = "fieldslope"
     COMMANDS = App.COMMANDS | {FieldslopeCommands}
@@ -149,6 +150,8 @@ class FieldslopeApp(App):
         self.start_mode = start_mode
         self.protocol = None
         self.readonly = False
+        self.locked = False                  # another program holds the store's write lock (for now)
+        self._polls = 0
         self.study_ready = False
         self.snapshot: Snapshot | None = None
         self.sensitivity = False
@@ -257,9 +260,15 @@ class FieldslopeApp(App):
         if self._poller is None or self._poller.study_dir != study_dir:
             self._poller = self._poll_executor.submit(Poller, study_dir).result()
         version = self._poll_executor.submit(self._poller.version).result()
-        self.post_message(Polled(version))
+        writable = None
+        if not self.readonly and (self._polls % self.PROBE_EVERY == 0 or self.locked):
+            writable = self._poll_executor.submit(self._poller.writable).result()
+        self._polls += 1
+        self.post_message(Polled(version, writable))
 
     def on_polled(self, msg: Polled) -> None:
+        if msg.writable is not None:
+            self.set_locked(not msg.writable)
         if self._poll_failed:                  # the store answers again: the poll's error is over
             self._poll_failed = False
             self.error = ""
@@ -343,6 +352,31 @@ class FieldslopeApp(App):
         self.note = msg.what
         self.refresh_status()
 
+    # -- read-only while another program writes ----------------------------
+    def set_locked(self, locked: bool) -> None:
+        """Enter or leave the read-only mode that lasts while another program holds the store."""
+        from tui.loading import LOCKED_SENTENCE
+
+        if locked == self.locked:
+            return
+        self.locked = locked
+        if locked:
+            self.notify(LOCKED_SENTENCE, severity="warning", timeout=10)
+        else:
+            self.notify("The record store is free again: taking in, resolving and entering h² work.", timeout=5)
+        self.refresh_status()
+
+    def write_refusal(self) -> str:
+        """One sentence saying why nothing can be written now, or "" when writing is possible."""
+        from tui.loading import LOCKED_SENTENCE
+
+        if self.readonly:
+            return ("The record store cannot be written from this account (file or folder permissions), so "
+                    "the dashboard is read-only: ask for group write access to the study folder.")
+        if self.locked:
+            return LOCKED_SENTENCE
+        return ""
+
     # -- demo --------------------------------------------------------------
     @work(thread=True, exclusive=True, exit_on_error=False, group="demo")
     def _demo_worker(self) -> None:
@@ -362,6 +396,12 @@ class FieldslopeApp(App):
 
         err = worker.error
         text = str(err) if isinstance(err, FieldslopeError) else f"{worker.name or 'background task'} failed: {err}"
+        if worker.group in WRITE_GROUPS and _is_busy(err):
+            # a write found the store held by another program: read-only until the poller sees it free
+            self.set_locked(True)
+            if hasattr(self.screen, "worker_failed"):
+                self.screen.worker_failed(worker.group, text)
+            return
         self.error = text
         self.notify(text, severity="error", timeout=10)
         group = worker.group
@@ -421,6 +461,8 @@ class FieldslopeApp(App):
                 parts.append((" │ outliers out", "bold $warning"))
             if self.readonly:
                 parts.append((" │ read-only", "bold $warning"))
+            elif self.locked:
+                parts.append((" │ read-only: store in use elsewhere", "bold $warning"))
         elif self.study_ready:
             parts.append(" │ reading the store …")
         if self.progress:
@@ -462,6 +504,18 @@ class FieldslopeApp(App):
     def action_refresh(self) -> None:
         if self.study_ready:
             self.start_points()
+
+
+WRITE_GROUPS = ("intake-import", "flags-resolve", "resp-h2")
+
+
+def _is_busy(err: BaseException | None) -> bool:
+    """A store error that means another program holds the write lock (not damage, not a full disk)."""
+    from schemas.errors import StoreError
+    from tui.loading import LOCKED_SENTENCE
+
+    text = str(err)
+    return isinstance(err, StoreError) and (text == LOCKED_SENTENCE or "busy" in text or "locked" in text)
 
 
 def run_app(study_dir: Path | None, **kwargs) -> None:

@@ -50,6 +50,45 @@ def writable(db_path: Path) -> bool:
     return os.access(db_path, os.W_OK) and os.access(db_path.parent, os.W_OK)
 
 
+LOCKED_SENTENCE = ("The record store is in use by another program, so the dashboard is read-only for now: "
+                   "you can browse, and taking in, resolving and entering h² work again once it is free.")
+
+
+def can_write_now(study) -> bool:
+    """A cheap probe: can this study's store start a write transaction right now?
+
+    Uses ``Store.writable()`` where the store has it; otherwise tries
+    ``BEGIN IMMEDIATE`` on a short-lived connection with a 0.1 s wait.
+    """
+    probe = getattr(study.store, "writable", None)
+    if probe is not None:
+        return bool(probe())
+    import sqlite3
+
+    try:
+        conn = sqlite3.connect(str(study.db_path), timeout=0.1, isolation_level=None)
+        try:
+            conn.execute("BEGIN IMMEDIATE")
+            conn.execute("ROLLBACK")
+        finally:
+            conn.close()
+    except sqlite3.Error:
+        return False
+    return True
+
+
+def _writing(study_dir: Path):
+    """Open the study for one write; refuse at once (one sentence) when another program holds the store."""
+    from schemas.errors import StoreError
+    from schemas.study import Study
+
+    study = Study.open(study_dir)
+    if not can_write_now(study):
+        _close(study)
+        raise StoreError(LOCKED_SENTENCE)
+    return study
+
+
 def _close(study) -> None:
     close = getattr(getattr(study, "store", None), "close", None) or getattr(study, "close", None)
     if close:
@@ -64,12 +103,31 @@ class Poller:
 
         self.study_dir = study_dir
         self.study = Study.open(study_dir, readonly=True)
+        self._writer = None
 
     def version(self) -> int:
         return int(self.study.store.data_version())
 
+    def writable(self) -> bool | None:
+        """Whether a write could start now (None when this account cannot open the store for writing)."""
+        from schemas.errors import FieldslopeError
+        from schemas.study import Study
+
+        try:
+            if self._writer is None:
+                self._writer = Study.open(self.study_dir)
+            return can_write_now(self._writer)
+        except FieldslopeError:
+            return None
+
     def close(self) -> None:
         _close(self.study)
+        if self._writer is not None:
+            _close(self._writer)
+
+
+# what the sensitivity comparison shows beside the figures without the open outliers: S, β and γ
+SENSITIVITY_QUANTITIES = ("differential", "gradient", "quadratic", "correlational")
 
 
 def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity: bool,
@@ -94,10 +152,12 @@ def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity
     if included is not None:
         # the other side of the sensitivity comparison: gradients with the open outliers kept in
         t = estimates_for_frame(included, study.protocol, bootstrap=0, h2=h2_values).table
-        t = t[t["quantity"] == "gradient"]
+        t = t[t["quantity"].isin(SENSITIVITY_QUANTITIES) & t["estimate"].notna()]
+        extras["with_outliers"] = {
+            (s, site, f, q, term): float(v) for s, site, f, q, term, v in zip(
+                t["season"], t["site"], t["fitness"], t["quantity"], t["term"], t["estimate"])}
         extras["gradient_with_outliers"] = {
-            (s, site, f, term): float(v) for s, site, f, term, v in zip(t["season"], t["site"], t["fitness"],
-                                                                       t["term"], t["estimate"])}
+            (s, site, f, term): v for (s, site, f, q, term), v in extras["with_outliers"].items() if q == "gradient"}
     return Snapshot(
         protocol=study.protocol, table=est.table, notes=tuple(est.notes), frame=frame, flags=flags,
         batches=batches, heritability=h2, data_version=version, refreshed_at=refreshed_at,
@@ -177,9 +237,7 @@ def demo_study():
 def resolve_flags(study_dir: Path, flag_ids: list[int], action: str, value: str | None, reason: str,
                   operator: str) -> list:
     """Keep, exclude or correct flags (its own writing connection); returns the store's Resolutions."""
-    from schemas.study import Study
-
-    study = Study.open(study_dir)
+    study = _writing(study_dir)
     try:
         return [study.store.resolve_flag(i, action=action, value=value, reason=reason, operator=operator)
                 for i in flag_ids]
@@ -189,9 +247,7 @@ def resolve_flags(study_dir: Path, flag_ids: list[int], action: str, value: str 
 
 def set_heritability(study_dir: Path, trait: str, value: float, se: float | None, source: str, operator: str) -> None:
     """Keep an entered h² (with its source) in the study."""
-    from schemas.study import Study
-
-    study = Study.open(study_dir)
+    study = _writing(study_dir)
     try:
         study.store.set_heritability(trait, value, se, source, operator)
     finally:
@@ -251,9 +307,7 @@ def check_file(study_dir: Path, path: Path):
 
 def import_file(study_dir: Path, path: Path, accept_valid: bool, operator: str):
     """Take a batch file in (its own writing connection); returns the ImportResult."""
-    from schemas.study import Study
-
-    study = Study.open(study_dir)
+    study = _writing(study_dir)
     try:
         return study.store.import_file(Path(path), operator=operator, accept_valid=accept_valid)
     finally:

@@ -28,9 +28,10 @@ class StudyFailed(Message):
 
 @dataclass
 class Polled(Message):
-    """The store's change counter as read by the poller."""
+    """The store's change counter as read by the poller, and (every few polls) whether a write could start."""
 
     version: int
+    writable: bool | None = None   # None: not probed this time, or this account cannot write anyway
 
 
 @dataclass

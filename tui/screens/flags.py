@@ -160,8 +160,9 @@ class FlagsScreen(StudyScreen):
         if self.history or not self.rows or not (0 <= table.cursor_row < len(self.rows)):
             self.app.notify("Pick an open flag first.", severity="warning")
             return None
-        if self.app.readonly:
-            self.app.notify("The store is read-only now; flags cannot be resolved.", severity="warning")
+        refusal = self.app.write_refusal()
+        if refusal:
+            self.app.notify(refusal, severity="warning")
             return None
         return self.rows[table.cursor_row]
 

@@ -27,6 +27,10 @@ def operator_name() -> str:
         return "unknown"
 
 
+PICK_HINT = "Pick a file and press c to check it; i takes it in, a takes its valid rows."
+EMPTY_SENTENCE = "The drop folder is empty: copy batch files into it, or press / to open a file by path."
+
+
 class IntakeScreen(StudyScreen):
     TITLE_TEXT = "Intake"
     BINDINGS = [
@@ -59,6 +63,7 @@ class IntakeScreen(StudyScreen):
         self.current: Path | None = None
         self.checked = None
         self.problems: list[str] = []
+        self._said_empty = False
 
     def body(self) -> ComposeResult:
         yield Static(id="intake-folder", classes="choices")
@@ -66,8 +71,7 @@ class IntakeScreen(StudyScreen):
         with Horizontal(id="intake-path-row", classes="-hidden"):
             yield Input(placeholder="path of a batch file (CSV, TSV, XLSX); Enter to check", id="intake-path",
                         compact=True)
-        yield Static("Pick a file and press c to check it; i takes it in, a takes its valid rows.",
-                     id="intake-summary", classes="summary")
+        yield Static(PICK_HINT, id="intake-summary", classes="summary")
         with TabbedContent(id="intake-tabs"):
             with TabPane("Problems", id="intake-problems"):
                 yield DataTable(id="intake-report", cursor_type="row", zebra_stripes=True)
@@ -109,11 +113,15 @@ class IntakeScreen(StudyScreen):
         table.clear()
         for f in msg.files:
             table.add_row(f["name"], _size(f["size"]), f["status"], key=str(f["path"]))
+        summary = self.query_one("#intake-summary", Static)
         if msg.files:
             table.move_cursor(row=min(keep, len(msg.files) - 1))
+            if self._said_empty:               # files arrived: the "empty" sentence no longer holds
+                self._said_empty = False
+                summary.update(PICK_HINT)
         else:
-            self.query_one("#intake-summary", Static).update(
-                "The drop folder is empty: copy batch files into it, or press / to open a file by path.")
+            self._said_empty = True
+            summary.update(EMPTY_SENTENCE)
 
     # -- checking ----------------------------------------------------------
     def _selected(self) -> Path | None:
@@ -171,8 +179,9 @@ class IntakeScreen(StudyScreen):
         self._take(accept_valid=True)
 
     def _take(self, accept_valid: bool) -> None:
-        if self.app.readonly:
-            self.app.notify("The store is read-only now; nothing can be taken in.", severity="warning")
+        refusal = self.app.write_refusal()
+        if refusal:
+            self.app.notify(refusal, severity="warning")
             return
         r = self.checked
         if r is None or self.current is None:

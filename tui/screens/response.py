@@ -28,8 +28,8 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         Binding("s", "next_season", "Season", id="resp_season"),
         Binding("t", "next_site", "Site", id="resp_site"),
         Binding("w", "next_fitness", "Fitness", id="resp_fitness"),
-        Binding("h", "enter_h2", "Enter h²", id="resp_h2"),
-        Binding("g", "focus_generations", "Projection", id="resp_project", show=False),
+        Binding("h", "enter_h2", "Set h²", id="resp_h2"),
+        Binding("g", "focus_generations", "Project", id="resp_project"),
         Binding("escape", "leave_field", "Leave field", id="resp_leave", show=False),
     ]
 
@@ -139,8 +139,9 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     # -- entering h² -------------------------------------------------------
     def action_enter_h2(self) -> None:
         snap = self.app.snapshot
-        if snap is None or self.app.readonly:
-            self.app.notify("The store is read-only now; h² cannot be entered.", severity="warning")
+        refusal = self.app.write_refusal() or ("" if snap is not None else "The store is still being read; try again in a moment.")
+        if refusal:
+            self.app.notify(refusal, severity="warning")
             return
         traits = snap.protocol.trait_names
         table = self.query_one("#resp-table", DataTable)

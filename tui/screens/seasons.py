@@ -43,6 +43,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         self.choices = Choices()
         self.trend_key: tuple | None = None
         self.trend_rows: list = []
+        self.trend_done = False
 
     def body(self) -> ComposeResult:
         yield Static(id="sea-choices", classes="choices")
@@ -76,8 +77,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         c = self.choices
         c.settle(snap)
         trait = c.trait_name(snap)
-        self.query_one("#sea-choices", Static).update(c.bar(snap, ("fitness", "trait", "season", "site"),
-                                                             "(season, site: the batch trend)"))
+        self.query_one("#sea-choices", Static).update(c.bar(snap, ("fitness", "trait", "season", "site")))
         self._across(snap, trait)
         self._start_trend(snap)
         self._show_trend(snap, trait)
@@ -135,12 +135,15 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
     def _start_trend(self, snap: Snapshot) -> None:
         c = self.choices
         if c.season is None:
+            self.query_one("#sea-trend-pic", Static).update(
+                "No season has a β yet: β needs fitness, which arrives with the census batches.")
             return
         key = (snap.generation, snap.sensitivity, c.season, c.fitness)
         if key == self.trend_key:
             return
         self.trend_key = key
         self.trend_rows = []
+        self.trend_done = False
         self.query_one("#sea-trend-pic", Static).update("Recomputing β after each batch …")
         self._trend_worker(self.app.study_dir, snap.protocol, key)
 
@@ -157,6 +160,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         if msg.key != self.trend_key:
             return
         self.trend_rows = msg.rows
+        self.trend_done = True
         snap = self.app.snapshot
         if snap is not None:
             traits = snap.protocol.trait_names
@@ -169,14 +173,20 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         if not rows:
             if self.trend_rows:
                 pic.update(f"No β for {trait} at this site after any batch of season {c.season}.")
+            elif self.trend_done:
+                pic.update(f"No batch of season {c.season} gives a β for {trait} yet: β needs fitness, which "
+                           "arrives with the census batches.")
             return
         width = max(50, self.size.width - 4)
         items = [(f"batch {r['batch']} n={r['n']}", r["estimate"], r["ci_low"], r["ci_high"]) for r in rows]
-        pic.update(Content("\n").join([
+        lines = [
             Content.assemble((f"β of {trait} after each batch, season {c.season}, ", "bold"),
                              ("pooled" if c.site == ALL else str(c.site), "bold"),
                              ("  β ± 1.96·se", "$text-muted")),
-            interval_rows(items, width=width)]))
+            interval_rows(items, width=width)]
+        if len(rows) < 3:
+            lines.append(Content.assemble((few_batches_sentence(len(rows)), "$text-muted")))
+        pic.update(Content("\n").join(lines))
         self._plan(rows[-1])
 
     @on(Input.Changed, "#sea-width")
@@ -196,6 +206,12 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         self.query_one("#sea-plan", Static).update(
             sample_size_text(last, self.query_one("#sea-width", Input).value.strip(),
                              len(self.app.snapshot.protocol.trait_names)))
+
+
+def few_batches_sentence(n: int) -> str:
+    """Why a batch trend has so few points (shown below fewer than 3)."""
+    return (f"Only {n} batch{'' if n == 1 else 'es'} so far changed this β: it needs fitness, which arrives with "
+            "the census batches, so batches of measurements alone leave it unchanged and are not shown.")
 
 
 def _e(row: dict | None, digits: int = 3) -> str:

@@ -59,6 +59,18 @@ def axes_text(snap: Snapshot, key: dict) -> str:
     return "; ".join(axes) + "."
 
 
+def no_estimates_sentence(snap: Snapshot) -> str:
+    """Why the Selection screen has no figures yet, in one sentence."""
+    if not snap.n_batches:
+        return "No estimates yet: take in a batch on the Intake screen [1]."
+    frame = snap.frame
+    measured = [f for f in snap.protocol.component_names if frame is not None and f in frame.columns]
+    if any(frame[f].notna().any() for f in measured):
+        return "No estimates yet: the notes below say what each season and site still lacks."
+    return ("No estimates yet: the batches so far carry no fitness; they appear once a batch with fitness "
+            "(a census) is taken in.")
+
+
 class SelectionScreen(ChoiceKeys, StudyScreen):
     TITLE_TEXT = "Selection"
     BINDINGS = [
@@ -90,9 +102,21 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             with TabPane("Surface", id="sel-surface"):
                 yield Static(id="sel-surf", classes="picture panel")
 
+    LINEAR_COLUMNS = ("trait", "S", "S/σ", "β", "95% CI", "p", "n")
+    GAMMA_COLUMNS = ("term", "γ", "95% CI", "p")
+
     def on_mount(self) -> None:
-        self.query_one("#sel-linear", DataTable).add_columns("trait", "S", "S/σ", "β", "95% CI", "p", "n")
-        self.query_one("#sel-gamma", DataTable).add_columns("term", "γ", "95% CI", "p")
+        self._columns(self.query_one("#sel-linear", DataTable), self.query_one("#sel-gamma", DataTable), False)
+
+    def _columns(self, lin: DataTable, gam: DataTable, compare: bool) -> None:
+        """The table columns; with the sensitivity comparison, S, β and γ with the open outliers kept in too."""
+        want = len(self.LINEAR_COLUMNS) + (2 if compare else 0)
+        if len(lin.columns) == want:
+            return
+        lin.clear(columns=True)
+        gam.clear(columns=True)
+        lin.add_columns(*self.LINEAR_COLUMNS, *(("S (in)", "β (in)") if compare else ()))
+        gam.add_columns(*self.GAMMA_COLUMNS, *(("γ (in)",) if compare else ()))
 
     # -- keys --------------------------------------------------------------
     def action_next_view(self) -> None:
@@ -111,7 +135,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         trait = c.trait_name(snap)
         self.query_one("#sel-choices", Static).update(c.bar(snap, ("season", "site", "fitness", "trait")))
         if c.season is None:
-            self.query_one("#sel-summary", Static).update("No estimates yet: take in a batch on the Intake screen [1].")
+            self.query_one("#sel-summary", Static).update(no_estimates_sentence(snap))
             for t in ("#sel-linear", "#sel-gamma"):
                 self.query_one(t, DataTable).clear()
             self.query_one("#sel-notes", Static).update("\n".join(getattr(n, "message", str(n)) for n in snap.notes[:6]))
@@ -141,7 +165,18 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         c = self.choices
         key = dict(season=c.season, site=c.site, fitness=c.fitness)
         wait = not snap.intervals and self.app.bootstrap > 0
+        kept = snap.extras.get("with_outliers") if snap.sensitivity else None
         lin = self.query_one("#sel-linear", DataTable)
+        gam = self.query_one("#sel-gamma", DataTable)
+        self._columns(lin, gam, kept is not None)
+
+        def kept_in(quantity: str, term: str) -> list[str]:
+            """The figure with the open outliers kept in (an extra column in the comparison only)."""
+            if kept is None:
+                return []
+            v = kept.get((c.season, c.site, c.fitness, quantity, term))
+            return ["–" if v is None else fmt(v)]
+
         lin.clear()
         for trait in snap.protocol.trait_names:
             s = snap.value(**key, quantity="differential", term=trait)
@@ -149,27 +184,32 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             b = snap.value(**key, quantity="gradient", term=trait)
             n = b["n"] if b and b["n"] is not None else (s["n"] if s and s["n"] is not None else None)
             lin.add_row(trait, est_text(s), est_text(s_std), est_text(b), ci_text(b, wait), p_text(b, wait),
-                        "–" if n is None else str(int(n)), key=trait)
+                        "–" if n is None else str(int(n)), *kept_in("differential", trait),
+                        *kept_in("gradient", trait), key=trait)
         for term in snap.terms(**key, quantity="gradient_logistic"):
             v = snap.value(**key, quantity="gradient_logistic", term=term)
             lin.add_row(f"{term} (logit β)", "", "", est_text(v), ci_text(v, wait), p_text(v, wait),
-                        "–" if v["n"] is None else str(int(v["n"])), key=f"logit:{term}")
-        gam = self.query_one("#sel-gamma", DataTable)
+                        "–" if v["n"] is None else str(int(v["n"])), *([""] * (2 if kept is not None else 0)),
+                        key=f"logit:{term}")
         gam.clear()
         for quantity, label in (("quadratic", "γ "), ("correlational", "γ "), ("canonical", "λ ")):
             for term in snap.terms(**key, quantity=quantity):
                 v = snap.value(**key, quantity=quantity, term=term)
+                extra = (kept_in(quantity, term) or [""]) if kept is not None else []
                 gam.add_row(label + str(term), est_text(v), ci_text(v, wait) if quantity != "canonical" else "",
-                            p_text(v, wait) if quantity != "canonical" else "", key=f"{quantity}:{term}")
+                            p_text(v, wait) if quantity != "canonical" else "", *extra, key=f"{quantity}:{term}")
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
         parts: list[tuple[str, str]] = []
-        kept = snap.extras.get("gradient_with_outliers")
-        if snap.sensitivity and kept is not None:
-            shown = [f"{t} {fmt(kept[(c.season, c.site, c.fitness, t)])}" for t in snap.protocol.trait_names
-                     if (c.season, c.site, c.fitness, t) in kept]
-            parts.append(("β with the open outliers kept in: " + (", ".join(shown) or "none") + ". ", "$warning"))
-        parts.append(("λ: eigenvalues of γ; ", "$text-muted"))
-        parts.append((axes_text(snap, key) + " ", "$text-muted"))
+        kept_b = snap.extras.get("gradient_with_outliers")
+        if snap.sensitivity and kept_b is not None:
+            shown = [f"{t} {fmt(kept_b[(c.season, c.site, c.fitness, t)])}" for t in snap.protocol.trait_names
+                     if (c.season, c.site, c.fitness, t) in kept_b]
+            parts.append(("β with the open outliers kept in: " + (", ".join(shown) or "none") + "; the columns "
+                          "marked (in) give S, β and γ with them kept in, all other figures leave them out. ",
+                          "$warning"))
+        axes = axes_text(snap, key)
+        if axes:
+            parts.append(("λ: eigenvalues of γ; " + axes + " ", "$text-muted"))
         self.query_one("#sel-notes", Static).update(Content.assemble(*parts, *[(n + " ", "$text-muted") for n in notes]))
 
     @on(TabbedContent.TabActivated, "#sel-tabs")

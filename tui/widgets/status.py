@@ -10,7 +10,8 @@ class StatusLine(Static):
     """Shows ``app.status_content()``; the app calls :meth:`update_from_app` on changes."""
 
     DEFAULT_CSS = """
-    StatusLine { height: 1; background: $panel; color: $foreground; padding: 0 1; }
+    StatusLine { height: 1; background: $panel; color: $foreground; padding: 0 1;
+                 text-wrap: nowrap; text-overflow: ellipsis; }
     """
 
     def on_mount(self) -> None:
