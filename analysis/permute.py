@@ -138,15 +138,16 @@ def shuffled(rng: np.random.Generator, W: np.ndarray, size: int) -> np.ndarray:
     For fitness with few distinct values (0/1 survival, small counts) the i-th
     entry is the value whose block of ranks holds the rank of a uniform key
     u_i: the keys' ranks are a uniform random permutation, so this is a
-    uniform shuffle, found by one partial sort (np.partition) instead of a
-    full Fisher-Yates pass (about twice as fast). Rows where keys tie at a
-    block edge (float64 keys: practically never) are shuffled directly.
+    uniform shuffle, found by one partial sort (np.partition) of 32-bit keys
+    instead of a full Fisher-Yates pass (about three times as fast). Rows
+    where keys tie at a block edge (about n in 4e9) are shuffled directly;
+    that event does not depend on the order, so the result stays uniform.
     """
     values, counts = np.unique(W, return_counts=True)
     n = len(W)
     if not 2 <= len(values) <= MAX_LEVELS:
         return rng.permuted(np.broadcast_to(W, (size, n)), axis=1)
-    u = rng.random((size, n))
+    u = rng.integers(0, 2**32, size=(size, n), dtype=np.uint32)  # keys: ties at an edge are caught below
     edges = np.cumsum(counts)[:-1]  # rank where each further value starts
     thresholds = np.partition(u, edges, axis=1)[:, edges]
     level = np.zeros((size, n), dtype=np.int8)
@@ -155,7 +156,7 @@ def shuffled(rng: np.random.Generator, W: np.ndarray, size: int) -> np.ndarray:
         above = u >= thresholds[:, j : j + 1]
         tied |= np.count_nonzero(above, axis=1) != n - edge
         if len(edges) == 1:  # two values (0/1 fitness): no level array needed
-            out = np.where(above, values[1], values[0])
+            out = above.astype(np.float64) if values[0] == 0 and values[1] == 1 else np.where(above, values[1], values[0])
             break
         level += above
     else:
