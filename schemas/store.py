@@ -455,6 +455,11 @@ class Store:
         if row is None:
             raise RecordError(f"there is no flag {flag_id}; list the flags with fieldslope flags --all.")
         kind, ind, season, field, flagged, quarantine_id, _ = row
+        later = conn.execute("SELECT batch_id FROM supersessions WHERE flag_id = ? ORDER BY id DESC LIMIT 1",
+                             (flag_id,)).fetchone()
+        if later and not conn.execute("SELECT 1 FROM resolutions WHERE flag_id = ?", (flag_id,)).fetchone():
+            raise RecordError(f"flag {flag_id} is superseded: batch {later[0]} gave a newer {field or 'value'} for "
+                              f"{ind} in {season}, so there is nothing to resolve; see fieldslope history {ind}.")
         if quarantine_id is not None:
             return QuarantineFix(self).resolve(conn, flag_id, quarantine_id, field, flagged, action, value,
                                                reason, operator)

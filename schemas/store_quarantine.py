@@ -16,6 +16,7 @@ import pandas as pd
 
 from schemas.errors import SheetError
 from schemas.records import CheckReport, FlagNote, RowError, Sheet
+from schemas.store_supersede import supersede
 from schemas.store_types import RecordError, Resolution
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -118,6 +119,7 @@ class QuarantineFix:
                                       f"{len(left)} error(s): {'; '.join(left)}.")
         record_ids = self.store._insert_records(conn, batch_id, after, outcome.valid, lambda *a: None,
                                                 correction_id=res_id)
+        supersede(conn, self.store.protocol, batch_id, outcome.valid, record_ids, now(), before=after + 1)
         self.store._insert_flags(conn, batch_id, outcome.flags, record_ids, now())
         return Resolution(flag_id, "set", old=flagged, new=str(value).strip(), joined=True,
                           message=f"flag {flag_id}: {field} set to {str(value).strip()}; row {row} of batch "

@@ -18,15 +18,17 @@ from schemas.protocol import Protocol
 
 
 def supersede(conn: sqlite3.Connection, protocol: Protocol, batch_id: int, valid: pd.DataFrame,
-              record_ids: dict[int, int], created: str) -> int:
-    """Close the earlier open flags on values this batch replaced; return how many were closed."""
+              record_ids: dict[int, int], created: str, before: int | None = None) -> int:
+    """Close the open flags of batches before ``before`` (default: this batch) on values this batch's
+    rows replaced; return how many were closed. A quarantined row that joins later passes ``before``
+    past the latest batch, since its values are then the newest."""
     p = protocol
     open_flags = conn.execute(
         "SELECT f.id, f.individual, f.season, f.field FROM flags f WHERE f.batch_id < ? "
         "AND f.quarantine_id IS NULL AND f.field NOT IN ('', ?, ?) "
         "AND NOT EXISTS (SELECT 1 FROM resolutions r WHERE r.flag_id = f.id) "
         "AND NOT EXISTS (SELECT 1 FROM supersessions s WHERE s.flag_id = f.id)",
-        (batch_id, p.id_col, p.season_col)).fetchall()
+        (batch_id if before is None else before, p.id_col, p.season_col)).fetchall()
     if not open_flags or valid.empty:
         return 0
     keys = valid[p.id_col].astype(str) + "\x1f" + valid[p.season_col].astype(str)

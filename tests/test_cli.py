@@ -258,3 +258,21 @@ def test_check_of_a_file_already_taken_in_runs_the_checks_and_names_the_batch(fo
     code, out, err = call(capsys, "check", str(folder / "late.csv"), "--study", study)
     assert code == 1 and "already taken in as batch 2" in out and "nothing was stored" in one_line(err)
     assert call(capsys, "check", str(folder / "late.csv"), "--accept-valid", "--study", study)[0] == 0
+
+
+def test_flags_all_shows_a_superseded_flag_with_its_batch(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    call(capsys, "init", study, "--protocol", str(protocol_file))
+    call(capsys, "import", str(folder / "measured.csv"), "--study", study)
+    (folder / "again.csv").write_text("tag,season,wing\nH03,2024,4.15\n")
+    (folder / "third.csv").write_text("tag,season,wing\nH03,2024,4.12\n")
+    call(capsys, "import", str(folder / "again.csv"), "--study", study)
+    assert "differs_from_record" in call(capsys, "flags", "--study", study)[1]
+    call(capsys, "import", str(folder / "third.csv"), "--study", study)
+    code, out, _ = call(capsys, "flags", "--all", "--study", study)
+    first = next(line for line in out.splitlines() if "differs_from_record" in line and "4.15" in line)
+    assert code == 0 and first.endswith("[superseded by batch 3]") and len(first) <= 80
+    assert "a later batch gave a new value" in out
+    open_now = call(capsys, "flags", "--study", study)[1]
+    heads = [line for line in open_now.splitlines() if line.startswith("#")]
+    assert len(heads) == 1 and "wing = 4.12" in heads[0]

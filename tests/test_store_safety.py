@@ -206,6 +206,21 @@ def test_a_resolved_flag_is_not_superseded_and_a_census_supersedes_missing_fitne
     assert store.flag(flags[("missing_fitness", "H02")].id).status == "superseded"
 
 
+def test_a_superseded_flag_cannot_be_resolved_and_a_joining_row_supersedes_too(study):
+    store = study.store
+    store.import_bytes("b1.csv", GOOD)
+    wing = next(f for f in store.flags() if (f.kind, f.individual, f.field) == ("out_of_range", "H03", "wing"))
+    store.import_bytes("b2.csv", b"tag,season,site,wing\nH03,2024,Far Away,4.7\n", accept_valid=True)
+    assert store.flag(wing.id).status == "open"                               # the row is not on record yet
+    q = next(f for f in store.flags() if f.kind == "quarantined")
+    assert store.resolve_flag(q.id, "set", "Reed Bend", reason="site code on the card").joined
+    assert (store.flag(wing.id).status, store.flag(wing.id).resolved_by) == ("superseded", "batch 2")
+    assert store.effective_frame().set_index("tag").at["H03", "wing"] == 4.7
+    with pytest.raises(RecordError, match="superseded: batch 2 gave a newer wing"):
+        store.resolve_flag(wing.id, "set", "5.0", reason="late note")
+    assert store.effective_frame().set_index("tag").at["H03", "wing"] == 4.7
+
+
 # -- 4. excluding one cell of a quarantined row ---------------------------------------------------
 
 def test_excluding_one_flag_of_a_quarantined_row_leaves_the_whole_row_out(study):

@@ -62,7 +62,7 @@ def print_flags(flags, out: TextIO | None = None) -> None:
         what = f"{f.field} = {f.value}" if f.field and f.value else (f.field or f.value or "record")
         status = f.status if f.status == "open" else f"{f.status} by {f.resolved_by}"
         head = f"#{f.id:<5} {f.kind:<20} {f.individual} {f.season} {what}"
-        print(cut(head, WIDTH - 22) + f"  [{cut(status, 18)}]", file=out)
+        print(cut(head, WIDTH - 25) + f"  [{cut(status, 21)}]", file=out)   # "superseded by batch 12"
         print(wrap(f"{f.message} ({f.file_name}, row {f.row})"), file=out)
         if f.status != "open" and f.reason:
             change = f"set to {f.new_value}; " if f.status == "set" else ""
