@@ -118,7 +118,6 @@ def batched_logistic(
         prep.append((feats, const, np.ascontiguousarray(X.T)))
     ok = np.ones(B, dtype=bool)
     pq_sum = np.zeros(B)
-    eta_max = np.zeros(B)
     active = np.arange(B)
     eye = np.eye(k)
     for _ in range(max_iter):
@@ -126,11 +125,10 @@ def batched_logistic(
         g = np.zeros((len(active), k))
         v = np.zeros((len(active), k))
         pq = np.zeros(len(active))
-        top = np.zeros(len(active))
         for (X, _, C, T), (feats, const, XT) in zip(cells, prep):
             Ta = T[active]
             theta = np.einsum("bak,ba->bk", Ta, beta[active])
-            packed, gz, vz, top_c = weighted_pass(X, XT, feats, C, active, theta)
+            packed, gz, vz = weighted_pass(X, XT, feats, C, active, theta)
             gz = const[active, :k] - gz  # sum C (y - p) x~
             vz = packed[:, :k] - 2 * vz  # sum C p(1-p)(1-2p) x~ (x~_0 = 1)
             Hz = np.empty((len(active), k, k))
@@ -140,7 +138,6 @@ def batched_logistic(
             g += np.einsum("bij,bj->bi", Ta, gz)
             v += np.einsum("bij,bj->bi", Ta, vz)
             pq += packed[:, -1]
-            np.maximum(top, top_c, out=top)
         bad = ~ok[active] | ~np.isfinite(H).all(axis=(1, 2)) | ~np.isfinite(g).all(axis=1)
         ok[active[bad]] = False
         H[bad] = eye
@@ -149,13 +146,14 @@ def batched_logistic(
         beta[active] += step
         # d/dbeta of sum C p(1-p) is v: carry the mean to the stepped coefficients
         pq_sum[active] = pq + np.einsum("bi,bi->b", v, step)
-        eta_max[active] = top
         done = np.abs(step).max(axis=1) < step_tol * np.maximum(1.0, np.abs(beta[active]).max(axis=1))
         active = active[~done & ok[active]]
         if not len(active):
             break
     ok[active] = False  # no convergence
-    ok &= eta_max < ETA_LIMIT  # separation: fitted probabilities of 0 or 1
+    for i in np.flatnonzero(~ok):  # rare (steep fits, poor start): refit one by one, with step halving
+        beta[i], pq_sum[i], ok[i] = refit_one(cells, i)
+    ok &= ~separated(cells, beta, ok)
     y_sum = sum(const[:, k] for _, const, _ in prep)
     n_sum = sum(const[:, k + 1] for _, const, _ in prep)
     beta[~ok] = np.nan
@@ -209,6 +207,34 @@ def taylor_start(beta0: np.ndarray, terms: list, ok: np.ndarray, rounds: int = 5
     return np.where(found[:, None], beta, newton)
 
 
+def refit_one(cells: list, i: int) -> tuple[np.ndarray, float, bool]:
+    """Resample ``i`` fitted on its drawn rows by ``fit_logistic``: (coefficients, sum of p(1-p), usable)."""
+    rows = [(np.repeat(X, C[i].astype(np.intp), axis=0) @ T[i].T, np.repeat(y, C[i].astype(np.intp)))
+            for X, y, C, T in cells]
+    X = np.vstack([r[0] for r in rows])
+    y = np.concatenate([r[1] for r in rows])
+    try:
+        fit = fit_logistic(X, y)
+    except (Separation, ValueError):
+        return np.full(X.shape[1], np.nan), np.nan, False
+    return fit.coef, float(np.sum(fit.p_hat * (1 - fit.p_hat))), True
+
+
+def separated(cells: list, beta: np.ndarray, ok: np.ndarray) -> np.ndarray:
+    """Resamples whose linear predictor exceeds ETA_LIMIT in size on some complete case of a cell
+    (fitted probabilities of 0 or 1: separation), as ``fit_logistic`` checks. A bound from the
+    largest |x~| of each trait clears almost every resample; the rest are checked row by row."""
+    out = np.zeros(len(beta), dtype=bool)
+    safe = np.where(ok[:, None], beta, 0.0)
+    for X, _, _, T in cells:
+        theta = np.einsum("bak,ba->bk", T, safe)
+        bound = np.abs(theta[:, 0]) + np.abs(theta[:, 1:]) @ np.abs(X[:, 1:]).max(axis=0, initial=0.0)
+        check = np.flatnonzero(ok & (bound >= ETA_LIMIT))
+        if len(check):
+            out[check] |= np.abs(theta[check] @ X.T).max(axis=1) >= ETA_LIMIT
+    return out
+
+
 def solve_each(H: np.ndarray, g: np.ndarray, ok: np.ndarray, active: np.ndarray) -> np.ndarray:
     """Newton steps H^-1 g of the active resamples; a singular one gets step 0 and is marked unusable."""
     try:
@@ -230,13 +256,12 @@ BLOCK = 60_000
 
 def weighted_pass(X, XT, feats, C, active, theta):
     """For resamples ``active`` (coefficients ``theta`` on X~): sum C p(1-p) feats, sum C p x~,
-    sum C p^2 (1-p) x~ and the largest |eta|, block by block."""
+    and sum C p^2 (1-p) x~, block by block."""
     m, n = len(active), X.shape[0]
     k = X.shape[1]
     packed = np.empty((m, feats.shape[1]))
     gz = np.empty((m, k))
     vz = np.empty((m, k))
-    top = np.empty(m)
     rows = max(1, BLOCK // max(n, 1))
     eta = np.empty((rows, n))
     cp = np.empty((rows, n))
@@ -245,7 +270,6 @@ def weighted_pass(X, XT, feats, C, active, theta):
         hi = min(m, lo + rows)
         e, c = eta[: hi - lo], cp[: hi - lo]
         np.matmul(-theta[lo:hi], XT, out=e)  # -eta
-        top[lo:hi] = np.maximum(e.max(axis=1, initial=0.0), -e.min(axis=1, initial=0.0))
         with np.errstate(over="ignore"):
             np.exp(e, out=e)
         e += 1.0
@@ -258,4 +282,4 @@ def weighted_pass(X, XT, feats, C, active, theta):
         e *= c
         np.subtract(c, e, out=e)  # C p (1 - p) - C p (1 - p)^2 = C p^2 (1 - p)
         np.matmul(e, X, out=vz[lo:hi])
-    return packed, gz, vz, top
+    return packed, gz, vz
