@@ -366,6 +366,9 @@ async def test_help_lists_the_keys_of_the_current_screen(filled):
         await pilot.pause()
         text = screen_text(app)
         assert "Keys: Flags" in text and "Exclude" in text and "Correct" in text
+        # the screen's own keys come first, then the global ones, Textual's generic ones last
+        keys = str(app.screen.query_one("#help-keys").render())
+        assert keys.index("Exclude") < keys.index("Outliers in/out") < keys.index("Focus Next")
         await pilot.press("escape")
         await pilot.press("3")
         await pilot.press("question_mark")

@@ -44,11 +44,14 @@ class HelpScreen(ModalScreen[None]):
                 row = ["1", "Intake screen", where]
             else:
                 row = [key_name(self.app, b), b.description, where]
+            # fieldslope's own keys (they have ids) first: this screen's, then the global ones;
+            # Textual's generic keys (focus, scrolling, copying) last
+            row.append(0 if b.id and where == "screen" else 1 if b.id and where == "app" else 2)
             index[(b.action, b.description)] = row
             rows.append(row)
         order = {"screen": 0, "field": 1, "app": 2}
-        rows.sort(key=lambda r: order[r[2]])
-        lines = [Content.assemble((f"{k:>12}  ", "bold $accent"), d) for k, d, _ in rows]
+        rows.sort(key=lambda r: (r[3], order[r[2]]))
+        lines = [Content.assemble((f"{k:>12}  ", "bold $accent"), d) for k, d, _, _ in rows]
         lines.append(Content.assemble((f"{'ctrl+p':>12}  ", "bold $accent"), "Command palette (all actions, themes)"))
         title = getattr(self.under, "TITLE_TEXT", "") or type(self.under).__name__.replace("Screen", "")
         with Vertical(id="help-box"):

@@ -195,7 +195,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         for quantity, label in (("quadratic", "γ "), ("correlational", "γ "), ("canonical", "λ ")):
             for term in snap.terms(**key, quantity=quantity):
                 v = snap.value(**key, quantity=quantity, term=term)
-                extra = (kept_in(quantity, term) or [""]) if kept is not None else []
+                extra = [] if kept is None else [""] if quantity == "canonical" else kept_in(quantity, term)
                 gam.add_row(label + str(term), est_text(v), ci_text(v, wait) if quantity != "canonical" else "",
                             p_text(v, wait) if quantity != "canonical" else "", *extra, key=f"{quantity}:{term}")
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
