@@ -1,4 +1,5 @@
-"""One individual's history: every value recorded, every flag, every resolution, in time order."""
+"""One individual's history: every value recorded, every flag, every resolution and every flag
+a later batch superseded, in time order."""
 
 from __future__ import annotations
 
@@ -40,6 +41,12 @@ def history(conn, store: "Store", individual: str) -> pd.DataFrame:
             (individual,)):
         events.append((when, 2, season, field, _EVENT[action], new or "", old or "", None, "", None, operator,
                        f"flag {flag_id}: {reason}"))
+    for when, season, field, value, batch, file, flag_id, kind in conn.execute(
+            "SELECT s.created, f.season, f.field, f.value, s.batch_id, b.file_name, f.id, f.kind "
+            "FROM supersessions s JOIN flags f ON f.id = s.flag_id JOIN batches b ON b.id = s.batch_id "
+            "WHERE f.individual = ? ORDER BY s.id", (individual,)):
+        events.append((when, 3, season, field, "flag superseded", value, "", batch, file, None, "",
+                       f"flag {flag_id} ({kind}): a later batch gave a new value"))
     frame = pd.DataFrame(events, columns=["time", "_order", *COLUMNS[1:]])
     frame = frame.sort_values(["time", "_order"], kind="stable").drop(columns="_order").reset_index(drop=True)
     frame["batch"] = frame["batch"].astype("Int64")
