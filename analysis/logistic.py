@@ -15,6 +15,10 @@ ETA_LIMIT = 30.0
 # the third-order start is used while the resample's coefficients on X~ stay this close to the
 # full-sample fit (measured: the expansion then leaves an error far below the Newton tolerance)
 TAYLOR_REACH = 0.5
+# resamples the batched Newton iteration cannot finish are refitted one by one (with step halving)
+# when they are at most this share of a batch; beyond it most are separated, the interval is
+# withheld anyway (over 5 % unusable), and refits would cost more than the batch
+REFIT_SHARE = 0.1
 
 
 class Separation(ValueError):
@@ -151,8 +155,10 @@ def batched_logistic(
         if not len(active):
             break
     ok[active] = False  # no convergence
-    for i in np.flatnonzero(~ok):  # rare (steep fits, poor start): refit one by one, with step halving
-        beta[i], pq_sum[i], ok[i] = refit_one(cells, i)
+    failed = np.flatnonzero(~ok)
+    if len(failed) <= REFIT_SHARE * B:  # rare (steep fits, poor start): refit one by one, with step halving
+        for i in failed:
+            beta[i], pq_sum[i], ok[i] = refit_one(cells, i)
     ok &= ~separated(cells, beta, ok)
     y_sum = sum(const[:, k] for _, const, _ in prep)
     n_sum = sum(const[:, k + 1] for _, const, _ in prep)
