@@ -114,7 +114,7 @@ def batched_logistic(
     a, b = np.triu_indices(k)
     prep = []
     for i, (X, y, C, _) in enumerate(cells):
-        feats = np.column_stack([X[:, a] * X[:, b], np.ones(len(X))])
+        feats = X[:, a] * X[:, b]  # products of pairs; the first, x~_0 x~_0, is 1 (intercept)
         if sums is not None:
             const = sums[i]
         else:  # sum C y x, sum C y, sum C
@@ -136,12 +136,12 @@ def batched_logistic(
             gz = const[active, :k] - gz  # sum C (y - p) x~
             vz = packed[:, :k] - 2 * vz  # sum C p(1-p)(1-2p) x~ (x~_0 = 1)
             Hz = np.empty((len(active), k, k))
-            Hz[:, a, b] = packed[:, :-1]
-            Hz[:, b, a] = packed[:, :-1]
+            Hz[:, a, b] = packed
+            Hz[:, b, a] = packed
             H += Ta @ Hz @ np.swapaxes(Ta, 1, 2)
             g += np.einsum("bij,bj->bi", Ta, gz)
             v += np.einsum("bij,bj->bi", Ta, vz)
-            pq += packed[:, -1]
+            pq += packed[:, 0]  # sum C p(1-p)
         bad = ~ok[active] | ~np.isfinite(H).all(axis=(1, 2)) | ~np.isfinite(g).all(axis=1)
         ok[active[bad]] = False
         H[bad] = eye
