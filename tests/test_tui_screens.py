@@ -438,6 +438,8 @@ async def test_flags_correct_a_value(study, write_batch, hopper_rows):
         await pilot.press("2")
         await pilot.pause()
         assert app.screen.rows[0]["kind"] == "out_of_range"
+        # kinds in plain words on screen, not the store's names
+        assert "out of range 1" in screen_text(app) and "out_of_range" not in screen_text(app)
         await pilot.press("c")
         await pilot.pause()
         app.screen.query_one("#form-value").value = "1.74"

@@ -183,3 +183,13 @@ def records(items: Any) -> tuple[dict, ...]:
     if hasattr(items, "to_dict") and hasattr(items, "columns"):
         return tuple(items.to_dict("records"))
     return tuple(_as_dict(x) for x in items)
+
+
+KIND_LABELS = {"differs_from_record": "differs", "out_of_range": "out of range", "outlier": "outlier",
+               "missing_fitness": "no fitness", "duplicate_id": "duplicate ID", "mangled_id": "mangled ID",
+               "quarantined": "quarantined", "unknown_parent": "parent?"}
+
+
+def kind_label(kind) -> str:
+    """A flag kind in plain words (the store's names have underscores)."""
+    return KIND_LABELS.get(str(kind), str(kind).replace("_", " "))

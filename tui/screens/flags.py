@@ -16,13 +16,8 @@ from tui.messages import StoreWritten
 from tui.screens.base import StudyScreen
 from tui.screens.dialogs import FormScreen
 from tui.screens.intake import operator_name
-from tui.snapshot import Snapshot
+from tui.snapshot import Snapshot, kind_label
 from tui.widgets.pictures import histogram_strip
-
-
-KIND_LABELS = {"differs_from_record": "differs", "out_of_range": "range", "outlier": "outlier",
-               "missing_fitness": "no fitness", "duplicate_id": "duplicate", "mangled_id": "mangled ID",
-               "quarantined": "quarantined", "unknown_parent": "parent?"}
 
 
 def is_open(flag: dict) -> bool:
@@ -89,7 +84,7 @@ class FlagsScreen(StudyScreen):
         for f in open_flags:
             counts[f.get("kind", "")] = counts.get(f.get("kind", ""), 0) + 1
         head = [("History (resolved flags)  " if self.history else "Open flags  ", "bold")]
-        head += [(f"{k} {v}  ", "$warning") for k, v in sorted(counts.items())] or [("none", "$success")]
+        head += [(f"{kind_label(k)} {v}  ", "$warning") for k, v in sorted(counts.items())] or [("none", "$success")]
         self.query_one("#flags-counts", Static).update(Content.assemble(*head))
         table = self.query_one("#flags-table", DataTable)
         keep = table.cursor_row
@@ -97,7 +92,7 @@ class FlagsScreen(StudyScreen):
         last = None
         for f in flags:
             group = (f.get("kind"), f["_site"], f.get("batch_id"))
-            kind = KIND_LABELS.get(str(group[0]), str(group[0]))
+            kind = kind_label(group[0])
             shown = ("", "", "") if group == last else (kind, str(group[1])[:14], str(group[2]))
             last = group
             table.add_row(*shown, str(f.get("individual", "")), str(f.get("field", ""))[:10],
@@ -117,7 +112,7 @@ class FlagsScreen(StudyScreen):
 
     def detail(self, snap: Snapshot, flag: dict) -> None:
         p = snap.protocol
-        lines: list[Content] = [Content.assemble((f"{flag.get('kind')}: ", "bold $warning"), str(flag.get("message", "")))]
+        lines: list[Content] = [Content.assemble((f"{kind_label(flag.get('kind'))}: ", "bold $warning"), str(flag.get("message", "")))]
         lines.append(Content(f"flag {flag.get('id')}, batch {flag.get('batch_id')} {flag.get('file_name', '')}, "
                              f"sheet row {flag.get('row')}"))
         if not is_open(flag):
@@ -170,7 +165,7 @@ class FlagsScreen(StudyScreen):
         flag = self._picked()
         if flag is None:
             return
-        what = f"{flag.get('individual')} {flag.get('field') or 'record'} = {flag.get('value')!s} ({flag.get('kind')})"
+        what = f"{flag.get('individual')} {flag.get('field') or 'record'} = {flag.get('value')!s} ({kind_label(flag.get('kind'))})"
         fields = [("reason", "Reason", "")]
         if action == "set":
             fields.insert(0, ("value", "New value", str(flag.get("value") or "")))

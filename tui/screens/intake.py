@@ -17,7 +17,7 @@ from textual.widgets import DataTable, Input, Static, TabbedContent, TabPane
 from tui.messages import StoreWritten
 from tui.screens.base import StudyScreen
 from tui.screens.dialogs import ConfirmScreen
-from tui.snapshot import Snapshot
+from tui.snapshot import Snapshot, kind_label
 
 
 def operator_name() -> str:
@@ -163,7 +163,7 @@ class IntakeScreen(StudyScreen):
         for e in r.errors:
             report.add_row(str(e.row), e.column, e.value or "", f"ERROR {e.reason}")
         for f in r.flags:
-            report.add_row(str(f.row), f.field, f.value or "", f"flag {f.kind}: {f.message}")
+            report.add_row(str(f.row), f.field, f.value or "", f"flag {kind_label(f.kind)}: {f.message}")
         sheet = self.query_one("#intake-sheet", DataTable)
         sheet.clear(columns=True)
         if msg.preview is not None:
@@ -205,7 +205,7 @@ class IntakeScreen(StudyScreen):
         if accept_valid and bad:
             lines.append(f"Rows kept in quarantine (visible and fixable on Flags): {bad}")
         if r.flags:
-            counts = ", ".join(f"{k} {v}" for k, v in sorted(r.flag_counts().items()))
+            counts = ", ".join(f"{kind_label(k)} {v}" for k, v in sorted(r.flag_counts().items()))
             lines.append(f"Flags opened: {len(r.flags)} ({counts})")
         lines.append("Stored values are never overwritten; corrections are added later with a reason.")
         title = "Take in the valid rows?" if accept_valid else "Take in this batch?"
