@@ -622,3 +622,13 @@ async def test_screens_say_why_they_are_empty_when_no_batch_has_fitness(study, w
         await wait_for(app, pilot, lambda: bool(app.screen.files), timeout=10, what="the arrived file")
         await pilot.pause()
         assert EMPTY_SENTENCE not in screen_text(app) and "Pick a file" in screen_text(app)
+
+
+def test_response_notes_are_cut_between_sentences_never_inside_one():
+    from tui.screens.response import whole_sentences
+
+    notes = ["First note here.", "Second note, a longer one.", "Third " + "x" * 60 + "."]
+    assert whole_sentences(notes, 112) == " ".join(notes)
+    assert whole_sentences(notes, 50) == "First note here. (2 more notes: fieldslope estimate lists them all.)"
+    assert whole_sentences(notes, 100) == ("First note here. Second note, a longer one. "
+                                           "(1 more note: fieldslope estimate lists them all.)")

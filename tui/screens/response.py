@@ -54,7 +54,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             yield Static(id="resp-projection", classes="notes panel")
 
     def on_mount(self) -> None:
-        self.query_one("#resp-table", DataTable).add_columns("trait", "h²", "source", "S", "R", "R %", "Δz̄ (Gβ)")
+        self.query_one("#resp-table", DataTable).add_columns("trait", "h²", "source", "S", "R", "R % mean", "Δz̄ (Gβ)")
 
     def action_focus_generations(self) -> None:
         self.query_one("#resp-k", Input).focus()
@@ -85,7 +85,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     def show(self, snap: Snapshot) -> None:
         c = self.choices
         c.settle(snap)
-        self.query_one("#resp-choices", Static).update(c.bar(snap, ("season", "site", "fitness"), "h enters h²"))
+        self.query_one("#resp-choices", Static).update(c.bar(snap, ("season", "site", "fitness"), "h sets h²"))
         table = self.query_one("#resp-table", DataTable)
         keep = table.cursor_row
         table.clear()
@@ -105,7 +105,9 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
                   and getattr(n, "season", c.season) in (c.season, ALL)]
         picked.sort(key=lambda n: order.index(n.quantity))
         notes = [getattr(n, "message", str(n)) for n in picked]
-        g_text = "Δz̄ = G·β_raw (Lande 1979). " + (" ".join(dict.fromkeys(notes))[:400] if notes else "")
+        head = "Δz̄ = G·β_raw (Lande 1979). "
+        room = 4 * max(40, self.size.width - 4) - len(head) - 12   # the notes box is 4 lines high
+        g_text = head + whole_sentences(list(dict.fromkeys(notes)), room)
         self.query_one("#resp-g", Static).update(Content.assemble((g_text, "$text-muted")))
         self._projection()
 
@@ -181,6 +183,21 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     def on_response_screen_h2_saved(self, msg: H2Saved) -> None:
         self.app.notify(msg.text, timeout=4)
         self.post_message(StoreWritten(msg.text))
+
+
+def whole_sentences(notes: list[str], limit: int) -> str:
+    """The notes joined, as many whole notes as fit in ``limit`` characters (never cut mid-sentence);
+    when some are left out, the last part says how many and where to read them."""
+    if sum(len(n) + 1 for n in notes) <= limit:
+        return " ".join(notes)
+    out: list[str] = []
+    for note in notes:
+        if out and sum(len(n) + 1 for n in out) + len(note) > limit - 55:
+            left = len(notes) - len(out)
+            out.append(f"({left} more note{'' if left == 1 else 's'}: fieldslope estimate lists them all.)")
+            break
+        out.append(note)
+    return " ".join(out)
 
 
 def _e(row: dict | None) -> str:
