@@ -37,7 +37,7 @@ class IntakeScreen(StudyScreen):
         Binding("enter", "check", "Check", id="intake_check", show=False),
         Binding("c", "check", "Check", id="intake_check_c"),
         Binding("i", "take_in", "Take in", id="intake_take"),
-        Binding("a", "take_valid", "Take valid rows", id="intake_take_valid"),
+        Binding("a", "take_valid", "Valid rows only", id="intake_take_valid"),
         Binding("slash", "open_path", "Open path", id="intake_path", key_display="/"),
         Binding("r", "rescan", "Rescan", id="intake_rescan", show=False),
         Binding("escape", "leave_path", "Leave the path field", id="intake_leave", show=False),
