@@ -259,6 +259,7 @@ async def test_intake_takes_in_a_good_file_and_quarantines_a_bad_one(filled, hop
         await wait_for(app, pilot, lambda: app.snapshot.n_batches == 6 and ready(app), what="bad.csv partly stored")
         last = filled.store.batches()[-1]
         assert (last.outcome, last.n_stored, last.n_quarantined) == ("partial", 5, 1)
+        assert "now open flags on the Flags screen [2]" in screen_text(app)
 
 
 @pytest.mark.parametrize("size", SIZES)

@@ -229,6 +229,10 @@ class IntakeScreen(StudyScreen):
         text = _outcome_line(r)
         self.query_one("#intake-summary", Static).update(text)
         self.app.notify(text, severity="information" if r.ok else "error", timeout=6)
+        if r.ok and (r.flags or r.n_quarantined):
+            # the problems listed above are now open flags: say where they are dealt with
+            self.query_one("#intake-problem", Static).update(
+                "Taken in: the problems listed above are now open flags on the Flags screen [2].")
         self.checked = None
         self.post_message(StoreWritten(text))
         self.action_rescan()
