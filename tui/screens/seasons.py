@@ -108,7 +108,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
                 if lo is None and mean["se"] is not None:  # fixed-effect interval, mean ± 1.96 se
                     lo, hi = mean["estimate"] - 1.96 * mean["se"], mean["estimate"] + 1.96 * mean["se"]
                 rows.append((f"mean {name}", mean["estimate"], lo, hi))
-                marks.append("w")
+                marks.append("")          # the row's label says "mean"; "w" would read as fitness
             tau2 = snap.value(ALL, site, c.fitness, "gradient_tau2", trait)
             q = snap.value(ALL, site, c.fitness, "gradient_q", trait)
             sc = snap.value(ALL, site, c.fitness, "sign_changes", trait)
@@ -128,7 +128,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         if not summary:
             summary.append(Content("Across-season summaries need at least two seasons with gradients at a site."))
         summary.append(Content.assemble(("Weighted mean: weights 1/se²; τ²: DerSimonian–Laird between-season "
-                                         "variance; w: weighted mean ± 1.96 se.", "$text-muted")))
+                                         "variance; the mean rows show the weighted mean ± 1.96 se.", "$text-muted")))
         self.query_one("#sea-summary", Static).update(Content("\n").join(summary))
 
     # -- this season, batch by batch ---------------------------------------
