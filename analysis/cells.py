@@ -100,7 +100,10 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
     prep.single = [None] * p
     rows = np.flatnonzero(has_w)
     if len(rows) < 2:
-        prep.notes.append(("", f"Only {len(rows)} individuals {where} have {fitness}; at least 2 are needed for any estimate."))
+        if len(rows) == 0:
+            prep.notes.append(("", f"No individual {where} has {fitness} recorded yet; estimates follow once it is."))
+        else:
+            prep.notes.append(("", f"Only 1 individual {where} has {fitness}; at least 2 are needed for any estimate."))
         return prep
     Wf = W[rows]
     if Wf.mean() <= 0:

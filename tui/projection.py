@@ -55,7 +55,7 @@ def sample_size_text(last: dict, width_text: str, n_traits: int) -> Content:
     if width is None or width <= 0:
         return Content("Type the total interval width you want (in units of β, e.g. 0.2).")
     se, n = last.get("se"), last.get("n")
-    if se is None or not n or n <= n_traits + 1:
+    if se is None or not se > 0 or not n or n <= n_traits + 1:
         return Content("The latest batch gives no standard error for this β yet.")
     scaled = se * se * (int(n) - n_traits - 1)
     need = individuals_for_gradient(width / 2, scaled, 1.0, n_traits)
