@@ -478,8 +478,21 @@ class Store:
         old = ""
         if (ind, season) in current.index:
             old = checks.show(current.at[(ind, season), field])
-        conn.execute("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
-                     "VALUES (?,?,?,?,?,?,?,?)", (flag_id, "set", old, new, reason, operator, now(), after))
+        # The corrected value answers every other open flag on the same value (e.g. out of range and
+        # outlier on one slip): each gets its own audit row naming this correction.
+        siblings = [r[0] for r in conn.execute(
+            "SELECT f.id FROM flags f WHERE f.individual = ? AND f.season = ? AND f.field = ? AND f.id <> ? "
+            "AND f.quarantine_id IS NULL "
+            "AND NOT EXISTS (SELECT 1 FROM resolutions r WHERE r.flag_id = f.id) "
+            "AND NOT EXISTS (SELECT 1 FROM supersessions s WHERE s.flag_id = f.id)",
+            (ind, season, field, flag_id))]
+        stamp = now()
+        conn.executemany(
+            "INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
+            "VALUES (?,?,?,?,?,?,?,?)",
+            [(flag_id, "set", old, new, reason, operator, stamp, after)]
+            + [(sid, "set", old, new, f"{reason} (corrected under flag {flag_id})", operator, stamp, after)
+               for sid in siblings])
         return Resolution(flag_id, "set", old=old, new=new,
                           message=f"flag {flag_id}: {ind} {season} {field} set from {old or 'blank'} to {new}.")
 

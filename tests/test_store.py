@@ -119,6 +119,22 @@ def test_correction_is_audited_and_changes_the_effective_value(study):
     assert study.store.flag(flag.id).status == "set"
 
 
+def test_a_correction_closes_the_other_open_flags_on_that_value(study, write_batch):
+    rows = [dict(tag=f"H{i:02d}", season=2024, site="Gull Flat", wing=w, tibia=1.5, survived=1, clutch=2)
+            for i, w in enumerate([4.50, 4.52, 4.48, 4.51, 4.49, 4.53, 4.47, 45.1])]
+    study.store.import_file(write_batch(rows))
+    on_slip = {f.kind: f for f in study.store.flags() if f.individual == "H07"}
+    assert set(on_slip) == {"out_of_range", "outlier"}
+    study.store.resolve_flag(on_slip["out_of_range"].id, "set", "4.51", reason="decimal slip", operator="bo")
+    assert not [f for f in study.store.flags() if f.individual == "H07"]
+    sibling = study.store.flag(on_slip["outlier"].id)
+    assert sibling.status == "set" and f"flag {on_slip['out_of_range'].id}" in sibling.reason
+    frame = study.store.effective_frame(without_open_outliers=True).set_index("tag")
+    assert frame.at["H07", "wing"] == 4.51
+    hist = study.store.history("H07")
+    assert ("recorded", "45.1") in set(zip(hist.event, hist.value))     # the raw value stays on record
+
+
 def test_exclude_keep_and_outlier_sensitivity(study, write_batch):
     rows = [dict(tag=f"H{i:02d}", season=2024, site="Gull Flat", wing=w, tibia=1.5, survived=1, clutch=2)
             for i, w in enumerate([4.50, 4.52, 4.48, 4.51, 4.49, 4.53, 4.47, 5.9])]
