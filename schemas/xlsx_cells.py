@@ -59,7 +59,7 @@ def _check_archive(label: str, data: bytes) -> None:
     try:
         with zipfile.ZipFile(io.BytesIO(data)) as zf:
             infos = zf.infolist()
-    except Exception:  # noqa: BLE001 - zipfile raises many kinds (BadZipFile, NotImplementedError, ...)
+    except Exception:  # noqa: BLE001 - zipfile raises many kinds (BadZipFile, unsupported compression, ...)
         raise SheetError(f"{label}: {_INCOMPLETE}") from None
     names = {info.filename for info in infos}
     if "xl/workbook.xml" not in names:
