@@ -98,6 +98,32 @@ async def test_a_damaged_store_is_one_clear_message(tmp_path, protocol_file):
         assert "Keys" in screen_text(app)
 
 
+async def test_a_store_damaged_by_a_crash_is_browsed_read_only(tmp_path, protocol_file):
+    import subprocess
+    import sys
+
+    from schemas.study import Study
+
+    with Study.create(tmp_path / "s", protocol_file) as study:
+        study.store.import_bytes("b1.csv", b"tag,season,site,wing,tibia,survived,clutch\n"
+                                           b"H01,2024,Gull Flat,4.5,1.5,1,3\nH02,2024,Gull Flat,4.6,1.6,0,0\n")
+    # another process leaves a flag pointing to a missing batch and dies without closing
+    code = ("import os, sqlite3, sys\nc = sqlite3.connect(sys.argv[1], isolation_level=None)\n"
+            "c.execute('PRAGMA journal_mode = WAL')\n"
+            "c.execute(\"INSERT INTO flags(kind, individual, season, message, batch_id, created) "
+            "VALUES ('outlier', 'H09', '2024', 'x', 999, 't')\")\nos._exit(0)\n")
+    subprocess.run([sys.executable, "-c", code, str(tmp_path / "s" / "fieldslope.sqlite")], check=True)
+    app = make_app(tmp_path / "s")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: app.study_ready and app.snapshot is not None, what="figures")
+        assert app.readonly and "damaged" in app.write_refusal()
+        assert "in use by another program" not in app.write_refusal()
+        assert "read-only" in screen_text(app)
+        await pilot.press("2")                         # browsing still works
+        await pilot.pause()
+        assert app.current_mode == "flags"
+
+
 @pytest.mark.parametrize("size", SIZES)
 async def test_selection_table_matches_the_estimates_and_switches(filled, size):
     app = make_app(filled.root)

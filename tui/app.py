@@ -150,6 +150,7 @@ class FieldslopeApp(App):
         self.start_mode = start_mode
         self.protocol = None
         self.readonly = False
+        self.readonly_reason = ""      # the sentence that explains read-only mode, when known
         self.locked = False                  # another program holds the store's write lock (for now)
         self._polls = 0
         self.study_ready = False
@@ -214,6 +215,7 @@ class FieldslopeApp(App):
 
     def on_study_ready(self, msg: StudyReady) -> None:
         self.protocol, self.readonly = msg.protocol, msg.readonly
+        self.readonly_reason = msg.warning if msg.readonly else ""
         self.study_ready = True
         self.error = msg.warning
         self.note = ""
@@ -371,8 +373,9 @@ class FieldslopeApp(App):
         from tui.loading import LOCKED_SENTENCE
 
         if self.readonly:
-            return ("The record store cannot be written from this account (file or folder permissions), so "
-                    "the dashboard is read-only: ask for group write access to the study folder.")
+            return self.readonly_reason or (
+                "The record store cannot be written from this account (file or folder permissions), so "
+                "the dashboard is read-only: ask for group write access to the study folder.")
         if self.locked:
             return LOCKED_SENTENCE
         return ""

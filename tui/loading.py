@@ -34,8 +34,11 @@ def open_study(study_dir: Path):
         return study.protocol, True, f"{exc} The dashboard is read-only until this is fixed."
     try:
         study.store.batches()                  # a damaged file fails here, with the store's sentence
+        damaged = getattr(study.store, "damaged", "")   # the open-time check after an unclean shutdown
     finally:
         _close(study)
+    if damaged:
+        return study.protocol, True, f"{damaged} The dashboard is read-only until this is fixed."
     if not writable(study.db_path):
         return study.protocol, True, (
             f"{study.db_path}: you cannot write to the record store (file or folder permissions), so the "
