@@ -419,25 +419,24 @@ async def test_a_store_you_cannot_write_opens_read_only(filled, monkeypatch):
         assert "read-only" in screen_text(app) and not filled.store.heritability_entries().shape[0]
 
 
+async def run_from_palette(pilot, text: str) -> None:
+    """Open the command palette, type ``text`` and run the first match."""
+    await pilot.press("ctrl+p")
+    await pilot.pause()
+    for ch in text:
+        await pilot.press("space" if ch == " " else ch)
+    await pilot.pause(0.3)
+    await pilot.press("enter")
+    await pilot.pause(0.3)
+
+
 async def test_command_palette_offers_the_main_actions(filled):
     app = make_app(filled.root)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(app, pilot, lambda: ready(app))
-        await pilot.press("ctrl+p")
-        await pilot.pause()
-        for ch in "show flags":
-            await pilot.press("space" if ch == " " else ch)
-        await pilot.pause(0.3)
-        await pilot.press("enter")
-        await pilot.pause(0.3)
+        await run_from_palette(pilot, "show flags")
         assert app.current_mode == "flags"
-        await pilot.press("ctrl+p")
-        await pilot.pause()
-        for ch in "by path":
-            await pilot.press("space" if ch == " " else ch)
-        await pilot.pause(0.3)
-        await pilot.press("enter")
-        await pilot.pause(0.3)
+        await run_from_palette(pilot, "by path")
         assert app.current_mode == "intake" and app.focused is app.screen.query_one("#intake-path")
 
 
