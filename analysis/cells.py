@@ -14,9 +14,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from analysis.design import Design
-from analysis.fitness import is_binary
-from analysis.standardize import constant_columns
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.fitness import is_binary
+from fieldslope.analysis.standardize import constant_columns
 
 MIN_SINGLE = 3  # individuals for a per-trait differential with a standard error
 

@@ -5,11 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from analysis.design import Design
-from analysis.heritability import parent_offspring
-from analysis.point import BlockResult
-from analysis.response import breeders_response, genetic_covariance, multivariate_response, response_se
-from analysis.seasons import combine, sign_changes
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.heritability import parent_offspring
+from fieldslope.analysis.point import BlockResult
+from fieldslope.analysis.response import breeders_response, genetic_covariance, multivariate_response, response_se
+from fieldslope.analysis.seasons import combine, sign_changes
 
 ALL = "all"
 

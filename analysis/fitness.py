@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from analysis.design import Design
+from fieldslope.analysis.design import Design
 
 
 def add_totals(frame: pd.DataFrame, design: Design) -> pd.DataFrame:

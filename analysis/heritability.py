@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from analysis.design import Design
-from analysis.linear import Collinear, ols
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.linear import Collinear, ols
 
 MIN_FAMILIES = 3
 

@@ -17,8 +17,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from analysis.cells import Sample
-from analysis.quadratic import quad_pairs
+from fieldslope.analysis.cells import Sample
+from fieldslope.analysis.quadratic import quad_pairs
 
 
 @dataclass

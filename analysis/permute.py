@@ -12,9 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from analysis.cells import Prepared
-from analysis.point import with_intercept
-from analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
+from fieldslope.analysis.cells import Prepared
+from fieldslope.analysis.point import with_intercept
+from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
 
 ALL = "all"
 

@@ -7,7 +7,7 @@ import math
 import numpy as np
 from scipy import stats
 
-from analysis.errors import EstimationError
+from fieldslope.common.errors import EstimationError
 
 
 def variance_inflation(correlation: np.ndarray) -> np.ndarray:

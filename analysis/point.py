@@ -11,12 +11,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from analysis.cells import Prepared, Sample
-from analysis.fitness import relative
-from analysis.linear import Collinear, ols
-from analysis.logistic import Separation, fit_logistic, logistic_gradient
-from analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
-from analysis.standardize import standardize
+from fieldslope.analysis.cells import Prepared, Sample
+from fieldslope.analysis.fitness import relative
+from fieldslope.analysis.linear import Collinear, ols
+from fieldslope.analysis.logistic import Separation, fit_logistic, logistic_gradient
+from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
+from fieldslope.analysis.standardize import standardize
 
 
 @dataclass(frozen=True)

@@ -16,9 +16,9 @@ from itertools import combinations_with_replacement
 
 import numpy as np
 
-from analysis.cells import Prepared
-from analysis.logistic import Separation, batched_logistic, fit_logistic, taylor_start
-from analysis.moments import (
+from fieldslope.analysis.cells import Prepared
+from fieldslope.analysis.logistic import Separation, batched_logistic, fit_logistic, taylor_start
+from fieldslope.analysis.moments import (
     FeatureMatrix,
     MultiMoments,
     batched_solve,
@@ -27,8 +27,8 @@ from analysis.moments import (
     single_sums,
     unpack_multi,
 )
-from analysis.point import stack, with_intercept
-from analysis.quadratic import canonical_axes, gamma_matrix, quad_pairs, quad_terms
+from fieldslope.analysis.point import stack, with_intercept
+from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_pairs, quad_terms
 
 ALL = "all"
 CHUNK = 200  # resamples per chunk: bounds memory to CHUNK x cell size numbers
@@ -247,7 +247,7 @@ def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int,
 
 def permute_season(permuter, season: str, P: int, seed: int, tick) -> dict[tuple, float]:
     """Permutation p-values of a season keyed like the table."""
-    from analysis.permute import permutation_p
+    from fieldslope.analysis.permute import permutation_p
 
     observed = permuter.observed()
     pieces: dict[tuple, list[np.ndarray]] = {}

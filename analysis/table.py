@@ -32,14 +32,14 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from analysis.cells import prepare, split_cells
-from analysis.derived import heritabilities, response_rows, temporal_rows
-from analysis.design import Design
-from analysis.errors import EstimationError  # also importable from here, as before
-from analysis.fitness import add_totals, total_kind
-from analysis.permute import SeasonPermuter
-from analysis.point import point_block
-from analysis.resample import SeasonResampler, bootstrap_season, percentile_interval, permute_season
+from fieldslope.analysis.cells import prepare, split_cells
+from fieldslope.analysis.derived import heritabilities, response_rows, temporal_rows
+from fieldslope.analysis.design import Design
+from fieldslope.common.errors import EstimationError
+from fieldslope.analysis.fitness import add_totals, total_kind
+from fieldslope.analysis.permute import SeasonPermuter
+from fieldslope.analysis.point import point_block
+from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval, permute_season
 
 COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
 # the default random seed for bootstrap resamples and permutations (same seed, same numbers)

@@ -57,7 +57,7 @@ FIRST_PAINT_CHILD = """
 import sys, time
 t0 = time.perf_counter()
 sys.path.insert(0, {root!r})
-from tui.app import FieldslopeApp
+from fieldslope.tui.app import FieldslopeApp
 
 class Timed(FieldslopeApp):
     def on_mount(self):  # Textual runs the base class's on_mount too
@@ -73,7 +73,7 @@ Timed(None).run(headless=True)
 IMPORT_CHILD = """
 import sys, time
 sys.path.insert(0, {root!r})
-from schemas.study import Study
+from fieldslope.schemas.study import Study
 with Study.open({study!r}) as s:
     r = s.store.import_file({path!r}, operator="other-process")
 print(time.time(), r.outcome)
@@ -106,7 +106,7 @@ def first_paint(rounds: int) -> list[float]:
 
 
 def build_study(folder: Path, individuals: int) -> Path:
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     proto = folder / "protocol.toml"
     proto.write_text(PROTOCOL)
@@ -122,7 +122,7 @@ def build_study(folder: Path, individuals: int) -> Path:
 
 
 async def live_update(root: Path, folder: Path, bootstrap: int, rounds: int) -> dict[str, list[float]]:
-    from tui.app import FieldslopeApp
+    from fieldslope.tui.app import FieldslopeApp
 
     app = FieldslopeApp(root, bootstrap=bootstrap, poll_interval=0.5)
     figures: dict[str, list[float]] = {"points": [], "commit_to_poll": [], "intervals": [], "first_points": []}

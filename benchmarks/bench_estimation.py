@@ -21,10 +21,10 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from analysis.cells import prepare, split_cells  # noqa: E402
-from analysis.design import Design  # noqa: E402
-from analysis.resample import SeasonResampler, draw_counts  # noqa: E402
-from analysis.table import BLAS_THREADS, estimate_table  # noqa: E402
+from fieldslope.analysis.cells import prepare, split_cells  # noqa: E402
+from fieldslope.analysis.design import Design  # noqa: E402
+from fieldslope.analysis.resample import SeasonResampler, draw_counts  # noqa: E402
+from fieldslope.analysis.table import BLAS_THREADS, estimate_table  # noqa: E402
 from threadpoolctl import threadpool_limits  # noqa: E402
 
 TRAITS = ("length", "depth", "spots")

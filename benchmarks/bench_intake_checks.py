@@ -19,9 +19,9 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from schemas.protocol import parse_protocol  # noqa: E402
-from schemas.readers import read_sheet  # noqa: E402
-from schemas.validate import check_sheet  # noqa: E402
+from fieldslope.schemas.protocol import parse_protocol  # noqa: E402
+from fieldslope.schemas.readers import read_sheet  # noqa: E402
+from fieldslope.schemas.validate import check_sheet  # noqa: E402
 
 PROTOCOL = parse_protocol("""\
 [study]

@@ -19,7 +19,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from schemas.study import Study  # noqa: E402
+from fieldslope.schemas.study import Study  # noqa: E402
 
 PROTOCOL = """\
 [study]

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from schemas.protocol import Protocol
+from fieldslope.schemas.protocol import Protocol
 
 
 @dataclass(frozen=True)

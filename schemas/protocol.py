@@ -11,7 +11,7 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from schemas.errors import ProtocolError
+from fieldslope.common.errors import ProtocolError
 
 FITNESS_KINDS = ("binary", "count", "continuous")
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")

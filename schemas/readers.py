@@ -17,9 +17,9 @@ from pathlib import PurePath
 
 import pandas as pd
 
-from schemas.errors import SheetError
-from schemas.records import Sheet
-from schemas.xlsx_cells import read_xlsx_rows
+from fieldslope.common.errors import SheetError
+from fieldslope.schemas.records import Sheet
+from fieldslope.schemas.xlsx_cells import read_xlsx_rows
 
 MAX_BYTES = 50 * 1024 * 1024      # largest batch file accepted
 MAX_ROWS = 1_000_000              # most data rows accepted

@@ -16,32 +16,26 @@ import math
 import sqlite3
 import threading
 from dataclasses import replace
-from datetime import datetime, timezone
 from itertools import islice, repeat
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 import pandas as pd
 
-from schemas import effective as eff
-from schemas import store_checks as checks
-from schemas import store_health as health
-from schemas import store_schema as schema
-from schemas.errors import SheetError, StoreError
-from schemas.protocol import Protocol
-from schemas.records import CheckReport, FlagNote, RowError
-from schemas.store_quarantine import QuarantineFix
-from schemas.store_supersede import supersede
-from schemas.store_types import BatchInfo, ImportResult, RecordError, Resolution, StoredFlag
+from fieldslope.schemas import effective as eff
+from fieldslope.schemas import store_checks as checks
+from fieldslope.schemas import store_health as health
+from fieldslope.schemas import store_schema as schema
+from fieldslope.common.errors import SheetError, StoreError
+from fieldslope.schemas.protocol import Protocol
+from fieldslope.schemas.records import CheckReport, FlagNote, RowError
+from fieldslope.schemas.batch_plan import BatchPlan, Progress, now
+from fieldslope.schemas.store_quarantine import QuarantineFix
+from fieldslope.schemas.store_supersede import supersede
+from fieldslope.schemas.store_types import BatchInfo, ImportResult, RecordError, Resolution, StoredFlag
 
-Progress = Callable[[int, int, str], None]
 OPTIONAL_TEXT = ("date", "observer", "notes")
 _CHUNK = 20_000
-
-
-def now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="seconds")
 
 
 def default_operator() -> str:
@@ -259,10 +253,10 @@ class Store:
         progress = progress or (lambda done, total, stage: None)
         earlier = self._taken_in(hashlib.sha256(data).hexdigest())
         if earlier is not None:     # quick answer without reading the sheet (checked again when writing)
-            plan = _Plan(name, data, None, None)
+            plan = BatchPlan(name, data, None, None)
             return _Outcome(plan, "duplicate", duplicate_of=earlier[0],
                             message=_duplicate_message(name, *earlier)).result(earlier[0])
-        plan = _Plan.make(self.protocol, name, data, progress)
+        plan = BatchPlan.make(self.protocol, name, data, progress)
         operator = operator or default_operator()
         return self._write(lambda conn: self._store(conn, plan, operator, accept_valid, progress))
 
@@ -273,7 +267,7 @@ class Store:
         """Run every check an import would run, without writing anything. Bytes already taken in give
         outcome ``duplicate``; with ``recheck`` they are checked against the record all the same (a dry
         run), and ``earlier`` names the batch that took them in."""
-        plan = _Plan.make(self.protocol, name, data, lambda *a: None)
+        plan = BatchPlan.make(self.protocol, name, data, lambda *a: None)
 
         def evaluate(conn):
             dup = _earlier_batch(conn, plan.sha) if recheck else None
@@ -290,7 +284,7 @@ class Store:
         path = Path(path)
         return self.check_bytes(path.name, _read_file(path), accept_valid=accept_valid, recheck=recheck)
 
-    def _evaluate(self, conn: sqlite3.Connection, plan: "_Plan", accept_valid: bool,
+    def _evaluate(self, conn: sqlite3.Connection, plan: "BatchPlan", accept_valid: bool,
                   recheck: bool = False) -> "_Outcome":
         dup = plan.sha and not recheck and _earlier_batch(conn, plan.sha)
         if dup:
@@ -328,7 +322,7 @@ class Store:
             f", {len(bad_rows)} quarantined (fix them with fieldslope resolve)" if bad_rows else "") + "."
         return _Outcome(plan, outcome, errors=errors, flags=flags, valid=valid, bad_rows=bad_rows, message=msg)
 
-    def _store(self, conn, plan: "_Plan", operator: str, accept_valid: bool, progress: Progress) -> ImportResult:
+    def _store(self, conn, plan: "BatchPlan", operator: str, accept_valid: bool, progress: Progress) -> ImportResult:
         out = self._evaluate(conn, plan, accept_valid)
         if out.outcome == "duplicate":
             return out.result(out.duplicate_of)
@@ -520,7 +514,7 @@ class Store:
     # -- history -----------------------------------------------------------------------
     def history(self, individual: str) -> pd.DataFrame:
         """One individual's values, flags and changes in time order."""
-        from schemas.store_history import history
+        from fieldslope.schemas.store_history import history
         return self._read(lambda c: history(c, self, str(individual)))
 
     # -- heritability ------------------------------------------------------------------
@@ -580,29 +574,8 @@ def _read_file(path: Path) -> bytes:
         raise SheetError(f"{path}: cannot be read ({exc.strerror}).") from None
 
 
-class _Plan:
-    """A batch read and checked against the protocol (no store needed)."""
-
-    def __init__(self, name, data, sha, report: CheckReport | None, refusal: str = ""):
-        self.name, self.data, self.sha, self.report, self.refusal = name, data, sha, report, refusal
-
-    @classmethod
-    def make(cls, protocol: Protocol, name: str, data: bytes, progress: Progress) -> "_Plan":
-        from schemas.readers import read_sheet
-        from schemas.validate import check_sheet
-
-        sha = hashlib.sha256(data).hexdigest()
-        progress(0, 1, "reading")
-        try:
-            report = check_sheet(protocol, read_sheet(name, data))
-        except SheetError as exc:
-            return cls(name, data, sha, None, str(exc))
-        progress(0, 1, "checking")
-        return cls(name, data, sha, report)
-
-
 class _Outcome:
-    def __init__(self, plan: _Plan, outcome: str, errors=(), flags=(), valid=None, bad_rows=(),
+    def __init__(self, plan: BatchPlan, outcome: str, errors=(), flags=(), valid=None, bad_rows=(),
                  message: str = "", duplicate_of: int | None = None):
         self.plan, self.outcome, self.errors, self.flags = plan, outcome, list(errors), list(flags)
         self.valid = valid if valid is not None else pd.DataFrame()

@@ -12,8 +12,8 @@ import math
 import numpy as np
 import pandas as pd
 
-from schemas.protocol import Protocol
-from schemas.records import FlagNote, RowError
+from fieldslope.schemas.protocol import Protocol
+from fieldslope.schemas.records import FlagNote, RowError
 
 
 def show(value) -> str:
@@ -82,7 +82,7 @@ def _differ(new: np.ndarray, old: np.ndarray) -> np.ndarray:
 def new_outliers(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame) -> list[FlagNote]:
     """Robust outliers (median/MAD z beyond ``protocol.outlier_z``) among the batch's trait values,
     with z computed over each cell (season and groups) of the record updated by this batch."""
-    from schemas.outliers import robust_z
+    from fieldslope.schemas.outliers import robust_z
 
     traits = [t for t in protocol.trait_names if t in valid.columns]
     if valid.empty or not traits:

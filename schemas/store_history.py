@@ -7,10 +7,10 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from schemas.store_checks import show
+from fieldslope.schemas.store_checks import show
 
 if TYPE_CHECKING:  # pragma: no cover
-    from schemas.store import Store
+    from fieldslope.schemas.store import Store
 
 COLUMNS = ["time", "season", "field", "event", "value", "old", "batch", "file", "row", "operator", "detail"]
 _EVENT = {"keep": "kept", "exclude": "excluded", "set": "corrected"}

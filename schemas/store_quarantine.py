@@ -14,13 +14,13 @@ from typing import TYPE_CHECKING
 
 import pandas as pd
 
-from schemas.errors import SheetError
-from schemas.records import CheckReport, FlagNote, RowError, Sheet
-from schemas.store_supersede import supersede
-from schemas.store_types import RecordError, Resolution
+from fieldslope.common.errors import SheetError
+from fieldslope.schemas.records import CheckReport, FlagNote, RowError, Sheet
+from fieldslope.schemas.store_supersede import supersede
+from fieldslope.schemas.store_types import RecordError, Resolution
 
 if TYPE_CHECKING:  # pragma: no cover
-    from schemas.store import Store
+    from fieldslope.schemas.store import Store
 
 _POINT_NUMBER = re.compile(r"^[+-]?\d*\.\d+$")
 
@@ -56,7 +56,7 @@ class QuarantineFix:
 
     def resolve(self, conn, flag_id: int, qid: int, field: str, flagged: str, action: str, value: str | None,
                 reason: str, operator: str) -> Resolution:
-        from schemas.store import _Plan, now
+        from fieldslope.schemas.batch_plan import BatchPlan, now
 
         batch_id, row, payload, _ = conn.execute(
             "SELECT batch_id, row, cells, errors FROM quarantine WHERE id = ?", (qid,)).fetchone()
@@ -103,7 +103,7 @@ class QuarantineFix:
         sheet = Sheet(data["file"], pd.DataFrame([cells], columns=columns, dtype=object), [row], "utf-8", ",",
                       data["decimal"])
         try:
-            plan = _Plan(data["file"], b"", None, self._check(sheet))
+            plan = BatchPlan(data["file"], b"", None, self._check(sheet))
         except SheetError as exc:
             raise RecordError(f"row {row} cannot be checked with that value ({exc}); nothing was changed.") from None
         outcome = self.store._evaluate(conn, plan, accept_valid=False)
@@ -126,5 +126,5 @@ class QuarantineFix:
                                   f"{batch_id} is now valid and joined the record.")
 
     def _check(self, sheet: Sheet) -> CheckReport:
-        from schemas.validate import check_sheet
+        from fieldslope.schemas.validate import check_sheet
         return check_sheet(self.store.protocol, sheet)

@@ -15,7 +15,7 @@ import time
 from pathlib import Path
 from typing import Callable
 
-from schemas.errors import StoreError
+from fieldslope.common.errors import StoreError
 
 SCHEMA_VERSION = 2
 BUSY_TIMEOUT_S = 5.0

@@ -14,7 +14,7 @@ import sqlite3
 
 import pandas as pd
 
-from schemas.protocol import Protocol
+from fieldslope.schemas.protocol import Protocol
 
 
 def supersede(conn: sqlite3.Connection, protocol: Protocol, batch_id: int, valid: pd.DataFrame,

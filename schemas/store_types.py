@@ -5,12 +5,8 @@ from __future__ import annotations
 from collections import Counter
 from dataclasses import dataclass, field
 
-from schemas.errors import FieldslopeError
-from schemas.records import FlagNote, RowError
-
-
-class RecordError(FieldslopeError):
-    """A request the record cannot satisfy: an unknown flag, an unusable value, a missing reason."""
+from fieldslope.common.errors import FieldslopeError, RecordError
+from fieldslope.schemas.records import FlagNote, RowError
 
 
 @dataclass(frozen=True)

@@ -8,19 +8,15 @@ import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
-from schemas.errors import FieldslopeError
-from schemas.protocol import Protocol, load_protocol
-from schemas.store import Progress, Store
-from schemas.store_types import ImportResult
+from fieldslope.common.errors import FieldslopeError, StudyError
+from fieldslope.schemas.protocol import Protocol, load_protocol
+from fieldslope.schemas.store import Progress, Store
+from fieldslope.schemas.store_types import ImportResult
 
 PROTOCOL_FILE = "protocol.toml"
 INTAKE_DIR = "intake"
 DB_FILE = "fieldslope.sqlite"
 ENV_VAR = "FIELDSLOPE_STUDY"
-
-
-class StudyError(FieldslopeError):
-    """The study folder is missing, incomplete or already taken."""
 
 
 def default_study_dir() -> Path:
@@ -122,7 +118,7 @@ class Study:
     def intake_files(self) -> list[IntakeFile]:
         """Files in ``intake/`` with their status. A file counts as arrived only when its size
         and modification time are the same at two looks; temp and lock names are skipped."""
-        from schemas.readers import is_partial_name
+        from fieldslope.schemas.readers import is_partial_name
 
         try:
             entries = sorted(p for p in self.intake_dir.iterdir() if p.is_file() and not is_partial_name(p.name))

@@ -27,10 +27,10 @@ import numpy as np
 import pandas as pd
 import pandera.pandas as pa
 
-from schemas.errors import SheetError
-from schemas.id_checks import mangled_id_reasons
-from schemas.protocol import Protocol
-from schemas.records import CheckReport, FlagNote, RowError, Sheet
+from fieldslope.common.errors import SheetError
+from fieldslope.schemas.id_checks import mangled_id_reasons
+from fieldslope.schemas.protocol import Protocol
+from fieldslope.schemas.records import CheckReport, FlagNote, RowError, Sheet
 
 OPTIONAL_TEXT = ("date", "observer", "notes")
 

@@ -11,7 +11,7 @@ import io
 import math
 import warnings
 import zipfile
-from schemas.errors import SheetError
+from fieldslope.common.errors import SheetError
 
 MAX_UNPACKED = 500 * 1024 * 1024   # a workbook unpacking to more than this is refused (zip bomb)
 _INCOMPLETE = ("the workbook is incomplete (still being written or damaged); "

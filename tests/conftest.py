@@ -58,7 +58,7 @@ def protocol_file(tmp_path: Path, protocol_text: str) -> Path:
 
 @pytest.fixture
 def study(tmp_path: Path, protocol_file: Path):
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     s = Study.create(tmp_path / "study", protocol_file)
     yield s

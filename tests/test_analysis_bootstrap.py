@@ -11,9 +11,9 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from analysis.cells import prepare, split_cells
-from analysis.design import Design
-from analysis.resample import SeasonResampler, counts_from_indices
+from fieldslope.analysis.cells import prepare, split_cells
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.resample import SeasonResampler, counts_from_indices
 
 TRAITS = ("mass", "wing")
 
@@ -98,7 +98,7 @@ def test_vectorized_bootstrap_equals_statsmodels_loop(fitness):
 
 def test_permutation_statistics_equal_statsmodels_refits_of_shuffled_fitness():
     """Permutation statistics from one matrix product equal statsmodels OLS refits of the shuffled data."""
-    from analysis.permute import SeasonPermuter
+    from fieldslope.analysis.permute import SeasonPermuter
 
     frame = small_season(7)
     design = Design(traits=TRAITS, fitness={"surv": "binary", "seeds": "count"})
@@ -120,7 +120,7 @@ def test_permutation_statistics_equal_statsmodels_refits_of_shuffled_fitness():
                 assert stats_[(site, "seeds", "differential", t)][b] == pytest.approx(ref["differential"][j], rel=1e-8, abs=1e-12)
             assert stats_[(site, "seeds", "quadratic", "wing^2")][b] == pytest.approx(ref["quadratic"][2], rel=1e-7, abs=1e-10)
     # the unshuffled statistics are the point estimates
-    from analysis.table import estimate_table
+    from fieldslope.analysis.table import estimate_table
 
     table = estimate_table(frame, design, bootstrap=0, fitness=["seeds"]).table
     observed = perm.observed()
@@ -136,7 +136,7 @@ def test_rank_key_shuffle_is_a_uniform_permutation(W):
 
     from scipy import stats
 
-    from analysis.permute import shuffled
+    from fieldslope.analysis.permute import shuffled
 
     W = np.array(W)
     draws = shuffled(np.random.default_rng(8), W, 60_000)

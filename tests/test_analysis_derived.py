@@ -20,10 +20,10 @@ import statsmodels.api as sm
 from scipy import stats
 from statsmodels.stats.meta_analysis import combine_effects
 
-from analysis.design import Design
-from analysis.planning import individuals_for_gradient, variance_inflation
-from analysis.response import generations_needed, project_mean
-from analysis.table import estimate_table
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.planning import individuals_for_gradient, variance_inflation
+from fieldslope.analysis.response import generations_needed, project_mean
+from fieldslope.analysis.table import estimate_table
 
 
 def pedigree(h2=0.4, families=300, kids=4, seed=8) -> pd.DataFrame:
@@ -209,8 +209,8 @@ def test_planning_matches_simulated_ols_standard_errors():
      (0.1, 0.5, 0.5, "variance inflation")],
 )
 def test_planning_refuses_a_zero_or_negative_input_in_one_sentence(half_width, variance, vif, words):
-    from analysis.errors import EstimationError
-    from schemas.errors import FieldslopeError
+    from fieldslope.common.errors import EstimationError
+    from fieldslope.common.errors import FieldslopeError
 
     with pytest.raises(EstimationError) as err:
         individuals_for_gradient(half_width, variance, vif=vif, n_traits=2)

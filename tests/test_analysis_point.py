@@ -18,9 +18,9 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from analysis.design import Design
-from analysis.quadratic import canonical_axes
-from analysis.table import COLUMNS, estimate_table
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.quadratic import canonical_axes
+from fieldslope.analysis.table import COLUMNS, estimate_table
 
 TRAITS = ("mass", "wing", "bill")
 

@@ -16,10 +16,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from analysis.design import Design
-from analysis.fitness import add_totals
-from analysis.table import DEFAULT_SEED, Estimates, EstimationError, estimate_table
-from schemas.errors import FieldslopeError
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.fitness import add_totals
+from fieldslope.analysis.table import DEFAULT_SEED, Estimates, EstimationError, estimate_table
+from fieldslope.common.errors import FieldslopeError
 
 
 def frame_for(n=60, seed=1, sites=("reef", "flat")) -> pd.DataFrame:

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tui.cli import main
+from fieldslope.tui.cli import main
 
 REPO = Path(__file__).resolve().parents[1]
 COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
@@ -38,7 +38,7 @@ LATE = "tag,season,site,wing,tibia,survived,clutch\nH13,2024,Gull Flat,4x4,1.5,1
 
 def run(*args: str, cwd: Path, env: dict | None = None) -> subprocess.CompletedProcess:
     full_env = {**os.environ, "PYTHONPATH": str(REPO), **(env or {})}
-    return subprocess.run([sys.executable, "-m", "tui.cli", *args], cwd=cwd, env=full_env,
+    return subprocess.run([sys.executable, "-m", "fieldslope.tui.cli", *args], cwd=cwd, env=full_env,
                           capture_output=True, text=True, timeout=120)
 
 
@@ -190,7 +190,7 @@ def test_debug_shows_a_traceback(tmp_path):
 
 
 def test_subcommands_do_not_import_textual(folder, protocol_file):
-    code = ("import sys; from tui.cli import main; "
+    code = ("import sys; from fieldslope.tui.cli import main; "
             f"main(['init', 'st', '--protocol', {str(protocol_file)!r}]); "
             "main(['import', 'measured.csv', '--study', 'st']); "
             "main(['estimate', '--bootstrap', '0', '--format', 'csv', '--study', 'st']); "
@@ -202,9 +202,9 @@ def test_subcommands_do_not_import_textual(folder, protocol_file):
 
 def test_demo_and_dashboard_are_wired(folder, protocol_file, capsys, monkeypatch):
     seen = {}
-    monkeypatch.setitem(sys.modules, "tui.demo", types.SimpleNamespace(
-        run_demo=lambda study_dir, headless: seen.setdefault("demo", (study_dir, headless)) and 0))
-    monkeypatch.setitem(sys.modules, "tui.app", types.SimpleNamespace(
+    monkeypatch.setitem(sys.modules, "fieldslope.tui.demo", types.SimpleNamespace(
+        run_demo=lambda study_dir, headless, **kw: seen.setdefault("demo", (study_dir, headless)) and 0))
+    monkeypatch.setitem(sys.modules, "fieldslope.tui.app", types.SimpleNamespace(
         run_app=lambda study_dir: seen.setdefault("app", study_dir)))
     assert call(capsys, "demo", "--headless", "--study", str(folder / "d"))[0] == 0
     assert seen["demo"] == (folder / "d", True)
@@ -225,7 +225,7 @@ def test_a_missing_file_does_not_stop_the_others(folder, protocol_file, capsys):
 
 
 def test_progress_shows_only_on_a_terminal():
-    from tui.cli_format import Progress
+    from fieldslope.tui.cli_format import Progress
 
     class Tty(io.StringIO):
         def isatty(self):

@@ -14,8 +14,8 @@ from collections import Counter
 import pandas as pd
 import pytest
 
-from tui import demo
-from tui.demo import DEMO_DIR, demo_delay, demo_files, feed_batches, run_demo
+from fieldslope.tui import demo
+from fieldslope.tui.demo import DEMO_DIR, demo_delay, demo_files, feed_batches, run_demo
 
 SEED = 4242
 BOOTSTRAP = 500
@@ -30,8 +30,8 @@ def demo_study(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def estimates(demo_study):
-    from schemas.study import Study
-    from tui.bridge import estimates_for_frame
+    from fieldslope.schemas.study import Study
+    from fieldslope.tui.bridge import estimates_for_frame
 
     with Study.open(demo_study[0]) as study:
         frame = study.store.effective_frame()
@@ -70,7 +70,7 @@ def test_batches_are_taken_in_as_a_manager_would(demo_study):
 
 
 def test_the_planted_mistakes_are_flagged(demo_study):
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     with Study.open(demo_study[0]) as study:
         flags = study.store.flags()
@@ -174,7 +174,7 @@ def test_delay_comes_from_the_argument_or_the_environment(monkeypatch):
 
 async def test_dashboard_shows_the_demo_season_arriving(tmp_path):
     """The dashboard opens the demo study while the feed takes the batches in on its own connection."""
-    from tui.app import FieldslopeApp
+    from fieldslope.tui.app import FieldslopeApp
 
     target = demo.create_demo_study(tmp_path / "d")
     app = FieldslopeApp(target, demo_feed=demo.demo_feed(target, 0), bootstrap=0, poll_interval=0.1)

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from demo_season import generate as gen
+from fieldslope.demo_season import generate as gen
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "demo_season"

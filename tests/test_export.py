@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from schemas.export import frame_to_safe_csv, neutralise_cell
+from fieldslope.schemas.export import frame_to_safe_csv, neutralise_cell
 
 
 @pytest.mark.parametrize("text", [

@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.stats import median_abs_deviation
 
-from schemas.outliers import robust_z
+from fieldslope.schemas.outliers import robust_z
 
 
 def reference(x: np.ndarray) -> np.ndarray:

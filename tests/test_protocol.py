@@ -4,8 +4,8 @@ from pathlib import Path
 
 import pytest
 
-from schemas.errors import ProtocolError
-from schemas.protocol import load_protocol, parse_protocol
+from fieldslope.common.errors import ProtocolError
+from fieldslope.schemas.protocol import load_protocol, parse_protocol
 
 EXAMPLE = """\
 [study]

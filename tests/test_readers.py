@@ -15,9 +15,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from schemas import readers
-from schemas.errors import SheetError
-from schemas.readers import is_partial_name, read_sheet
+from fieldslope.schemas import readers
+from fieldslope.common.errors import SheetError
+from fieldslope.schemas.readers import is_partial_name, read_sheet
 
 PLAIN = "tag,season,site,femur,notes\n0042,2025,Knoll Bench,11.5,NA\n0043,2025,Knoll Bench,12,None\n"
 
@@ -250,7 +250,7 @@ def test_zip_that_is_not_a_workbook(tmp_path):
 
 
 def test_xlsx_zip_bomb_is_refused(tmp_path, monkeypatch):
-    from schemas import xlsx_cells
+    from fieldslope.schemas import xlsx_cells
     data = xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025]])
     monkeypatch.setattr(xlsx_cells, "MAX_UNPACKED", 1000)
     assert "unpacks to more than" in refused("w.xlsx", data)
@@ -361,7 +361,7 @@ def test_xlsx_formula_without_saved_result_is_refused(tmp_path):
 
 
 def test_xlsx_without_formulas_is_not_scanned_twice(tmp_path, monkeypatch):
-    from schemas import xlsx_cells
+    from fieldslope.schemas import xlsx_cells
 
     def fail(*args):
         raise AssertionError("second pass without formulas")

@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from schemas.study import Study
+from fieldslope.schemas.study import Study
 
 REPO = Path(__file__).resolve().parents[1]
 ENV = {**os.environ, "PYTHONPATH": str(REPO)}
@@ -56,7 +56,7 @@ def check_whole(db: Path) -> dict[int, int]:
 IMPORTER = r"""
 import sys
 from pathlib import Path
-from schemas.study import Study
+from fieldslope.schemas.study import Study
 study = Study.open(sys.argv[1])
 files = sys.argv[2:]
 study.store.check_bytes("warm-up.csv", b"tag,season,site,wing\nW1,2024,Gull Flat,4.5\n")  # load the checkers
@@ -115,7 +115,7 @@ def test_disk_full_gives_one_sentence_and_the_store_stays_usable(study, tmp_path
         signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
         resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit))
 
-    r = subprocess.run([sys.executable, "-m", "tui.cli", "import", str(big), "--study", str(study.root)],
+    r = subprocess.run([sys.executable, "-m", "fieldslope.tui.cli", "import", str(big), "--study", str(study.root)],
                        env=ENV, capture_output=True, text=True, timeout=120, preexec_fn=small_files)
     assert r.returncode == 1
     lines = r.stderr.strip().splitlines()
@@ -129,8 +129,8 @@ def test_disk_full_gives_one_sentence_and_the_store_stays_usable(study, tmp_path
 
 SAME_PROCESS = r"""
 import resource, signal, sys
-from schemas.errors import StoreError
-from schemas.study import Study
+from fieldslope.common.errors import StoreError
+from fieldslope.schemas.study import Study
 signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
 study = Study.open(sys.argv[1])
 big, small, limit = open(sys.argv[2], "rb").read(), open(sys.argv[3], "rb").read(), int(sys.argv[4])
@@ -164,7 +164,7 @@ def test_after_disk_full_the_same_store_object_keeps_working(study, tmp_path):
 READER = r"""
 import json, sys, time
 from pathlib import Path
-from schemas.study import Study
+from fieldslope.schemas.study import Study
 study = Study.open(sys.argv[1])
 stop, rows, correct = Path(sys.argv[2]), int(sys.argv[3]), sys.argv[4] == "1"
 seen, problems, loops, fixes = set(), [], 0, 0

@@ -9,8 +9,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from schemas.errors import StoreError
-from schemas.store_types import RecordError
+from fieldslope.common.errors import StoreError
+from fieldslope.schemas.store_types import RecordError
 
 HEADER = "tag,season,site,wing,tibia,survived,clutch,dam,sire"
 GOOD = (HEADER + "\n"
@@ -282,7 +282,7 @@ def test_heritability_entries_latest_wins(study):
 
 
 def test_data_version_changes_on_own_and_other_writes(study):
-    from schemas.store import Store
+    from fieldslope.schemas.store import Store
 
     v0 = study.store.data_version()
     study.store.import_bytes("b1.csv", GOOD)
@@ -320,7 +320,7 @@ def test_effective_frame_matches_an_independent_pandas_computation(study, write_
 
 
 def test_readonly_store_refuses_writes(study):
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     study.store.import_bytes("b1.csv", GOOD)
     ro = Study.open(study.root, readonly=True)
@@ -333,7 +333,7 @@ def test_readonly_store_refuses_writes(study):
 
 
 def test_migration_backs_up_and_checks_first(tmp_path, monkeypatch):
-    from schemas import store_schema
+    from fieldslope.schemas import store_schema
 
     db = tmp_path / "old.sqlite"
     store_schema.create_file(db)
@@ -358,7 +358,7 @@ def test_migration_backs_up_and_checks_first(tmp_path, monkeypatch):
 
 
 def test_newer_schema_is_refused_clearly(tmp_path):
-    from schemas import store_schema
+    from fieldslope.schemas import store_schema
 
     db = tmp_path / "new.sqlite"
     store_schema.create_file(db)
@@ -374,8 +374,8 @@ def test_database_file_is_group_writable(study):
 
 
 def test_garbage_database_gives_one_sentence(tmp_path, protocol_text):
-    from schemas.protocol import parse_protocol
-    from schemas.store import Store
+    from fieldslope.schemas.protocol import parse_protocol
+    from fieldslope.schemas.store import Store
 
     db = tmp_path / "junk.sqlite"
     db.write_bytes(b"this is not a database at all" * 100)
@@ -387,14 +387,14 @@ def test_a_long_write_lock_is_waited_for_then_reported_in_one_sentence(study, mo
     import threading
     import time
 
-    from schemas import store_schema
+    from fieldslope.schemas import store_schema
 
     monkeypatch.setattr(store_schema, "BUSY_TIMEOUT_S", 0.05)
     monkeypatch.setattr(store_schema, "RETRY_DELAYS", (0.05, 0.1, 0.2))
     holder = sqlite3.connect(study.db_path, isolation_level=None, check_same_thread=False)
     holder.execute("BEGIN IMMEDIATE")
     threading.Timer(0.2, lambda: holder.execute("COMMIT")).start()
-    from schemas.store import Store
+    from fieldslope.schemas.store import Store
 
     other = Store(study.db_path, study.protocol)        # a fresh connection with the short timeout
     try:
@@ -411,8 +411,8 @@ def test_a_long_write_lock_is_waited_for_then_reported_in_one_sentence(study, mo
 
 
 def test_protocol_gaining_a_trait_adds_a_column_and_keeps_the_data(study):
-    from schemas.protocol import parse_protocol
-    from schemas.store import Store
+    from fieldslope.schemas.protocol import parse_protocol
+    from fieldslope.schemas.store import Store
 
     study.store.import_bytes("b1.csv", GOOD)
     study.close()

@@ -15,8 +15,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis.stateful import RuleBasedStateMachine, initialize, invariant, precondition, rule
 
 from conftest import PROTOCOL_TEXT
-from schemas.study import Study
-from tui.cli import main
+from fieldslope.schemas.study import Study
+from fieldslope.tui.cli import main
 
 RAW_TABLES = ("batches", "records", "quarantine", "flags", "resolutions", "heritability")
 
@@ -179,7 +179,7 @@ class ImportCorrectExclude(RuleBasedStateMachine):
         try:
             self.study.store.resolve_flag(flag.id, action, value=str(value), reason="state test")
         except Exception as exc:  # only the documented refusals
-            from schemas.store_types import RecordError
+            from fieldslope.schemas.store_types import RecordError
             assert isinstance(exc, RecordError), exc
             return
         if action == "set":
@@ -190,7 +190,7 @@ class ImportCorrectExclude(RuleBasedStateMachine):
     def export(self, sensitivity):
         import csv
 
-        from schemas.export import frame_to_safe_csv
+        from fieldslope.schemas.export import frame_to_safe_csv
 
         frame = self.study.store.effective_frame(without_open_outliers=sensitivity)
         rows = list(csv.reader(io.StringIO(frame_to_safe_csv(frame))))

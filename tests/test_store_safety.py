@@ -14,10 +14,10 @@ from pathlib import Path
 
 import pytest
 
-from schemas import store_schema
-from schemas.errors import StoreError
-from schemas.store_types import RecordError
-from schemas.study import Study
+from fieldslope.schemas import store_schema
+from fieldslope.common.errors import StoreError
+from fieldslope.schemas.store_types import RecordError
+from fieldslope.schemas.study import Study
 
 GOOD = (b"tag,season,site,wing,tibia,survived,clutch,dam,sire\n"
         b"H01,2024,Gull Flat,4.5,1.5,1,3,,\n"
@@ -78,7 +78,7 @@ def test_a_dangling_reference_after_a_crash_opens_read_only_with_one_sentence(st
         with pytest.raises(StoreError) as err:
             store.import_bytes("b2.csv", b"tag,season,wing\nH01,2024,4.7\n")
         assert str(err.value) == store.damaged
-    from tui.cli import main
+    from fieldslope.tui.cli import main
     assert main(["flags", "--study", str(root)]) == 0
     err_text = capsys.readouterr().err
     assert err_text.count("\n") == 1 and "damaged" in err_text
@@ -130,7 +130,7 @@ HOLD = ("import sqlite3, sys\n"
 def test_another_process_holding_a_write_gives_the_busy_sentence(study, monkeypatch):
     monkeypatch.setattr(store_schema, "BUSY_TIMEOUT_S", 0.2)
     monkeypatch.setattr(store_schema, "RETRY_DELAYS", (0.05, 0.1))
-    from schemas.store import Store
+    from fieldslope.schemas.store import Store
 
     store = Store(study.db_path, study.protocol)                  # its connection takes the short timeout
     holder = subprocess.Popen([sys.executable, "-c", HOLD, str(study.db_path)], stdin=subprocess.PIPE,
@@ -263,8 +263,8 @@ def test_a_partly_fixed_quarantined_row_never_joins_once_excluded(study):
 # -- the upgrade ------------------------------------------------------------------------------
 
 def test_a_version_1_store_is_backed_up_and_upgraded_with_its_data(tmp_path, protocol_text):
-    from schemas.protocol import parse_protocol
-    from schemas.store import Store
+    from fieldslope.schemas.protocol import parse_protocol
+    from fieldslope.schemas.store import Store
 
     db = tmp_path / "v1.sqlite"
     conn = sqlite3.connect(db, isolation_level=None)

@@ -6,8 +6,8 @@ import os
 
 import pytest
 
-from schemas.errors import FieldslopeError, ProtocolError
-from schemas.study import DB_FILE, Study, resolve_study_dir
+from fieldslope.common.errors import FieldslopeError, ProtocolError
+from fieldslope.schemas.study import DB_FILE, Study, resolve_study_dir
 
 
 def test_create_makes_the_folder(tmp_path, protocol_file, protocol_text):

@@ -12,8 +12,8 @@ from pathlib import Path
 
 import pytest
 
-from tui.app import FieldslopeApp
-from tui.widgets.pictures import fmt
+from fieldslope.tui.app import FieldslopeApp
+from fieldslope.tui.widgets.pictures import fmt
 
 SIZES = [(80, 24), (120, 40)]
 
@@ -83,7 +83,7 @@ async def test_start_screen_names_a_folder_without_study(tmp_path):
 
 
 async def test_a_damaged_store_is_one_clear_message(tmp_path, protocol_file):
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     Study.create(tmp_path / "s", protocol_file).close()
     (tmp_path / "s" / "fieldslope.sqlite").write_bytes(b"this is not a database" * 100)
@@ -102,7 +102,7 @@ async def test_a_store_damaged_by_a_crash_is_browsed_read_only(tmp_path, protoco
     import subprocess
     import sys
 
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     with Study.create(tmp_path / "s", protocol_file) as study:
         study.store.import_bytes("b1.csv", b"tag,season,site,wing,tibia,survived,clutch\n"
@@ -371,14 +371,14 @@ async def test_seasons_show_each_season_and_the_batch_trend(filled, size):
         await pilot.pause()
         assert "after each batch" in screen_text(app) and "needs about" in screen_text(app)
         # two batches changed the pooled β of 2025: the trend says why it has so few points
-        from tui.screens.seasons import few_batches_sentence
+        from fieldslope.tui.screens.seasons import few_batches_sentence
 
         assert few_batches_sentence(2) in screen_text(app)
         await pilot.press("n")                           # the wanted interval width, typed
         for key in ("ctrl+u", "0", "full_stop", "1"):
             await pilot.press(key)
         await pilot.pause()
-        from analysis.planning import individuals_for_gradient
+        from fieldslope.analysis.planning import individuals_for_gradient
 
         need = individuals_for_gradient(0.05, last["se"] ** 2 * (int(last["n"]) - 3), 1.0, 2)
         assert f"0.100 wide needs about {need} individuals" in screen_text(app)
@@ -405,9 +405,9 @@ async def test_help_lists_the_keys_of_the_current_screen(filled):
 
 
 async def test_a_store_you_cannot_write_opens_read_only(filled, monkeypatch):
-    import tui.loading
+    import fieldslope.tui.loading
 
-    monkeypatch.setattr(tui.loading, "writable", lambda path: False)
+    monkeypatch.setattr(fieldslope.tui.loading, "writable", lambda path: False)
     app = make_app(filled.root)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(app, pilot, lambda: app.snapshot is not None and not app.updating, what="figures")
@@ -612,7 +612,7 @@ async def test_a_store_held_by_another_program_makes_the_dashboard_read_only_unt
             await pilot.press("4")
             await pilot.press("h")                             # refused at once, with one sentence
             await pilot.pause()
-            from tui.loading import LOCKED_SENTENCE
+            from fieldslope.tui.loading import LOCKED_SENTENCE
 
             assert [n.message for n in app._notifications][-1] == LOCKED_SENTENCE
             assert len(app.screen_stack) == 1                  # no form was opened
@@ -641,7 +641,7 @@ async def test_screens_say_why_they_are_empty_when_no_batch_has_fitness(study, w
         assert "No season has a β yet" in screen_text(app) and "Recomputing" not in screen_text(app)
         await pilot.press("1")
         await wait_for(app, pilot, lambda: bool(app.screen.files) or "empty" in screen_text(app), what="listing")
-        from tui.screens.intake import EMPTY_SENTENCE
+        from fieldslope.tui.screens.intake import EMPTY_SENTENCE
 
         assert EMPTY_SENTENCE in screen_text(app)
         (study.intake_dir / "late.csv").write_bytes(batch.read_bytes())
@@ -651,7 +651,7 @@ async def test_screens_say_why_they_are_empty_when_no_batch_has_fitness(study, w
 
 
 def test_response_notes_are_cut_between_sentences_never_inside_one():
-    from tui.screens.response import whole_sentences
+    from fieldslope.tui.screens.response import whole_sentences
 
     notes = ["First note here.", "Second note, a longer one.", "Third " + "x" * 60 + "."]
     assert whole_sentences(notes, 112) == " ".join(notes)

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from tui.app import FieldslopeApp
+from fieldslope.tui.app import FieldslopeApp
 
 # a fixed folder (not $TMPDIR): the Intake screen shows the drop folder's path
 BASE = Path("/tmp/fieldslope-snapshots") if os.name == "posix" else Path(tempfile.gettempdir()) / "fieldslope-snapshots"
@@ -24,7 +24,7 @@ BASE = Path("/tmp/fieldslope-snapshots") if os.name == "posix" else Path(tempfil
 @pytest.fixture
 def snap_study(request, protocol_file, write_batch, hopper_rows):
     """A study in a fixed folder (named after the test): two seasons at two sites, one slip flagged."""
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     root = BASE / request.node.name.replace("[", "-").replace("]", "")
     shutil.rmtree(root, ignore_errors=True)

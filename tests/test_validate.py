@@ -15,11 +15,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from schemas.errors import SheetError
-from schemas.protocol import parse_protocol
-from schemas.readers import read_sheet
-from schemas.records import Sheet
-from schemas.validate import check_sheet
+from fieldslope.common.errors import SheetError
+from fieldslope.schemas.protocol import parse_protocol
+from fieldslope.schemas.readers import read_sheet
+from fieldslope.schemas.records import Sheet
+from fieldslope.schemas.validate import check_sheet
 
 # An invented study: a ground beetle on two invented lava fields.
 PROTOCOL = parse_protocol("""\

@@ -20,6 +20,7 @@ from __future__ import annotations
 import threading
 import time
 from datetime import datetime
+from importlib import resources
 from pathlib import Path
 from typing import Callable
 
@@ -30,7 +31,7 @@ from textual.command import DiscoveryHit, Hit, Hits, Provider
 from textual.content import Content
 from textual.worker import Worker, WorkerState, get_current_worker
 
-from tui.messages import (
+from fieldslope.tui.messages import (
     DemoNote,
     IntervalsProgress,
     IntervalsReady,
@@ -40,7 +41,7 @@ from tui.messages import (
     StudyFailed,
     StudyReady,
 )
-from tui.snapshot import Snapshot
+from fieldslope.tui.snapshot import Snapshot
 
 SCREENS_IN_ORDER = ("intake", "flags", "selection", "response", "seasons")
 SCREEN_TITLES = {
@@ -110,7 +111,7 @@ class FieldslopeApp(App):
     """
 
     PROBE_EVERY = 4        # probe the write lock on every 4th poll (and on every poll while locked)
-    CSS_PATH = Path(__file__).with_name("app.tcss")  # absolute: subclasses elsewhere find it too
+    CSS = resources.files("fieldslope.tui").joinpath("app.tcss").read_text(encoding="utf-8")
     TITLE = "fieldslope"
     COMMANDS = App.COMMANDS | {FieldslopeCommands}
     ENABLE_COMMAND_PALETTE = True
@@ -171,11 +172,11 @@ class FieldslopeApp(App):
 
     # -- modes (screens) ---------------------------------------------------
     def _install_modes(self) -> None:
-        from tui.screens.flags import FlagsScreen
-        from tui.screens.intake import IntakeScreen
-        from tui.screens.response import ResponseScreen
-        from tui.screens.seasons import SeasonsScreen
-        from tui.screens.selection import SelectionScreen
+        from fieldslope.tui.screens.flags import FlagsScreen
+        from fieldslope.tui.screens.intake import IntakeScreen
+        from fieldslope.tui.screens.response import ResponseScreen
+        from fieldslope.tui.screens.seasons import SeasonsScreen
+        from fieldslope.tui.screens.selection import SelectionScreen
 
         for name, cls in (("intake", IntakeScreen), ("flags", FlagsScreen), ("selection", SelectionScreen),
                           ("response", ResponseScreen), ("seasons", SeasonsScreen)):
@@ -183,7 +184,7 @@ class FieldslopeApp(App):
                 self.add_mode(name, cls)
 
     def on_mount(self) -> None:
-        from tui.screens.start import StartScreen
+        from fieldslope.tui.screens.start import StartScreen
 
         self.add_mode("start", StartScreen)
         self.timings["mounted"] = time.perf_counter()
@@ -208,7 +209,7 @@ class FieldslopeApp(App):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="open")
     def _open_worker(self, study_dir: Path) -> None:
-        from tui.loading import open_study
+        from fieldslope.tui.loading import open_study
 
         protocol, readonly, warning = open_study(study_dir)
         self.post_message(StudyReady(protocol, readonly, warning))
@@ -255,7 +256,7 @@ class FieldslopeApp(App):
         """
         from concurrent.futures import ThreadPoolExecutor
 
-        from tui.loading import Poller
+        from fieldslope.tui.loading import Poller
 
         if self._poll_executor is None:
             self._poll_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fieldslope-poll")
@@ -290,7 +291,7 @@ class FieldslopeApp(App):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="points")
     def _points_worker(self, study_dir: Path, generation: int, version: int, sensitivity: bool) -> None:
-        from tui.loading import load_snapshot
+        from fieldslope.tui.loading import load_snapshot
 
         snap = load_snapshot(study_dir, generation=generation, version=version, sensitivity=sensitivity,
                              refreshed_at=self.clock(), readonly=self.readonly)
@@ -315,7 +316,7 @@ class FieldslopeApp(App):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="intervals")
     def _intervals_worker(self, snap: Snapshot) -> None:
-        from tui.loading import add_intervals
+        from fieldslope.tui.loading import add_intervals
 
         worker = get_current_worker()
         last = [0.0]
@@ -357,7 +358,7 @@ class FieldslopeApp(App):
     # -- read-only while another program writes ----------------------------
     def set_locked(self, locked: bool) -> None:
         """Enter or leave the read-only mode that lasts while another program holds the store."""
-        from tui.loading import LOCKED_SENTENCE
+        from fieldslope.tui.loading import LOCKED_SENTENCE
 
         if locked == self.locked:
             return
@@ -370,7 +371,7 @@ class FieldslopeApp(App):
 
     def write_refusal(self) -> str:
         """One sentence saying why nothing can be written now, or "" when writing is possible."""
-        from tui.loading import LOCKED_SENTENCE
+        from fieldslope.tui.loading import LOCKED_SENTENCE
 
         if self.readonly:
             return self.readonly_reason or (
@@ -395,7 +396,7 @@ class FieldslopeApp(App):
         worker = event.worker
         if event.state != WorkerState.ERROR:
             return
-        from schemas.errors import FieldslopeError
+        from fieldslope.common.errors import FieldslopeError
 
         err = worker.error
         text = str(err) if isinstance(err, FieldslopeError) else f"{worker.name or 'background task'} failed: {err}"
@@ -441,7 +442,7 @@ class FieldslopeApp(App):
         self.refresh_status()
 
     def refresh_status(self) -> None:
-        from tui.widgets.status import StatusLine
+        from fieldslope.tui.widgets.status import StatusLine
 
         try:
             for status in self.screen.query(StatusLine):
@@ -491,7 +492,7 @@ class FieldslopeApp(App):
             self.call_after_refresh(lambda: self.screen.run_action(then))
 
     def action_help(self) -> None:
-        from tui.screens.dialogs import HelpScreen
+        from fieldslope.tui.screens.dialogs import HelpScreen
 
         if isinstance(self.screen, HelpScreen):
             self.pop_screen()
@@ -514,8 +515,8 @@ WRITE_GROUPS = ("intake-import", "flags-resolve", "resp-h2")
 
 def _is_busy(err: BaseException | None) -> bool:
     """A store error that means another program holds the write lock (not damage, not a full disk)."""
-    from schemas.errors import StoreError
-    from tui.loading import LOCKED_SENTENCE
+    from fieldslope.common.errors import StoreError
+    from fieldslope.tui.loading import LOCKED_SENTENCE
 
     text = str(err)
     return isinstance(err, StoreError) and (text == LOCKED_SENTENCE or "busy" in text or "locked" in text)

@@ -8,8 +8,8 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Callable
 
-from analysis.design import Design
-from schemas.protocol import Protocol
+from fieldslope.analysis.design import Design
+from fieldslope.schemas.protocol import Protocol
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -39,7 +39,7 @@ def estimates_for_frame(
     progress: Callable[[int, int, str], None] | None = None,
 ):
     """Estimates for an effective-data frame (see DEVELOPERS.md for its columns)."""
-    from analysis.table import estimate_table  # heavy: imported on first use
+    from fieldslope.analysis.table import estimate_table  # heavy: imported on first use
 
     kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2}
     if seed is not None:

@@ -8,10 +8,20 @@ from __future__ import annotations
 
 import argparse
 import sys
+from importlib import metadata
 
-from schemas.errors import FieldslopeError
+from fieldslope.common.errors import FieldslopeError
 
-VERSION = "0.1.0"
+
+def _version() -> str:
+    """The installed distribution's version (importlib.metadata), or a plain word from a bare checkout."""
+    try:
+        return metadata.version("fieldslope")
+    except metadata.PackageNotFoundError:
+        return "(not installed)"
+
+
+VERSION = _version()
 
 
 class UsageError(Exception):
@@ -115,7 +125,7 @@ def main(argv: list[str] | None = None) -> int:
     debug = "--debug" in argv
     try:
         args = build_parser().parse_args(argv)
-        from tui import cli_commands
+        from fieldslope.tui import cli_commands
 
         return cli_commands.run(args)
     except UsageError as exc:

@@ -8,9 +8,9 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from schemas.errors import FieldslopeError, SheetError
-from schemas.study import Study, resolve_study_dir
-from tui import cli_format as fmt
+from fieldslope.common.errors import FieldslopeError, SheetError
+from fieldslope.schemas.study import Study, resolve_study_dir
+from fieldslope.tui import cli_format as fmt
 
 
 def run(args) -> int:
@@ -115,7 +115,7 @@ def history(args) -> int:
 
 
 def estimate(args) -> int:
-    from tui.bridge import estimates_for_frame
+    from fieldslope.tui.bridge import estimates_for_frame
 
     with _open(args) as study:
         protocol = study.protocol
@@ -140,7 +140,7 @@ def estimate(args) -> int:
     table = table.reset_index(drop=True)
     notes = [n for n in est.notes if _note_matches(n, args)]
     if args.format == "csv":
-        from schemas.export import frame_to_safe_csv
+        from fieldslope.schemas.export import frame_to_safe_csv
         text = frame_to_safe_csv(table)
     elif args.format == "json":
         text = json.dumps(_json_rows(table), indent=1, allow_nan=False) + "\n"
@@ -193,14 +193,18 @@ def _write_atomic(path: Path, text: str) -> None:
 
 
 def demo(args) -> int:
-    from tui.demo import run_demo
+    from fieldslope.tui.demo import run_demo
 
-    return int(run_demo(Path(args.study).expanduser() if args.study else None, args.headless) or 0)
+    dashboard = None
+    if not args.headless:
+        from fieldslope.tui.app import run_app as dashboard
+    return int(run_demo(Path(args.study).expanduser() if args.study else None, args.headless,
+                        dashboard=dashboard) or 0)
 
 
 def dashboard(args) -> int:
     root = resolve_study_dir(args.study)
-    from tui.app import run_app
+    from fieldslope.tui.app import run_app
 
     # Without a study here the app opens its start screen: create one from a protocol, open one, or the demo.
     run_app(root)

@@ -26,22 +26,26 @@ import threading
 from collections import Counter
 from dataclasses import dataclass
 from datetime import datetime
+from importlib import resources
 from pathlib import Path
 from typing import Callable, TextIO
 
-from schemas.errors import FieldslopeError
+from fieldslope.common.errors import FieldslopeError, DemoError
 
-DEMO_DIR = Path(__file__).resolve().parents[1] / "demo_season"
+
+def _demo_dir() -> Path:
+    """The installed demo folder (importlib.resources; a wheel installs it on disk)."""
+    root = resources.files("fieldslope.demo_season")
+    return root if isinstance(root, Path) else Path(str(root))
+
+
+DEMO_DIR = _demo_dir()
 MARKER = ".fieldslope-demo"   # written into every demo study folder; only such folders are replaced
 DEFAULT_DELAY = 3.0
 DELAY_ENV = "FIELDSLOPE_DEMO_DELAY"
 OPERATOR = "demo"
 HEADLESS_BOOTSTRAP = 500
 WIDTH = 80
-
-
-class DemoError(FieldslopeError):
-    """The demo cannot start (its files are missing, or the folder holds another study)."""
 
 
 @dataclass(frozen=True)
@@ -58,7 +62,7 @@ def demo_files(root: Path = DEMO_DIR) -> DemoFiles:
         if folder.is_dir() else ()
     if not protocol.is_file() or not batches:
         raise DemoError(f"{root}: the demo season's files are missing; reinstall fieldslope or run "
-                        "python demo_season/generate.py from a source checkout.")
+                        "python -m fieldslope.demo_season.generate from a source checkout.")
     return DemoFiles(protocol, batches)
 
 
@@ -84,7 +88,7 @@ def default_demo_dir() -> Path:
 
 def create_demo_study(study_dir: Path | None = None, files: DemoFiles | None = None) -> Path:
     """A fresh demo study folder. An earlier demo study there is replaced; any other content is refused."""
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     files = files or demo_files()
     target = Path(study_dir).expanduser() if study_dir is not None else default_demo_dir()
@@ -174,7 +178,7 @@ def feed_batches(study_dir: Path, *, delay: float = 0.0, say: Callable[[str], No
     ``say`` gets one line per batch (a short phrase when ``terse``); setting ``stop`` ends the
     feed before the next batch.
     """
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     files = files or demo_files()
     stop = stop or threading.Event()
@@ -268,8 +272,8 @@ def flag_summary(flags) -> list[str]:
 
 def report(study_dir: Path, out: TextIO, *, bootstrap: int = HEADLESS_BOOTSTRAP, seed: int | None = None) -> None:
     """Print the estimates and the flags of the demo study."""
-    from schemas.study import Study
-    from tui.bridge import estimates_for_frame
+    from fieldslope.schemas.study import Study
+    from fieldslope.tui.bridge import estimates_for_frame
 
     study = Study.open(study_dir)
     try:
@@ -309,17 +313,19 @@ def report(study_dir: Path, out: TextIO, *, bootstrap: int = HEADLESS_BOOTSTRAP,
 
 
 def run_demo(study_dir: Path | None, headless: bool, *, delay: float | None = None,
-             out: TextIO | None = None, bootstrap: int = HEADLESS_BOOTSTRAP) -> int:
-    """``fieldslope demo``: 0 on success; a problem is one sentence on stderr and exit status 1."""
+             out: TextIO | None = None, bootstrap: int = HEADLESS_BOOTSTRAP,
+             dashboard: Callable[..., None] | None = None) -> int:
+    """``fieldslope demo``: 0 on success; a problem is one sentence on stderr and exit status 1.
+
+    Without ``headless``, ``dashboard(study_dir, demo_feed=feed)`` opens the dashboard on the
+    new demo study (the command line passes the app's runner, so this module needs no app)."""
     out = out or sys.stdout
     try:
         pause = demo_delay(delay)
         files = demo_files()
         target = create_demo_study(study_dir, files)
-        if not headless:
-            from tui.app import run_app
-
-            run_app(target, demo_feed=demo_feed(target, pause))
+        if not headless and dashboard is not None:
+            dashboard(target, demo_feed=demo_feed(target, pause))
             return 0
         print(_wrap(f"fieldslope demo: an invented beetle at three invented sites, 2023-2025; "
                     f"{len(files.batches)} batch files arriving {pause:g} s apart into {target}", ""), file=out)

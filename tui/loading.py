@@ -10,7 +10,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Callable
 
-from tui.snapshot import Snapshot, records
+from fieldslope.tui.snapshot import Snapshot, records
 
 
 def open_study(study_dir: Path):
@@ -19,8 +19,8 @@ def open_study(study_dir: Path):
     Returns (protocol, readonly, warning). Raises FieldslopeError with one
     sentence when the study cannot be read at all (missing, damaged).
     """
-    from schemas.errors import FieldslopeError
-    from schemas.study import Study
+    from fieldslope.common.errors import FieldslopeError
+    from fieldslope.schemas.study import Study
 
     try:
         study = Study.open(study_dir)
@@ -82,8 +82,8 @@ def can_write_now(study) -> bool:
 
 def _writing(study_dir: Path):
     """Open the study for one write; refuse at once (one sentence) when another program holds the store."""
-    from schemas.errors import StoreError
-    from schemas.study import Study
+    from fieldslope.common.errors import StoreError
+    from fieldslope.schemas.study import Study
 
     study = Study.open(study_dir)
     if not can_write_now(study):
@@ -102,7 +102,7 @@ class Poller:
     """One long-lived read-only connection used only to read the store's change counter."""
 
     def __init__(self, study_dir: Path):
-        from schemas.study import Study
+        from fieldslope.schemas.study import Study
 
         self.study_dir = study_dir
         self.study = Study.open(study_dir, readonly=True)
@@ -113,8 +113,8 @@ class Poller:
 
     def writable(self) -> bool | None:
         """Whether a write could start now (None when this account cannot open the store for writing)."""
-        from schemas.errors import FieldslopeError
-        from schemas.study import Study
+        from fieldslope.common.errors import FieldslopeError
+        from fieldslope.schemas.study import Study
 
         try:
             if self._writer is None:
@@ -136,8 +136,8 @@ SENSITIVITY_QUANTITIES = ("differential", "gradient", "quadratic", "correlationa
 def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity: bool,
                   refreshed_at: str, readonly: bool = False) -> Snapshot:
     """Read the store once and compute point estimates (bootstrap 0)."""
-    from schemas.study import Study
-    from tui.bridge import estimates_for_frame
+    from fieldslope.schemas.study import Study
+    from fieldslope.tui.bridge import estimates_for_frame
 
     study = Study.open(study_dir, readonly=True)
     try:
@@ -172,7 +172,7 @@ def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity
 def add_intervals(snap: Snapshot, *, bootstrap: int, seed: int | None,
                   progress: Callable[..., None] | None, refreshed_at: str) -> Snapshot:
     """The same data with bootstrap intervals and permutation p-values."""
-    from tui.bridge import estimates_for_frame
+    from fieldslope.tui.bridge import estimates_for_frame
 
     est = estimates_for_frame(snap.frame, snap.protocol, bootstrap=bootstrap, seed=seed,
                               h2=snap.extras.get("h2"), progress=progress)
@@ -186,8 +186,8 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
 
     Returns a list of dicts: batch, n, site, trait, estimate, se, ci_low, ci_high.
     """
-    from schemas.study import Study
-    from tui.bridge import estimates_for_frame
+    from fieldslope.schemas.study import Study
+    from fieldslope.tui.bridge import estimates_for_frame
 
     study = Study.open(study_dir, readonly=True)
     out: list[dict] = []
@@ -224,14 +224,14 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
 
 def create_study(folder: Path, protocol_file: Path) -> None:
     """Create a study folder from a protocol file (raises FieldslopeError with one sentence)."""
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     _close(Study.create(folder, protocol_file))
 
 
 def demo_study():
     """Create a fresh demo study; returns (folder, feed) for ``FieldslopeApp.demo_feed``."""
-    from tui import demo
+    from fieldslope.tui import demo
 
     target = demo.create_demo_study(None)
     return target, demo.demo_feed(target)
@@ -258,7 +258,7 @@ def set_heritability(study_dir: Path, trait: str, value: float, se: float | None
 
 
 def intake_dir(study_dir: Path) -> Path:
-    from schemas.study import INTAKE_DIR
+    from fieldslope.schemas.study import INTAKE_DIR
 
     return Path(study_dir) / INTAKE_DIR
 
@@ -272,7 +272,7 @@ def list_intake(study_dir: Path) -> list[dict]:
     One Study object per folder is kept for listing, because a file counts as
     arrived only when two looks see the same size and time (``Study.intake_files``).
     """
-    from schemas.study import Study
+    from fieldslope.schemas.study import Study
 
     key = Path(study_dir).resolve()
     study = _LISTERS.get(key)
@@ -288,9 +288,9 @@ def list_intake(study_dir: Path) -> list[dict]:
 
 def check_file(study_dir: Path, path: Path):
     """Check a batch file against the study (nothing stored); returns (ImportResult, preview frame or None)."""
-    from schemas.errors import FieldslopeError, SheetError
-    from schemas.readers import read_sheet
-    from schemas.study import Study
+    from fieldslope.common.errors import FieldslopeError, SheetError
+    from fieldslope.schemas.readers import read_sheet
+    from fieldslope.schemas.study import Study
 
     try:
         data = Path(path).read_bytes()

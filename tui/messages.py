@@ -7,7 +7,7 @@ from typing import Any
 
 from textual.message import Message
 
-from tui.snapshot import Snapshot
+from fieldslope.tui.snapshot import Snapshot
 
 
 @dataclass

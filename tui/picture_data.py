@@ -7,7 +7,7 @@ are relativized and standardized within each site first, as the estimates are.
 
 from __future__ import annotations
 
-from tui.snapshot import ALL, Snapshot
+from fieldslope.tui.snapshot import ALL, Snapshot
 
 
 def scatter_data(snap: Snapshot, season: str, site: str, fitness: str, trait: str, nbins: int = 9):
@@ -18,9 +18,9 @@ def scatter_data(snap: Snapshot, season: str, site: str, fitness: str, trait: st
     """
     import numpy as np
 
-    from analysis.fitness import add_totals, relative
-    from analysis.standardize import standardize
-    from tui.bridge import design_from_protocol
+    from fieldslope.analysis.fitness import add_totals, relative
+    from fieldslope.analysis.standardize import standardize
+    from fieldslope.tui.bridge import design_from_protocol
 
     frame = snap.cell_frame(season, site)
     if frame is None or frame.empty or trait not in frame.columns:

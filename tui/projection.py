@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from textual.content import Content
 
-from tui.snapshot import Snapshot
-from tui.widgets.pictures import fmt
+from fieldslope.tui.snapshot import Snapshot
+from fieldslope.tui.widgets.pictures import fmt
 
 
 def _number(text: str, kind=float):
@@ -18,7 +18,7 @@ def _number(text: str, kind=float):
 def projection_text(snap: Snapshot, season: str, site: str, fitness: str, trait: str,
                     k_text: str, target_text: str) -> Content:
     """The mean carried over k generations of response R, and the generations needed for a target change."""
-    from analysis.response import generations_needed, project_mean
+    from fieldslope.analysis.response import generations_needed, project_mean
 
     r = snap.value(season, site, fitness, "response", trait)
     mean = snap.value(season, site, fitness, "mean", trait)
@@ -49,7 +49,7 @@ def sample_size_text(last: dict, width_text: str, n_traits: int) -> Content:
     The residual variance × VIF the planning helper needs is taken from the
     latest batch's OLS standard error: se² = σ²·VIF / (n − p − 1).
     """
-    from analysis.planning import individuals_for_gradient
+    from fieldslope.analysis.planning import individuals_for_gradient
 
     width = _number(width_text)
     if width is None or width <= 0:

@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
-    from schemas.protocol import Protocol
+    from fieldslope.schemas.protocol import Protocol
 
 ALL = "all"
 
@@ -130,8 +130,8 @@ class Snapshot:
         if f is None or f.empty:
             return 0
         if fitness in self.protocol.totals:
-            from analysis.fitness import add_totals
-            from tui.bridge import design_from_protocol
+            from fieldslope.analysis.fitness import add_totals
+            from fieldslope.tui.bridge import design_from_protocol
 
             f = add_totals(f, design_from_protocol(self.protocol))
         return int(f[fitness].isna().sum()) if fitness in f.columns else len(f)

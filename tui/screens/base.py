@@ -6,8 +6,8 @@ from textual.app import ComposeResult
 from textual.screen import Screen
 from textual.widgets import Footer
 
-from tui.snapshot import Snapshot
-from tui.widgets.status import StatusLine
+from fieldslope.tui.snapshot import Snapshot
+from fieldslope.tui.widgets.status import StatusLine
 
 
 class StudyScreen(Screen):

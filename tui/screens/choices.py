@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from textual.content import Content
 
-from tui.snapshot import ALL, Snapshot
+from fieldslope.tui.snapshot import ALL, Snapshot
 
 
 class Choices:

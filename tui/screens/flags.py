@@ -12,12 +12,12 @@ from textual.content import Content
 from textual.message import Message
 from textual.widgets import DataTable, Static
 
-from tui.messages import StoreWritten
-from tui.screens.base import StudyScreen
-from tui.screens.dialogs import FormScreen
-from tui.screens.intake import operator_name
-from tui.snapshot import Snapshot, kind_label
-from tui.widgets.pictures import histogram_strip
+from fieldslope.tui.messages import StoreWritten
+from fieldslope.tui.screens.base import StudyScreen
+from fieldslope.tui.screens.dialogs import FormScreen
+from fieldslope.tui.screens.intake import operator_name
+from fieldslope.tui.snapshot import Snapshot, kind_label
+from fieldslope.tui.widgets.pictures import histogram_strip
 
 
 def is_open(flag: dict) -> bool:
@@ -198,7 +198,7 @@ class FlagsScreen(StudyScreen):
     @work(thread=True, exclusive=True, exit_on_error=False, group="flags-resolve")
     def _resolve_worker(self, study_dir: Path, flag_ids: list[int], action: str, value: str | None,
                         reason: str) -> None:
-        from tui.loading import resolve_flags
+        from fieldslope.tui.loading import resolve_flags
 
         results = resolve_flags(study_dir, flag_ids, action, value, reason, operator_name())
         msg = (getattr(results[0], "message", "") if len(results) == 1 else

@@ -14,10 +14,10 @@ from textual.content import Content
 from textual.message import Message
 from textual.widgets import DataTable, Input, Static, TabbedContent, TabPane
 
-from tui.messages import StoreWritten
-from tui.screens.base import StudyScreen
-from tui.screens.dialogs import ConfirmScreen
-from tui.snapshot import Snapshot, kind_label
+from fieldslope.tui.messages import StoreWritten
+from fieldslope.tui.screens.base import StudyScreen
+from fieldslope.tui.screens.dialogs import ConfirmScreen
+from fieldslope.tui.snapshot import Snapshot, kind_label
 
 
 def operator_name() -> str:
@@ -91,7 +91,7 @@ class IntakeScreen(StudyScreen):
 
     # -- listing -----------------------------------------------------------
     def show(self, snap: Snapshot) -> None:
-        from tui.loading import intake_dir
+        from fieldslope.tui.loading import intake_dir
 
         self.query_one("#intake-folder", Static).update(Content.assemble(
             ("Drop folder ", "$text-muted"), (str(intake_dir(self.app.study_dir)), "bold")))
@@ -102,7 +102,7 @@ class IntakeScreen(StudyScreen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="intake-list")
     def _list_worker(self, study_dir: Path) -> None:
-        from tui.loading import list_intake
+        from fieldslope.tui.loading import list_intake
 
         self.post_message(self.Listed(list_intake(study_dir)))
 
@@ -145,7 +145,7 @@ class IntakeScreen(StudyScreen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="intake-check")
     def _check_worker(self, study_dir: Path, path: Path) -> None:
-        from tui.loading import check_file
+        from fieldslope.tui.loading import check_file
 
         result, preview = check_file(study_dir, path)
         self.post_message(self.Checked(path, result, preview))
@@ -220,7 +220,7 @@ class IntakeScreen(StudyScreen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="intake-import")
     def _import_worker(self, study_dir: Path, path: Path, accept_valid: bool) -> None:
-        from tui.loading import import_file
+        from fieldslope.tui.loading import import_file
 
         self.post_message(self.TakenIn(import_file(study_dir, path, accept_valid, operator_name())))
 

@@ -13,13 +13,13 @@ from textual.content import Content
 from textual.message import Message
 from textual.widgets import DataTable, Input, Label, Static
 
-from tui.messages import StoreWritten
-from tui.screens.base import StudyScreen
-from tui.screens.dialogs import FormScreen
-from tui.screens.intake import operator_name
-from tui.screens.choices import ChoiceKeys, Choices
-from tui.snapshot import ALL, Snapshot
-from tui.widgets.pictures import fmt
+from fieldslope.tui.messages import StoreWritten
+from fieldslope.tui.screens.base import StudyScreen
+from fieldslope.tui.screens.dialogs import FormScreen
+from fieldslope.tui.screens.intake import operator_name
+from fieldslope.tui.screens.choices import ChoiceKeys, Choices
+from fieldslope.tui.snapshot import ALL, Snapshot
+from fieldslope.tui.widgets.pictures import fmt
 
 
 class ResponseScreen(ChoiceKeys, StudyScreen):
@@ -117,7 +117,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         self._projection()
 
     def _projection(self) -> None:
-        from tui.projection import projection_text
+        from fieldslope.tui.projection import projection_text
 
         snap = self.app.snapshot
         out = self.query_one("#resp-projection", Static)
@@ -175,7 +175,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="resp-h2")
     def _h2_worker(self, study_dir: Path, trait: str, value: float, se: float | None, source: str) -> None:
-        from tui.loading import set_heritability
+        from fieldslope.tui.loading import set_heritability
 
         set_heritability(study_dir, trait, value, se, source, operator_name())
         self.post_message(self.H2Saved(f"h² of {trait} = {value:g} kept ({source})."))

@@ -15,10 +15,10 @@ from textual.message import Message
 from textual.widgets import Input, Label, Static, TabbedContent, TabPane
 from textual.worker import get_current_worker
 
-from tui.screens.base import StudyScreen
-from tui.screens.choices import ChoiceKeys, Choices
-from tui.snapshot import ALL, Snapshot
-from tui.widgets.pictures import fmt, interval_rows
+from fieldslope.tui.screens.base import StudyScreen
+from fieldslope.tui.screens.choices import ChoiceKeys, Choices
+from fieldslope.tui.snapshot import ALL, Snapshot
+from fieldslope.tui.widgets.pictures import fmt, interval_rows
 
 
 class SeasonsScreen(ChoiceKeys, StudyScreen):
@@ -149,7 +149,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="seasons-trend")
     def _trend_worker(self, study_dir: Path, protocol, key: tuple) -> None:
-        from tui.loading import batch_trend
+        from fieldslope.tui.loading import batch_trend
 
         worker = get_current_worker()
         rows = batch_trend(study_dir, protocol, key[2], key[3], key[1], should_stop=lambda: worker.is_cancelled)
@@ -201,7 +201,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
             self._plan(rows[-1])
 
     def _plan(self, last: dict) -> None:
-        from tui.projection import sample_size_text
+        from fieldslope.tui.projection import sample_size_text
 
         self.query_one("#sea-plan", Static).update(
             sample_size_text(last, self.query_one("#sea-width", Input).value.strip(),

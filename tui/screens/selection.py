@@ -9,10 +9,10 @@ from textual.content import Content
 from textual.containers import VerticalScroll
 from textual.widgets import DataTable, Static, TabbedContent, TabPane
 
-from tui.screens.base import StudyScreen
-from tui.screens.choices import ChoiceKeys, Choices
-from tui.snapshot import Snapshot
-from tui.widgets.pictures import fmt, scatter_picture, surface_picture
+from fieldslope.tui.screens.base import StudyScreen
+from fieldslope.tui.screens.choices import ChoiceKeys, Choices
+from fieldslope.tui.snapshot import Snapshot
+from fieldslope.tui.widgets.pictures import fmt, scatter_picture, surface_picture
 
 
 def ci_text(row: dict | None, pending: bool = True) -> str:
@@ -38,7 +38,7 @@ def axes_text(snap: Snapshot, key: dict) -> str:
     from the γ of the table through the estimators' own eigen-decomposition."""
     import numpy as np
 
-    from analysis.quadratic import canonical_axes
+    from fieldslope.analysis.quadratic import canonical_axes
 
     traits = snap.protocol.trait_names
     p = len(traits)
@@ -232,7 +232,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             self._surface(snap, trait)
 
     def _scatter(self, snap: Snapshot, trait: str) -> None:
-        from tui.picture_data import scatter_data
+        from fieldslope.tui.picture_data import scatter_data
 
         c = self.choices
         width = max(40, self.size.width - 4)

@@ -13,7 +13,7 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Button, Footer, Input, Label, Static
 
-from tui.widgets.status import StatusLine
+from fieldslope.tui.widgets.status import StatusLine
 
 WELCOME = ("No study is open. A study is a folder with a protocol.toml (what is measured), "
            "an intake/ drop folder for batch files, and one record store.")
@@ -67,7 +67,7 @@ class StartScreen(Screen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="create")
     def _create(self, folder: Path, protocol: Path) -> None:
-        from tui.loading import create_study
+        from fieldslope.tui.loading import create_study
 
         create_study(folder, protocol)
         self.post_message(self.Created(folder))
@@ -93,7 +93,7 @@ class StartScreen(Screen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="create")
     def _demo(self) -> None:
-        from tui.loading import demo_study
+        from fieldslope.tui.loading import demo_study
 
         folder, feed = demo_study()
         self.app.call_from_thread(self._demo_ready, folder, feed)

@@ -1,0 +1,1 @@
+"""What every layer shares: the user-facing errors and the names of quantities and flag kinds."""
