@@ -390,6 +390,15 @@ class FieldslopeApp(App):
         self.note = msg.text
         self.refresh_status()
 
+    # -- notifications -----------------------------------------------------
+    def notify(self, message: str, *, title: str = "", severity="information", timeout: float | None = None,
+               markup: bool = False) -> None:
+        """Every notification is plain text: messages carry file names, IDs and reasons (never markup)."""
+        from fieldslope.tui.safe_text import escape_controls
+
+        super().notify(escape_controls(message, keep_newlines=True), title=escape_controls(title),
+                       severity=severity, timeout=timeout, markup=False)
+
     # -- failures ----------------------------------------------------------
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         """The one place where a failed worker becomes a visible message."""
@@ -452,9 +461,11 @@ class FieldslopeApp(App):
 
     def status_content(self) -> Content:
         """The status line: screen, batches, open flags, last refresh, mode, what is running, notes."""
+        from fieldslope.tui.widgets.literal import assemble
+
         parts: list[tuple[str, str] | str] = []
         if self.error:
-            return Content.assemble(("! ", "bold $error"), (self.error, "$error"))
+            return assemble(("! ", "bold $error"), (self.error, "$error"))
         title = getattr(self.screen, "TITLE_TEXT", "")
         if title:
             parts.append((title, "bold $accent"))
@@ -475,7 +486,7 @@ class FieldslopeApp(App):
             parts.append((f" │ {self.updating}", "$accent"))
         if self.note:
             parts.append((f" │ {self.note}", "$text-muted"))
-        return Content.assemble(*parts)
+        return assemble(*parts)
 
     # -- actions -----------------------------------------------------------
     def check_action(self, action: str, parameters: tuple) -> bool | None:

@@ -11,6 +11,7 @@ import sys
 from importlib import metadata
 
 from fieldslope.common.errors import FieldslopeError
+from fieldslope.tui.safe_text import escape_controls
 
 
 def _version() -> str:
@@ -129,13 +130,13 @@ def main(argv: list[str] | None = None) -> int:
 
         return cli_commands.run(args)
     except UsageError as exc:
-        print(f"fieldslope: {exc}", file=sys.stderr)
+        print(f"fieldslope: {escape_controls(exc)}", file=sys.stderr)
         return 2
     except FieldslopeError as exc:
         if debug:
             import traceback
             traceback.print_exc()
-        print(f"fieldslope: {exc}", file=sys.stderr)
+        print(f"fieldslope: {escape_controls(exc)}", file=sys.stderr)
         return 1
     except KeyboardInterrupt:
         print("fieldslope: interrupted; nothing half-done was kept.", file=sys.stderr)
@@ -147,7 +148,7 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as exc:  # a bug: still one line, unless --debug
         if debug:
             raise
-        print(f"fieldslope: unexpected failure ({type(exc).__name__}: {exc}); run again with --debug "
+        print(f"fieldslope: unexpected failure ({type(exc).__name__}: {escape_controls(exc)}); run again with --debug "
               "and report it.", file=sys.stderr)
         return 1
 

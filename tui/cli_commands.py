@@ -24,15 +24,15 @@ def run(args) -> int:
 def _open(args, readonly: bool = False) -> Study:
     study = Study.open(resolve_study_dir(args.study), readonly=readonly)
     if study.store.damaged:     # opened read-only after an unclean shutdown: say so once, then carry on reading
-        print(f"fieldslope: {study.store.damaged}", file=sys.stderr)
+        fmt.say(f"fieldslope: {study.store.damaged}", file=sys.stderr)
     return study
 
 
 def init(args) -> int:
     study = Study.create(args.dir, args.protocol)
     study.close()
-    print(f"created a study in {study.root}: drop batch files into {study.intake_dir} or use "
-          "fieldslope import FILE")
+    fmt.say(f"created a study in {study.root}: drop batch files into {study.intake_dir} or use "
+            "fieldslope import FILE")
     return 0
 
 
@@ -41,11 +41,11 @@ def _report(result) -> None:
     for line in fmt.error_lines(result.errors):
         print(line, file=out)
     if result.earlier:
-        print(result.earlier, file=out)
+        fmt.say(result.earlier, file=out)
     if result.outcome == "refused":
-        print(f"fieldslope: {result.message}", file=err)
+        fmt.say(f"fieldslope: {result.message}", file=err)
         return
-    print(result.message, file=out)
+    fmt.say(result.message, file=out)
     if result.outcome != "duplicate":
         print(fmt.flag_summary(result.flags), file=out)
 
@@ -57,7 +57,7 @@ def _each_file(names, work):
         try:
             result = work(name)
         except SheetError as exc:
-            print(f"fieldslope: {exc}", file=sys.stderr)
+            fmt.say(f"fieldslope: {exc}", file=sys.stderr)
             status = 1
             continue
         _report(result)
@@ -100,7 +100,7 @@ def resolve(args) -> int:
     with _open(args) as study:
         res = study.store.resolve_flag(args.flag, action, value=args.set, reason=args.reason,
                                        operator=args.operator)
-    print(res.message)
+    fmt.say(res.message)
     return 0
 
 
@@ -148,7 +148,7 @@ def estimate(args) -> int:
         text = fmt.estimates_text(table, notes)
     if args.output:
         _write_atomic(Path(args.output), text)
-        print(f"wrote {len(table)} estimates to {args.output}", file=sys.stderr)
+        fmt.say(f"wrote {len(table)} estimates to {args.output}", file=sys.stderr)
     else:
         sys.stdout.write(text)
     return 0

@@ -1,4 +1,8 @@
-"""Plain-text output of the command line, 80 columns wide."""
+"""Plain-text output of the command line, 80 columns wide.
+
+Everything printed for a terminal goes through :func:`fieldslope.tui.safe_text.escape_controls`:
+:func:`cut` and :func:`wrap` escape the text they are given, :func:`say` prints one escaped line.
+"""
 
 from __future__ import annotations
 
@@ -10,18 +14,26 @@ from typing import Iterable, TextIO
 
 import pandas as pd
 
+from fieldslope.tui.safe_text import escape_controls
+
 WIDTH = 80
 MAX_LISTED = 50
 MAX_NOTES = 20
 
 
+def say(text: object, file: TextIO | None = None) -> None:
+    """Print one message line for a terminal: control characters in it (a file name's newline too) escaped."""
+    print(escape_controls(text), file=file or sys.stdout)
+
+
 def cut(text: object, width: int) -> str:
-    text = "" if text is None or (isinstance(text, float) and math.isnan(text)) else str(text)
+    """``text`` escaped for the terminal (see :mod:`fieldslope.tui.safe_text`), cut to ``width`` with "…"."""
+    text = escape_controls(text)
     return text if len(text) <= width else text[: width - 1] + "…"
 
 
 def wrap(text: str, indent: str = "    ") -> str:
-    return textwrap.fill(text, WIDTH, initial_indent=indent, subsequent_indent=indent, break_on_hyphens=False)
+    return textwrap.fill(escape_controls(text), WIDTH, initial_indent=indent, subsequent_indent=indent, break_on_hyphens=False)
 
 
 def number(value, width: int) -> str:
@@ -39,7 +51,7 @@ def p_text(value) -> str:
 
 def error_lines(errors: Iterable, limit: int = MAX_LISTED) -> list[str]:
     errors = list(errors)
-    lines = [e.sentence() for e in errors[:limit]]
+    lines = [escape_controls(e.sentence()) for e in errors[:limit]]
     if len(errors) > limit:
         lines.append(f"… and {len(errors) - limit} more errors (the first {limit} are shown)")
     return lines
@@ -71,7 +83,7 @@ def print_flags(flags, out: TextIO | None = None) -> None:
 
 def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = None) -> None:
     out = out or sys.stdout
-    print(f"{individual}: {len(frame)} events", file=out)
+    print(f"{escape_controls(individual)}: {len(frame)} events", file=out)
     for r in frame.itertuples(index=False):
         when = str(r.time).replace("T", " ")[:16]
         value = cut(r.value, 12)

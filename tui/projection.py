@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from textual.content import Content
 
+from fieldslope.tui.widgets.literal import assemble
+
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.pictures import fmt
 
@@ -23,21 +25,21 @@ def projection_text(snap: Snapshot, season: str, site: str, fitness: str, trait:
     r = snap.value(season, site, fitness, "response", trait)
     mean = snap.value(season, site, fitness, "mean", trait)
     if r is None or r["estimate"] is None:
-        return Content.assemble((f"No response for {trait} here: it needs h² (press h) and S.", "$text-muted"))
+        return assemble((f"No response for {trait} here: it needs h² (press h) and S.", "$text-muted"))
     unit = snap.protocol.traits[trait].unit if trait in snap.protocol.traits else ""
-    lines = [Content.assemble((f"{trait}: ", "bold"), "R = ", (f"{fmt(r['estimate'])} {unit}", "bold"),
+    lines = [assemble((f"{trait}: ", "bold"), "R = ", (f"{fmt(r['estimate'])} {unit}", "bold"),
                               " per generation", ("  (constant selection and h² assumed)", "$text-muted"))]
     k = _number(k_text, int)
     if k is not None and 0 < k <= 10000 and mean is not None and mean["estimate"] is not None:
         path = project_mean(mean["estimate"], r["estimate"], k)
-        lines.append(Content.assemble(f"after {k} generations the mean goes from {fmt(path[0])} to ",
+        lines.append(assemble(f"after {k} generations the mean goes from {fmt(path[0])} to ",
                                       (f"{fmt(float(path[-1]))} {unit}", "bold")))
     elif k_text and k is None:
         lines.append(Content("Type a whole number of generations, e.g. 10.", ))
     target = _number(target_text)
     if target is not None:
         g = generations_needed(target, r["estimate"])
-        lines.append(Content.assemble(f"a change of {fmt(target)} {unit} takes ",
+        lines.append(assemble(f"a change of {fmt(target)} {unit} takes ",
                                       ("never at this R (other sign, or 0)" if g is None else f"{g} generations",
                                        "bold")))
     return Content("\n").join(lines)
@@ -59,5 +61,5 @@ def sample_size_text(last: dict, width_text: str, n_traits: int) -> Content:
         return Content("The latest batch gives no standard error for this β yet.")
     scaled = se * se * (int(n) - n_traits - 1)
     need = individuals_for_gradient(width / 2, scaled, 1.0, n_traits)
-    return Content.assemble(f"A 95 % interval {fmt(width)} wide needs about ", (f"{need}", "bold"),
+    return assemble(f"A 95 % interval {fmt(width)} wide needs about ", (f"{need}", "bold"),
                             f" individuals (now {int(n)}: width {fmt(2 * 1.96 * se)}).")

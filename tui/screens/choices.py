@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from textual.content import Content
 
+from fieldslope.tui.widgets.literal import assemble
+
 from fieldslope.tui.snapshot import ALL, Snapshot
 
 
@@ -62,7 +64,7 @@ class Choices:
             out += [(f"{label} ", "$text-muted"), (value, "bold"), (f" [{key}]  ", "$text-muted")]
         if extra:
             out.append((extra, "$text-muted"))
-        return Content.assemble(*out)
+        return assemble(*out)
 
 
 class ChoiceKeys:

@@ -10,6 +10,8 @@ from textual.content import Content
 from textual.screen import ModalScreen, Screen
 from textual.widgets import Button, Input, Label, Static
 
+from fieldslope.tui.widgets.literal import literal
+
 
 def key_name(app, binding) -> str:
     if binding.key_display:
@@ -78,9 +80,9 @@ class ConfirmScreen(ModalScreen[bool]):
 
     def compose(self) -> ComposeResult:
         with Vertical(id="confirm-box", classes="dialog"):
-            yield Static(self.title_text, classes="dialog-title")
+            yield Static(literal(self.title_text), classes="dialog-title")
             with VerticalScroll(classes="dialog-body"):
-                yield Static(self.text)
+                yield Static(literal(self.text, keep_newlines=True))
             with Horizontal(classes="dialog-buttons"):
                 yield Button(f"{self.yes} (y)", id="confirm-yes", variant="primary", compact=True)
                 yield Button("Cancel (n)", id="confirm-no", compact=True)
@@ -112,9 +114,9 @@ class FormScreen(ModalScreen[dict | None]):
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
-            yield Static(self.title_text, classes="dialog-title")
+            yield Static(literal(self.title_text), classes="dialog-title")
             if self.text:
-                yield Static(self.text, classes="dialog-text")
+                yield Static(literal(self.text, keep_newlines=True), classes="dialog-text")
             for name, label, value in self.fields:
                 yield Label(label + (" (required)" if name in self.required else ""))
                 yield Input(value=value, id=f"form-{name}", compact=True)

@@ -17,6 +17,7 @@ from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import FormScreen
 from fieldslope.tui.screens.intake import operator_name
 from fieldslope.tui.snapshot import Snapshot, kind_label
+from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
 from fieldslope.tui.widgets.pictures import histogram_strip
 
 
@@ -49,7 +50,7 @@ class FlagsScreen(StudyScreen):
 
     def body(self) -> ComposeResult:
         yield Static(id="flags-counts", classes="choices")
-        yield DataTable(id="flags-table", cursor_type="row", zebra_stripes=True, classes="panel")
+        yield LiteralTable(id="flags-table", cursor_type="row", zebra_stripes=True, classes="panel")
         yield Static(id="flags-detail", classes="notes panel")
 
     def on_mount(self) -> None:
@@ -85,7 +86,7 @@ class FlagsScreen(StudyScreen):
             counts[f.get("kind", "")] = counts.get(f.get("kind", ""), 0) + 1
         head = [("History (resolved flags)  " if self.history else "Open flags  ", "bold")]
         head += [(f"{kind_label(k)} {v}  ", "$warning") for k, v in sorted(counts.items())] or [("none", "$success")]
-        self.query_one("#flags-counts", Static).update(Content.assemble(*head))
+        self.query_one("#flags-counts", Static).update(assemble(*head))
         table = self.query_one("#flags-table", DataTable)
         keep = table.cursor_row
         table.clear()
@@ -112,11 +113,11 @@ class FlagsScreen(StudyScreen):
 
     def detail(self, snap: Snapshot, flag: dict) -> None:
         p = snap.protocol
-        lines: list[Content] = [Content.assemble((f"{kind_label(flag.get('kind'))}: ", "bold $warning"), str(flag.get("message", "")))]
-        lines.append(Content(f"flag {flag.get('id')}, batch {flag.get('batch_id')} {flag.get('file_name', '')}, "
+        lines: list[Content] = [assemble((f"{kind_label(flag.get('kind'))}: ", "bold $warning"), str(flag.get("message", "")))]
+        lines.append(literal(f"flag {flag.get('id')}, batch {flag.get('batch_id')} {flag.get('file_name', '')}, "
                              f"sheet row {flag.get('row')}"))
         if not is_open(flag):
-            lines.append(Content.assemble((f"{flag.get('status')} ", "bold"),
+            lines.append(assemble((f"{flag.get('status')} ", "bold"),
                                           f"by {flag.get('resolved_by')} at {flag.get('resolved_at')}: {flag.get('reason')}",
                                           f" (new value {flag.get('new_value')})" if flag.get("new_value") else ""))
         f = snap.frame
@@ -124,7 +125,7 @@ class FlagsScreen(StudyScreen):
             r = self.record_of(snap, flag)
             if r is not None:
                 shown = [f"{c}={_short(r[c])}" for c in (*p.groups, *p.trait_names, *p.component_names) if c in f.columns]
-                lines.append(Content.assemble(("record ", "$text-muted"), f"{flag.get('individual')} {flag.get('season')}: ",
+                lines.append(assemble(("record ", "$text-muted"), f"{flag.get('individual')} {flag.get('season')}: ",
                                               " ".join(shown)))
             field = flag.get("field")
             if field in f.columns and field in p.traits:
@@ -134,7 +135,7 @@ class FlagsScreen(StudyScreen):
                     value = float(str(flag.get("value")).replace(",", "."))
                 except ValueError:
                     value = None
-                lines.append(Content.assemble(("where the value sits among ", "$text-muted"),
+                lines.append(assemble(("where the value sits among ", "$text-muted"),
                                               f"{field} in season {flag.get('season')}, site {site or 'all'}:"))
                 lines.append(histogram_strip(cell[field].tolist(), value, width=max(20, self.size.width - 4)))
         self.query_one("#flags-detail", Static).update(Content("\n").join(lines))

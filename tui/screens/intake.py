@@ -15,9 +15,11 @@ from textual.message import Message
 from textual.widgets import DataTable, Input, Static, TabbedContent, TabPane
 
 from fieldslope.tui.messages import StoreWritten
+from fieldslope.tui.safe_text import escape_controls
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import ConfirmScreen
 from fieldslope.tui.snapshot import Snapshot, kind_label
+from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
 
 
 def operator_name() -> str:
@@ -67,17 +69,17 @@ class IntakeScreen(StudyScreen):
 
     def body(self) -> ComposeResult:
         yield Static(id="intake-folder", classes="choices")
-        yield DataTable(id="intake-files", cursor_type="row", classes="panel")
+        yield LiteralTable(id="intake-files", cursor_type="row", classes="panel")
         with Horizontal(id="intake-path-row", classes="-hidden"):
             yield Input(placeholder="path of a batch file (CSV, TSV, XLSX); Enter to check", id="intake-path",
                         compact=True)
         yield Static(PICK_HINT, id="intake-summary", classes="summary")
         with TabbedContent(id="intake-tabs"):
             with TabPane("Problems", id="intake-problems"):
-                yield DataTable(id="intake-report", cursor_type="row", zebra_stripes=True)
+                yield LiteralTable(id="intake-report", cursor_type="row", zebra_stripes=True)
                 yield Static(id="intake-problem", classes="notes")
             with TabPane("Preview", id="intake-preview"):
-                yield DataTable(id="intake-sheet", cursor_type="row")
+                yield LiteralTable(id="intake-sheet", cursor_type="row")
 
     def on_mount(self) -> None:
         self.query_one("#intake-files", DataTable).add_columns("file", "size", "status")
@@ -93,7 +95,7 @@ class IntakeScreen(StudyScreen):
     def show(self, snap: Snapshot) -> None:
         from fieldslope.tui.loading import intake_dir
 
-        self.query_one("#intake-folder", Static).update(Content.assemble(
+        self.query_one("#intake-folder", Static).update(assemble(
             ("Drop folder ", "$text-muted"), (str(intake_dir(self.app.study_dir)), "bold")))
         self.action_rescan()
 
@@ -140,7 +142,7 @@ class IntakeScreen(StudyScreen):
 
     def check(self, path: Path) -> None:
         self.current, self.checked = path, None
-        self.query_one("#intake-summary", Static).update(f"Checking {path.name} …")
+        self.query_one("#intake-summary", Static).update(literal(f"Checking {path.name} …"))
         self._check_worker(self.app.study_dir, path)
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="intake-check")
@@ -159,7 +161,7 @@ class IntakeScreen(StudyScreen):
         report = self.query_one("#intake-report", DataTable)
         report.clear()
         self.problems = [e.sentence() for e in r.errors] + [f"row {f.row}: {f.message}" for f in r.flags]
-        self.query_one("#intake-problem", Static).update(self.problems[0] if self.problems else "")
+        self.query_one("#intake-problem", Static).update(literal(self.problems[0] if self.problems else ""))
         for e in r.errors:
             report.add_row(str(e.row), e.column, e.value or "", f"ERROR {e.reason}")
         for f in r.flags:
@@ -200,7 +202,7 @@ class IntakeScreen(StudyScreen):
                             severity="warning")
             return
         n_store = r.n_rows - (bad if accept_valid else 0)
-        lines = [f"File: {self.current}", f"Operator: {operator_name()}",
+        lines = [f"File: {escape_controls(self.current)}", f"Operator: {escape_controls(operator_name())}",
                  f"Rows stored as records: {n_store} of {r.n_rows}"]
         if accept_valid and bad:
             lines.append(f"Rows kept in quarantine (visible and fixable on Flags): {bad}")
@@ -213,7 +215,7 @@ class IntakeScreen(StudyScreen):
 
         def done(yes: bool | None) -> None:
             if yes:
-                self.query_one("#intake-summary", Static).update(f"Taking in {path.name} …")
+                self.query_one("#intake-summary", Static).update(literal(f"Taking in {path.name} …"))
                 self._import_worker(self.app.study_dir, path, accept_valid)
 
         self.app.push_screen(ConfirmScreen(title, "\n".join(lines), yes="Take in"), done)
@@ -227,12 +229,12 @@ class IntakeScreen(StudyScreen):
     def on_intake_screen_taken_in(self, msg: TakenIn) -> None:
         r = msg.result
         text = _outcome_line(r)
-        self.query_one("#intake-summary", Static).update(text)
+        self.query_one("#intake-summary", Static).update(literal(text))
         self.app.notify(text, severity="information" if r.ok else "error", timeout=6)
         if r.ok and (r.flags or r.n_quarantined):
             # the problems listed above are now open flags: say where they are dealt with
             self.query_one("#intake-problem", Static).update(
-                "Taken in: the problems listed above are now open flags on the Flags screen [2].")
+                literal("Taken in: the problems listed above are now open flags on the Flags screen [2]."))
         self.checked = None
         self.post_message(StoreWritten(text))
         self.action_rescan()
@@ -252,7 +254,7 @@ class IntakeScreen(StudyScreen):
         path = Path(event.value.strip()).expanduser()
         if not path.is_file():
             self.query_one("#intake-summary", Static).update(
-                Content.assemble((f"{path} is not a file; check the path and press Enter again.", "$error")))
+                assemble((f"{path} is not a file; check the path and press Enter again.", "$error")))
             return
         self.action_leave_path()
         self.check(path)
@@ -260,7 +262,7 @@ class IntakeScreen(StudyScreen):
     @on(DataTable.RowHighlighted, "#intake-report")
     def _problem_highlighted(self, event: DataTable.RowHighlighted) -> None:
         if 0 <= event.cursor_row < len(self.problems):
-            self.query_one("#intake-problem", Static).update(self.problems[event.cursor_row])
+            self.query_one("#intake-problem", Static).update(literal(self.problems[event.cursor_row]))
 
     @on(DataTable.RowSelected, "#intake-files")
     def _row_chosen(self) -> None:
@@ -268,7 +270,7 @@ class IntakeScreen(StudyScreen):
 
     def worker_failed(self, group: str, text: str) -> None:
         if group.startswith("intake"):
-            self.query_one("#intake-summary", Static).update(Content.assemble((text, "$error")))
+            self.query_one("#intake-summary", Static).update(assemble((text, "$error")))
 
 
 def _bad_rows(r) -> set[int]:
@@ -281,15 +283,15 @@ def _size(n: int) -> str:
 
 def _summary_line(name: str, r) -> Content:
     if r.outcome == "duplicate":
-        return Content.assemble((f"{name}: ", "bold"), r.message or "already taken in; nothing to do.")
+        return assemble((f"{name}: ", "bold"), r.message or "already taken in; nothing to do.")
     if r.outcome == "refused" and not r.errors:
-        return Content.assemble((f"{name}: ", "bold"), (r.message or "refused", "$error"))
+        return assemble((f"{name}: ", "bold"), (r.message or "refused", "$error"))
     bad = len(_bad_rows(r))
     parts = [(f"{name}: ", "bold"), f"{r.n_rows} rows, "]
     parts.append((f"{bad} with errors", "bold $error") if bad else ("no errors", "$success"))
     parts.append(f", {len(r.flags)} flags. ")
     parts.append(("i take in" if not bad else "a take in the valid rows", "$accent"))
-    return Content.assemble(*parts)
+    return assemble(*parts)
 
 
 def _outcome_line(r) -> str:

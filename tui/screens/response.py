@@ -9,16 +9,16 @@ from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, VerticalScroll
-from textual.content import Content
 from textual.message import Message
 from textual.widgets import DataTable, Input, Label, Static
 
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.screens.base import StudyScreen
+from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.screens.dialogs import FormScreen
 from fieldslope.tui.screens.intake import operator_name
-from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.snapshot import ALL, Snapshot
+from fieldslope.tui.widgets.literal import LiteralTable, assemble
 from fieldslope.tui.widgets.pictures import fmt
 
 
@@ -44,7 +44,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     def body(self) -> ComposeResult:
         yield Static(id="resp-choices", classes="choices")
         with VerticalScroll():
-            yield DataTable(id="resp-table", cursor_type="row", zebra_stripes=True, classes="panel")
+            yield LiteralTable(id="resp-table", cursor_type="row", zebra_stripes=True, classes="panel")
             yield Static(id="resp-g", classes="notes")
             with Horizontal(id="resp-inputs"):
                 yield Label("generations k ")
@@ -108,7 +108,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         head = "Δz̄ = G·β_raw (Lande 1979). "
         room = 4 * max(40, self.size.width - 4) - len(head) - 12   # the notes box is 4 lines high
         g_text = head + whole_sentences(list(dict.fromkeys(notes)), room)
-        self.query_one("#resp-g", Static).update(Content.assemble((g_text, "$text-muted")))
+        self.query_one("#resp-g", Static).update(assemble((g_text, "$text-muted")))
         self._projection()
 
     @on(Input.Changed, "#resp-k")

@@ -18,6 +18,7 @@ from textual.worker import get_current_worker
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.snapshot import ALL, Snapshot
+from fieldslope.tui.widgets.literal import assemble, literal
 from fieldslope.tui.widgets.pictures import fmt, interval_rows
 
 
@@ -113,21 +114,21 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
             q = snap.value(ALL, site, c.fitness, "gradient_q", trait)
             sc = snap.value(ALL, site, c.fitness, "sign_changes", trait)
             if mean or tau2 or sc:
-                summary.append(Content.assemble(
+                summary.append(assemble(
                     (f"{name}: ", "bold"), "weighted mean β ", (_e(mean), "bold"), "  τ² ", (_e(tau2), "bold"),
                     "  Q ", (_e(q), "bold"), (f" (p {fmt(q['p_value'])})" if q and q["p_value"] is not None else ""),
                     "  sign changes ", (_e(sc, digits=0), "bold")))
         forest = self.query_one("#sea-forest", Static)
         if rows:
             forest.update(Content("\n").join([
-                Content.assemble((f"β of {trait} for {c.fitness}, 95 % interval", "bold"),
+                assemble((f"β of {trait} for {c.fitness}, 95 % interval", "bold"),
                                  ("  se: β ± 1.96 se until the bootstrap is in" if se_based else "", "$accent")),
                 interval_rows(rows, width=width, marks=marks)]))
         else:
             forest.update("No gradients yet for this trait and fitness measure.")
         if not summary:
             summary.append(Content("Across-season summaries need at least two seasons with gradients at a site."))
-        summary.append(Content.assemble(("Weighted mean: weights 1/se²; τ²: DerSimonian–Laird between-season "
+        summary.append(assemble(("Weighted mean: weights 1/se²; τ²: DerSimonian–Laird between-season "
                                          "variance; the mean rows show the weighted mean ± 1.96 se.", "$text-muted")))
         self.query_one("#sea-summary", Static).update(Content("\n").join(summary))
 
@@ -172,20 +173,20 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         rows = [r for r in self.trend_rows if r["trait"] == trait and r["site"] == c.site]
         if not rows:
             if self.trend_rows:
-                pic.update(f"No β for {trait} at this site after any batch of season {c.season}.")
+                pic.update(literal(f"No β for {trait} at this site after any batch of season {c.season}."))
             elif self.trend_done:
-                pic.update(f"No batch of season {c.season} gives a β for {trait} yet: β needs fitness, which "
-                           "arrives with the census batches.")
+                pic.update(literal(f"No batch of season {c.season} gives a β for {trait} yet: β needs fitness, "
+                                   "which arrives with the census batches."))
             return
         width = max(50, self.size.width - 4)
         items = [(f"batch {r['batch']} n={r['n']}", r["estimate"], r["ci_low"], r["ci_high"]) for r in rows]
         lines = [
-            Content.assemble((f"β of {trait} after each batch, season {c.season}, ", "bold"),
+            assemble((f"β of {trait} after each batch, season {c.season}, ", "bold"),
                              ("pooled" if c.site == ALL else str(c.site), "bold"),
                              ("  β ± 1.96·se", "$text-muted")),
             interval_rows(items, width=width)]
         if len(rows) < 3:
-            lines.append(Content.assemble((few_batches_sentence(len(rows)), "$text-muted")))
+            lines.append(assemble((few_batches_sentence(len(rows)), "$text-muted")))
         pic.update(Content("\n").join(lines))
         self._plan(rows[-1])
 

@@ -5,13 +5,13 @@ from __future__ import annotations
 from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.content import Content
 from textual.containers import VerticalScroll
 from textual.widgets import DataTable, Static, TabbedContent, TabPane
 
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.snapshot import Snapshot
+from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
 from fieldslope.tui.widgets.pictures import fmt, scatter_picture, surface_picture
 
 
@@ -94,8 +94,8 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         with TabbedContent(id="sel-tabs"):
             with TabPane("Table", id="sel-table"):
                 with VerticalScroll():
-                    yield DataTable(id="sel-linear", cursor_type="row", zebra_stripes=True, classes="panel")
-                    yield DataTable(id="sel-gamma", cursor_type="row", classes="panel")
+                    yield LiteralTable(id="sel-linear", cursor_type="row", zebra_stripes=True, classes="panel")
+                    yield LiteralTable(id="sel-gamma", cursor_type="row", classes="panel")
                     yield Static(id="sel-notes", classes="notes")
             with TabPane("w vs trait", id="sel-picture"):
                 yield Static(id="sel-scatter", classes="picture panel")
@@ -138,7 +138,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             self.query_one("#sel-summary", Static).update(no_estimates_sentence(snap))
             for t in ("#sel-linear", "#sel-gamma"):
                 self.query_one(t, DataTable).clear()
-            self.query_one("#sel-notes", Static).update("\n".join(getattr(n, "message", str(n)) for n in snap.notes[:6]))
+            self.query_one("#sel-notes", Static).update(literal("\n".join(getattr(n, "message", str(n)) for n in snap.notes[:6]), keep_newlines=True))
             return
         self._summary(snap)
         self._tables(snap)
@@ -159,7 +159,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             parts.append(("  open outliers left out", "bold $warning"))
         if not snap.intervals:
             parts.append(("  intervals: computing …" if self.app.bootstrap else "  intervals off", "$accent"))
-        self.query_one("#sel-summary", Static).update(Content.assemble(*parts))
+        self.query_one("#sel-summary", Static).update(assemble(*parts))
 
     def _tables(self, snap: Snapshot) -> None:
         c = self.choices
@@ -210,7 +210,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         axes = axes_text(snap, key)
         if axes:
             parts.append(("λ: eigenvalues of γ; " + axes + " ", "$text-muted"))
-        self.query_one("#sel-notes", Static).update(Content.assemble(*parts, *[(n + " ", "$text-muted") for n in notes]))
+        self.query_one("#sel-notes", Static).update(assemble(*parts, *[(n + " ", "$text-muted") for n in notes]))
 
     @on(TabbedContent.TabActivated, "#sel-tabs")
     def _tab_shown(self) -> None:
@@ -259,7 +259,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             v = snap.value(c.season, c.site, c.fitness, q, t)
             vals[(q, t)] = None if v is None else v["estimate"]
         if any(v is None for v in vals.values()):
-            surf.update(f"No quadratic model for {a} and {bname} here (see the notes on the Table tab).")
+            surf.update(literal(f"No quadratic model for {a} and {bname} here (see the notes on the Table tab)."))
             return
         beta = (vals[("gradient", a)], vals[("gradient", bname)])
         g12 = vals[("correlational", f"{first}:{second}")]

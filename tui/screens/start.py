@@ -13,6 +13,7 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Button, Footer, Input, Label, Static
 
+from fieldslope.tui.widgets.literal import literal
 from fieldslope.tui.widgets.status import StatusLine
 
 WELCOME = ("No study is open. A study is a folder with a protocol.toml (what is measured), "
@@ -51,7 +52,7 @@ class StartScreen(Screen):
 
     def say(self, text: str, error: bool = False) -> None:
         msg = self.query_one("#start-message", Static)
-        msg.update(text)
+        msg.update(literal(text, keep_newlines=True))
         msg.set_class(error, "-error")
 
     @on(Button.Pressed, "#start-create-btn")

@@ -17,6 +17,8 @@ from typing import Iterable, Sequence
 
 from textual.content import Content
 
+from fieldslope.tui.safe_text import escape_controls
+
 SHADES = " ░▒▓█"
 BARS = "▁▂▃▄▅▆▇█"
 
@@ -33,7 +35,7 @@ class Canvas:
             self.cells[row][col] = (char, style)
 
     def text(self, col: int, row: int, text: str, style: str = "") -> None:
-        for i, ch in enumerate(text):
+        for i, ch in enumerate(escape_controls(text)):   # labels carry sites and seasons from data
             self.put(col + i, row, ch, style)
 
     def get(self, col: int, row: int) -> str:
