@@ -6,7 +6,6 @@ from dataclasses import dataclass
 from itertools import combinations_with_replacement
 
 import numpy as np
-from scipy.special import expit
 
 MAX_ITER = 100
 TOL = 1e-11
@@ -19,6 +18,13 @@ TAYLOR_REACH = 0.5
 # when they are at most this share of a batch; beyond it most are separated, the interval is
 # withheld anyway (over 5 % unusable), and refits would cost more than the batch
 REFIT_SHARE = 0.1
+
+
+def expit(eta: np.ndarray) -> np.ndarray:
+    """The logistic function 1 / (1 + exp(-eta)) in numpy (within 1 ulp of scipy.special.expit, without
+    loading scipy at start-up)."""
+    with np.errstate(over="ignore"):
+        return 1.0 / (1.0 + np.exp(-eta))
 
 
 class Separation(ValueError):

@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 
 @dataclass(frozen=True)
@@ -27,7 +27,33 @@ def combine(estimates: np.ndarray, ses: np.ndarray) -> Combined:
     q = float(np.sum(w * (b - mean) ** 2))
     c = np.sum(w) - np.sum(w**2) / np.sum(w)
     tau2 = max(0.0, (q - (k - 1)) / c) if c > 0 else 0.0
-    return Combined(mean, float(np.sqrt(1 / np.sum(w))), q, float(stats.chi2.sf(q, k - 1)), float(tau2), k)
+    return Combined(mean, float(np.sqrt(1 / np.sum(w))), q, chi2_upper(q, k - 1), float(tau2), k)
+
+
+def chi2_upper(x: float, df: int) -> float:
+    """Upper tail P(X >= x) of a chi-square variable with a whole number ``df`` of degrees of freedom.
+
+    Closed forms of the regularized upper gamma function at half-integer shape (Abramowitz & Stegun
+    1964, 26.4.4 and 26.4.5): a finite Poisson sum for even df, erfc plus a finite sum for odd df.
+    Plain ``math``, so the estimates need not load scipy.stats for one tail.
+    """
+    if not math.isfinite(x):
+        return math.nan if math.isnan(x) else 0.0
+    if x <= 0:
+        return 1.0
+    half = x / 2
+    if df % 2 == 0:
+        term, total = 1.0, 1.0
+        for i in range(1, df // 2):
+            term *= half / i
+            total += term
+        return min(1.0, math.exp(-half) * total)
+    term = math.sqrt(half) / math.gamma(1.5)  # (x/2)^(1/2) / Gamma(3/2)
+    total = 0.0
+    for i in range((df - 1) // 2):
+        total += term
+        term *= half / (i + 1.5)  # Gamma(i + 5/2) = (i + 3/2) Gamma(i + 3/2)
+    return min(1.0, math.erfc(math.sqrt(half)) + math.exp(-half) * total)
 
 
 def sign_changes(values) -> int:

@@ -172,6 +172,15 @@ def test_across_seasons_match_statsmodels_meta_analysis():
         assert mean.n == g.n.sum()
 
 
+@pytest.mark.parametrize("df", [1, 2, 3, 4, 7, 12, 25])
+def test_chi_square_tail_matches_scipy(df):
+    from fieldslope.analysis.seasons import chi2_upper
+
+    for x in [0.0, 1e-6, 0.3, 1.0, df - 0.5, df + 2.0, 3.0 * df + 10, 80.0, 400.0]:
+        assert chi2_upper(x, df) == pytest.approx(stats.chi2.sf(x, df), rel=1e-12, abs=1e-300)  # scipy.stats
+    assert chi2_upper(float("inf"), df) == 0.0 and chi2_upper(-1.0, df) == 1.0
+
+
 def test_projection_and_generations():
     """Constant response R per generation: mean after k generations is mean0 + k R (breeder's equation, common practice)."""
     assert project_mean(10.0, 0.25, 4).tolist() == [10.0, 10.25, 10.5, 10.75, 11.0]

@@ -242,6 +242,21 @@ def test_progress_shows_only_on_a_terminal():
     assert pipe.getvalue() == ""
 
 
+def test_progress_without_a_stream_writes_to_stderr_when_it_is_a_terminal(monkeypatch):
+    from fieldslope.tui.cli_format import Progress
+
+    class Tty(io.StringIO):
+        def isatty(self):
+            return True
+
+    tty = Tty()
+    monkeypatch.setattr(sys, "stderr", tty)
+    p = Progress("estimating")
+    p(1, 2, "bootstrap, season 2031")
+    p.done()
+    assert "estimating: bootstrap, season 2031 50%" in tty.getvalue()
+
+
 def test_check_of_a_file_already_taken_in_runs_the_checks_and_names_the_batch(folder, protocol_file, capsys):
     study = str(folder / "st")
     call(capsys, "init", study, "--protocol", str(protocol_file))

@@ -11,6 +11,7 @@ from __future__ import annotations
 import re
 from collections import Counter
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -206,3 +207,24 @@ def test_without_a_folder_the_demo_study_goes_under_the_user_data_folder(tmp_pat
     assert len(made) == 1 and (made[0] / demo.MARKER).is_file()
     assert (made[0] / "protocol.toml").is_file()
     assert "[16/16]" in capsys.readouterr().out
+
+
+def test_same_seed_gives_the_numbers_of_the_reference_commit(estimates):
+    """Against tests/data/demo_estimates_reference.csv, computed by an earlier commit of this program
+    (1e5e437) with the same batches, 500 resamples and seed 4242 (benchmarks/same_numbers.py demo): speed
+    work must not move an estimate, a standard error or an interval bound by more than 1e-7. p-values
+    are left out: the permutation tests are being redefined."""
+    from pathlib import Path
+
+    ref = pd.read_csv(Path(__file__).parent / "data" / "demo_estimates_reference.csv",
+                      dtype={c: str for c in ("season", "site", "fitness", "quantity", "term")},
+                      keep_default_na=False, na_values={c: [""] for c in ("estimate", "se", "ci_low", "ci_high", "n")})
+    key = ["season", "site", "fitness", "quantity", "term"]
+    now = estimates.astype({c: str for c in key}).fillna({"term": ""})
+    both = ref.merge(now, on=key, how="left", suffixes=("_ref", ""), indicator=True)
+    assert (both["_merge"] == "both").all(), both.loc[both["_merge"] != "both", key].head()
+    for col in ("estimate", "se", "ci_low", "ci_high", "n"):
+        a, b = both[f"{col}_ref"].to_numpy(float), both[col].to_numpy(float)
+        assert (np.isnan(a) == np.isnan(b)).all(), col
+        ok = np.isnan(a) | (np.abs(a - b) <= 1e-7 * np.maximum(1.0, np.abs(a)))
+        assert ok.all(), both.loc[~ok, key + [f"{col}_ref", col]].head()

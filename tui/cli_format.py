@@ -10,11 +10,12 @@ import math
 import sys
 import textwrap
 from collections import Counter
-from typing import Iterable, TextIO
-
-import pandas as pd
+from typing import TYPE_CHECKING, Iterable, TextIO
 
 from fieldslope.tui.safe_text import escape_controls
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
 
 WIDTH = 80
 MAX_LISTED = 50
@@ -24,6 +25,16 @@ MAX_NOTES = 20
 def say(text: object, file: TextIO | None = None) -> None:
     """Print one message line for a terminal: control characters in it (a file name's newline too) escaped."""
     print(escape_controls(text), file=file or sys.stdout)
+
+
+def missing(value) -> bool:
+    """None, NaN or pandas' NA (without importing pandas: ``flags`` and ``history`` start faster)."""
+    if value is None:
+        return True
+    try:
+        return bool(value != value)
+    except TypeError:  # pandas' NA has no truth value
+        return True
 
 
 def cut(text: object, width: int) -> str:
@@ -37,14 +48,14 @@ def wrap(text: str, indent: str = "    ") -> str:
 
 
 def number(value, width: int) -> str:
-    if value is None or (isinstance(value, float) and not math.isfinite(value)) or pd.isna(value):
+    if missing(value) or (isinstance(value, float) and not math.isfinite(value)):
         return " " * width
     text = f"{value:.4g}"
     return f"{text:>{width}}"
 
 
 def p_text(value) -> str:
-    if value is None or pd.isna(value):
+    if missing(value):
         return ""
     return "<0.001" if value < 0.001 else f"{value:.3f}"
 
@@ -109,7 +120,7 @@ def estimates_text(table: pd.DataFrame, notes=()) -> str:
     for (season, site, fitness), block in table.groupby(["season", "site", "fitness"], sort=False):
         lines += ["", cut(f"season {season} · site {site} · fitness {fitness}", WIDTH), _HEAD]
         for r in block.itertuples(index=False):
-            n = "" if pd.isna(r.n) else str(int(r.n))
+            n = "" if missing(r.n) else str(int(r.n))
             lines.append(f"{cut(r.quantity, 17):<17} {cut(r.term, 10):<10} {number(r.estimate, 9)} "
                          f"{number(r.se, 8)} {number(r.ci_low, 9)} {number(r.ci_high, 9)} "
                          f"{p_text(r.p_value):>6} {n:>5}")
@@ -130,7 +141,7 @@ class Progress:
 
     def __init__(self, label: str, stream: TextIO | None = None):
         self.label, self.stream = label, stream or sys.stderr
-        self.live = hasattr(stream, "isatty") and stream.isatty()
+        self.live = hasattr(self.stream, "isatty") and self.stream.isatty()
         self._last = -1
 
     def __call__(self, done: int, total: int, stage: str = "") -> None:
