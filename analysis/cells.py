@@ -17,6 +17,7 @@ import pandas as pd
 from fieldslope.analysis.design import Design
 from fieldslope.analysis.fitness import is_binary
 from fieldslope.analysis.standardize import constant_columns
+from fieldslope.common.names import ALL, Q
 
 MIN_SINGLE = 3  # individuals for a per-trait differential with a standard error
 
@@ -73,7 +74,7 @@ def split_cells(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
         for col in design.groups[1:]:
             site = site + "/" + as_text(frame[col])
     else:
-        site = pd.Series("all", index=frame.index)
+        site = pd.Series(ALL, index=frame.index)
     z_all = frame[list(design.traits)].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
     w_all = {f: pd.to_numeric(frame[f], errors="coerce").to_numpy(dtype=float) for f in fitness_names}
     out: dict[str, list[Cell]] = {}
@@ -114,33 +115,33 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
         return prep
     prep.binary = kind == "binary" and is_binary(Wf)
     if kind == "binary" and not prep.binary:
-        prep.notes.append(("gradient_logistic", f"{fitness} is declared 0/1 but has other values {where}, so it has no logistic gradient."))
+        prep.notes.append((Q.GRADIENT_LOGISTIC, f"{fitness} is declared 0/1 but has other values {where}, so it has no logistic gradient."))
     prep.opp = Sample(rows, cell.z[rows], Wf)
     for j, name in enumerate(traits):
         r = np.flatnonzero(has_w & ~np.isnan(cell.z[:, j]))
         if len(r) < MIN_SINGLE:
-            prep.notes.append(("differential", f"Only {len(r)} individuals {where} have {name} and {fitness}; at least {MIN_SINGLE} are needed for its differential."))
+            prep.notes.append((Q.DIFFERENTIAL, f"Only {len(r)} individuals {where} have {name} and {fitness}; at least {MIN_SINGLE} are needed for its differential."))
             continue
         zj = cell.z[r, j]
         if constant_columns(zj[:, None]):
-            prep.notes.append(("differential", f"{name} is constant {where}, so it cannot be standardized and has no differential for {fitness}."))
+            prep.notes.append((Q.DIFFERENTIAL, f"{name} is constant {where}, so it cannot be standardized and has no differential for {fitness}."))
             continue
         if W[r].mean() <= 0:
-            prep.notes.append(("differential", f"Mean {fitness} is 0 among individuals {where} measured for {name}, so it has no differential."))
+            prep.notes.append((Q.DIFFERENTIAL, f"Mean {fitness} is 0 among individuals {where} measured for {name}, so it has no differential."))
             continue
         prep.single[j] = Sample(r, cell.z[r][:, [j]], W[r])
     complete = has_w & ~np.isnan(cell.z).any(axis=1)
     r = np.flatnonzero(complete)
     if len(r) < p + 2:
-        prep.notes.append(("gradient", f"Only {len(r)} individuals {where} have {fitness} and every trait; gradients need at least {p + 2}."))
+        prep.notes.append((Q.GRADIENT, f"Only {len(r)} individuals {where} have {fitness} and every trait; gradients need at least {p + 2}."))
         return prep
     zc = cell.z[r]
     const = [traits[j] for j in constant_columns(zc)]
     if const:
-        prep.notes.append(("gradient", f"{', '.join(const)} is constant among complete cases {where}, so no gradients are estimated for {fitness}."))
+        prep.notes.append((Q.GRADIENT, f"{', '.join(const)} is constant among complete cases {where}, so no gradients are estimated for {fitness}."))
         return prep
     if W[r].mean() <= 0:
-        prep.notes.append(("gradient", f"Mean {fitness} is 0 among complete cases {where}, so no gradients are estimated."))
+        prep.notes.append((Q.GRADIENT, f"Mean {fitness} is 0 among complete cases {where}, so no gradients are estimated."))
         return prep
     prep.multi = Sample(r, zc, W[r])
     return prep

@@ -10,8 +10,7 @@ from fieldslope.analysis.heritability import parent_offspring
 from fieldslope.analysis.point import BlockResult
 from fieldslope.analysis.response import breeders_response, genetic_covariance, multivariate_response, response_se
 from fieldslope.analysis.seasons import combine, sign_changes
-
-ALL = "all"
+from fieldslope.common.names import ALL, Q
 
 
 def row(season, site, fitness, quantity, term, estimate, se=np.nan, p=np.nan, n=None) -> dict:
@@ -26,11 +25,11 @@ def heritabilities(data: pd.DataFrame, design: Design, entered: dict | None):
     for trait in design.traits:
         fit, why = parent_offspring(data, design, trait)
         if fit is not None:
-            rows.append(row(ALL, ALL, "", "heritability", trait, fit.estimate, fit.se, n=fit.n_families))
-            notes.append((ALL, ALL, "", "heritability", fit.describe()))
+            rows.append(row(ALL, ALL, "", Q.HERITABILITY, trait, fit.estimate, fit.se, n=fit.n_families))
+            notes.append((ALL, ALL, "", Q.HERITABILITY, fit.describe()))
             used[trait] = (fit.estimate, fit.se)
             if not 0 <= fit.estimate <= 1:
-                notes.append((ALL, ALL, "", "heritability",
+                notes.append((ALL, ALL, "", Q.HERITABILITY,
                               f"The estimated heritability of {trait} ({fit.estimate:.3g}) lies outside 0 to 1; "
                               "its responses use it as it is, and no multivariate response is given."))
             continue
@@ -38,11 +37,11 @@ def heritabilities(data: pd.DataFrame, design: Design, entered: dict | None):
             value, se, source = entered[trait]
             used[trait] = (float(value), None if se is None else float(se))
             exact = "" if se is not None else "; with no standard error entered, response standard errors treat it as exact"
-            notes.append((ALL, ALL, "", "response",
+            notes.append((ALL, ALL, "", Q.RESPONSE,
                           f"Responses of {trait} use the entered heritability {value:g} ({source}), "
                           f"as it cannot be estimated here: {why}{exact}."))
         else:
-            notes.append((ALL, ALL, "", "response",
+            notes.append((ALL, ALL, "", Q.RESPONSE,
                           f"No heritability for {trait} ({why}); enter one to get its response to selection."))
     return rows, notes, used
 
@@ -69,22 +68,22 @@ def response_rows(season, site, fitness, res: BlockResult, traits, used: dict, r
     found = {(r.quantity, r.term): r for r in res.rows}
     out = []
     for name in traits:
-        S, mean = found.get(("differential", name)), found.get(("mean", name))
+        S, mean = found.get((Q.DIFFERENTIAL, name)), found.get((Q.MEAN, name))
         if name not in used or S is None:
             continue
         h2, h2_se = used[name]
         R = breeders_response(h2, S.estimate)
         se = response_se(h2, h2_se, S.estimate, S.se)
-        out.append(row(season, site, fitness, "response", name, R, se, n=S.n))
+        out.append(row(season, site, fitness, Q.RESPONSE, name, R, se, n=S.n))
         if mean is not None and mean.estimate != 0:
-            out.append(row(season, site, fitness, "response_pct", name, 100 * R / mean.estimate,
+            out.append(row(season, site, fitness, Q.RESPONSE_PCT, name, 100 * R / mean.estimate,
                            100 * se / abs(mean.estimate), n=S.n))
     assumed = False
     if res.P is not None and all(t in used and 0 <= used[t][0] <= 1 for t in traits):
         rg, assumed = correlation_matrix(traits, res.P, rg_given)
         G = genetic_covariance(res.P, np.array([used[t][0] for t in traits]), rg)
         dz = multivariate_response(G, res.beta_raw)
-        out.extend(row(season, site, fitness, "response_multi", t, dz[j], n=res.n_multi) for j, t in enumerate(traits))
+        out.extend(row(season, site, fitness, Q.RESPONSE_MULTI, t, dz[j], n=res.n_multi) for j, t in enumerate(traits))
     return out, assumed
 
 
@@ -94,19 +93,19 @@ def temporal_rows(table_rows: list[dict], season_order: list[str]) -> tuple[list
     rank = {s: i for i, s in enumerate(season_order)}
     series: dict[tuple, list] = {}
     for r in table_rows:
-        if r["quantity"] == "gradient" and r["season"] in rank and np.isfinite(r["estimate"]) and r["se"] > 0:
+        if r["quantity"] == Q.GRADIENT and r["season"] in rank and np.isfinite(r["estimate"]) and r["se"] > 0:
             series.setdefault((r["site"], r["fitness"], r["term"]), []).append(r)
     for (site, fitness, term), rs in series.items():
         rs = sorted(rs, key=lambda r: rank[r["season"]])
         if len(rs) < 2:
-            notes.append((ALL, site, fitness, "gradient_mean",
+            notes.append((ALL, site, fitness, Q.GRADIENT_MEAN,
                           f"Gradients of {term} at site {site} exist for one season only, so nothing is combined across seasons."))
             continue
         b = np.array([r["estimate"] for r in rs])
         c = combine(b, np.array([r["se"] for r in rs]))
         n = int(sum(r["n"] for r in rs))
-        rows.append(row(ALL, site, fitness, "gradient_mean", term, c.mean, c.se, n=n))
-        rows.append(row(ALL, site, fitness, "gradient_tau2", term, c.tau2, n=n))
-        rows.append(row(ALL, site, fitness, "gradient_q", term, c.q, p=c.q_p, n=n))
-        rows.append(row(ALL, site, fitness, "sign_changes", term, sign_changes(b), n=n))
+        rows.append(row(ALL, site, fitness, Q.GRADIENT_MEAN, term, c.mean, c.se, n=n))
+        rows.append(row(ALL, site, fitness, Q.GRADIENT_TAU2, term, c.tau2, n=n))
+        rows.append(row(ALL, site, fitness, Q.GRADIENT_Q, term, c.q, p=c.q_p, n=n))
+        rows.append(row(ALL, site, fitness, Q.SIGN_CHANGES, term, sign_changes(b), n=n))
     return rows, notes

@@ -15,8 +15,7 @@ import numpy as np
 from fieldslope.analysis.cells import Prepared
 from fieldslope.analysis.point import with_intercept
 from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
-
-ALL = "all"
+from fieldslope.common.names import ALL, Q
 
 
 def standardized(z: np.ndarray) -> np.ndarray:
@@ -71,8 +70,8 @@ class SeasonPermuter:
                         if what == "single":
                             raw, std = prod[:, at] - sums[at], prod[:, at + 1] - sums[at + 1]
                             n = len(s.W)
-                            out[(self.sites[c], f, "differential", self.traits[j])] = raw / n
-                            out[(self.sites[c], f, "differential_std", self.traits[j])] = std / n
+                            out[(self.sites[c], f, Q.DIFFERENTIAL, self.traits[j])] = raw / n
+                            out[(self.sites[c], f, Q.DIFFERENTIAL_STD, self.traits[j])] = std / n
                             single[j].append((raw, std, n))
                             at += 2
                         else:
@@ -84,8 +83,8 @@ class SeasonPermuter:
                 for j, parts in single.items():
                     if parts:
                         N = sum(n for _, _, n in parts)
-                        out[(ALL, f, "differential", self.traits[j])] = sum(r for r, _, _ in parts) / N
-                        out[(ALL, f, "differential_std", self.traits[j])] = sum(s for _, s, _ in parts) / N
+                        out[(ALL, f, Q.DIFFERENTIAL, self.traits[j])] = sum(r for r, _, _ in parts) / N
+                        out[(ALL, f, Q.DIFFERENTIAL_STD, self.traits[j])] = sum(s for _, s, _ in parts) / N
             blocks = [(self.sites[c], [c]) for c in U]
             if self.pooled and U:
                 blocks.append((ALL, list(U)))
@@ -102,13 +101,13 @@ class SeasonPermuter:
         except np.linalg.LinAlgError:
             return
         for j, name in enumerate(self.traits):
-            for q in ("gradient", "gradient_raw", "gradient_logistic"):
+            for q in (Q.GRADIENT, Q.GRADIENT_RAW, Q.GRADIENT_LOGISTIC):
                 out[(site, f, q, name)] = lin[:, j]
         for (j, k), term, col in zip(quad_pairs(p), quad_terms(self.traits), quad.T):
-            out[(site, f, "quadratic" if j == k else "correlational", term)] = col
+            out[(site, f, Q.QUADRATIC if j == k else Q.CORRELATIONAL, term)] = col
         vals, _ = canonical_axes(gamma_matrix(quad, p))
         for i in range(p):
-            out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
+            out[(site, f, Q.CANONICAL, f"m{i + 1}")] = vals[:, i]
 
     def observed(self) -> dict[tuple, float]:
         stats = self.statistics(lambda f, c, s: s.W[None, :])

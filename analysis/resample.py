@@ -29,8 +29,8 @@ from fieldslope.analysis.moments import (
 )
 from fieldslope.analysis.point import stack, with_intercept
 from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_pairs, quad_terms
+from fieldslope.common.names import ALL, Q
 
-ALL = "all"
 CHUNK = 200  # resamples per chunk: bounds memory to CHUNK x cell size numbers
 
 
@@ -150,10 +150,10 @@ class SeasonResampler:
             if part is None:
                 continue
             n, w2, ok = opp_sums(moments[c], part)
-            out[(site, f, "opportunity", "")] = np.where(ok, w2 / n - 1, np.nan)
+            out[(site, f, Q.OPPORTUNITY, "")] = np.where(ok, w2 / n - 1, np.nan)
             tot_n, tot_w2, tot_ok = tot_n + n, tot_w2 + w2, tot_ok & ok
         if self.pooled and not np.isscalar(tot_n):
-            out[(ALL, f, "opportunity", "")] = np.where(tot_ok, tot_w2 / tot_n - 1, np.nan)
+            out[(ALL, f, Q.OPPORTUNITY, "")] = np.where(tot_ok, tot_w2 / tot_n - 1, np.nan)
 
     def boot_single(self, f, moments, out):
         for j, name in enumerate(self.traits):
@@ -164,13 +164,13 @@ class SeasonResampler:
                     continue
                 ss = single_sums(moments[c], part)
                 raw, std = ss.s0 * ss.S_num, ss.S_num / ss.s
-                out[(site, f, "differential", name)] = np.where(ss.ok, raw / ss.n, np.nan)
-                out[(site, f, "differential_std", name)] = np.where(ss.ok, std / ss.n, np.nan)
+                out[(site, f, Q.DIFFERENTIAL, name)] = np.where(ss.ok, raw / ss.n, np.nan)
+                out[(site, f, Q.DIFFERENTIAL_STD, name)] = np.where(ss.ok, std / ss.n, np.nan)
                 add = np.array([raw, std, ss.n, np.where(ss.ok, 0.0, np.nan)])
                 tot = add if tot is None else tot + add
             if self.pooled and tot is not None:
-                out[(ALL, f, "differential", name)] = tot[0] / tot[2] + tot[3]
-                out[(ALL, f, "differential_std", name)] = tot[1] / tot[2] + tot[3]
+                out[(ALL, f, Q.DIFFERENTIAL, name)] = tot[0] / tot[2] + tot[3]
+                out[(ALL, f, Q.DIFFERENTIAL_STD, name)] = tot[1] / tot[2] + tot[3]
 
     def boot_multi(self, f, site, mms: list[MultiMoments], out):
         p = self.p
@@ -181,20 +181,20 @@ class SeasonResampler:
         sd = np.sqrt(sum((m.n - 1)[:, None] * m.sd**2 for m in mms) / dof[:, None])
         lin = batched_solve(Mx[:, : 1 + p, : 1 + p], vx[:, : 1 + p], ok)[:, 1:]
         for j, name in enumerate(self.traits):
-            out[(site, f, "gradient", name)] = lin[:, j]
-            out[(site, f, "gradient_raw", name)] = lin[:, j] / sd[:, j]
+            out[(site, f, Q.GRADIENT, name)] = lin[:, j]
+            out[(site, f, Q.GRADIENT_RAW, name)] = lin[:, j] / sd[:, j]
         quad = batched_solve(Mx, vx, ok)[:, 1 + p :]
         self.put_quadratic(site, f, quad, out)
 
     def put_quadratic(self, site, f, quad, out):
         for (j, k), term, col in zip(quad_pairs(self.p), quad_terms(self.traits), quad.T):
-            out[(site, f, "quadratic" if j == k else "correlational", term)] = col
+            out[(site, f, Q.QUADRATIC if j == k else Q.CORRELATIONAL, term)] = col
         good = np.all(np.isfinite(quad), axis=1)
         g = gamma_matrix(np.where(good[:, None], quad, 0.0), self.p)
         vals, _ = canonical_axes(g)
         vals[~good] = np.nan
         for i in range(self.p):
-            out[(site, f, "canonical", f"m{i + 1}")] = vals[:, i]
+            out[(site, f, Q.CANONICAL, f"m{i + 1}")] = vals[:, i]
 
     def logit_sums(self, f, c, moments) -> np.ndarray:
         """[sum C y x~, sum C y, sum C] of a cell's complete cases, from the linear-model moments."""
@@ -229,7 +229,7 @@ class SeasonResampler:
         grad = beta[:, 1:] * (mean_pq / mean_w)[:, None]
         grad[~ok] = np.nan
         for j, name in enumerate(self.traits):
-            out[(site, f, "gradient_logistic", name)] = grad[:, j]
+            out[(site, f, Q.GRADIENT_LOGISTIC, name)] = grad[:, j]
 
 
 def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int, tick) -> dict[tuple, np.ndarray]:

@@ -40,11 +40,11 @@ from fieldslope.analysis.fitness import add_totals, total_kind
 from fieldslope.analysis.permute import SeasonPermuter
 from fieldslope.analysis.point import point_block
 from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval, permute_season
+from fieldslope.common.names import ALL, Q
 
 COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
 # the default random seed for bootstrap resamples and permutations (same seed, same numbers)
 DEFAULT_SEED = 20260601
-ALL = "all"
 # BLAS threads while resampling (measured faster than several on a shared two-core machine)
 BLAS_THREADS = 1
 
@@ -106,7 +106,7 @@ def check_frame(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
 def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, seed, tick) -> list[Note]:
     """Fill ci_low, ci_high (bootstrap) and p_value (permutation) of a season's rows in place."""
     notes: list[Note] = []
-    logistic = {(r["site"], r["fitness"]) for r in season_rows if r["quantity"] == "gradient_logistic"}
+    logistic = {(r["site"], r["fitness"]) for r in season_rows if r["quantity"] == Q.GRADIENT_LOGISTIC}
     boot: dict = {}
     perm: dict = {}
     if B > 0:
@@ -193,7 +193,7 @@ def estimate_table(
                     units.append((ALL, preps))
                 left_out = [pr.cell.site for pr in preps if pr.multi is None]
                 if pooled and left_out and len(left_out) < len(preps):
-                    notes.append(Note(season, ALL, f, "gradient",
+                    notes.append(Note(season, ALL, f, Q.GRADIENT,
                                       f"Pooled gradients of season {season} for {f} leave out site(s) {', '.join(left_out)} "
                                       "(see their notes)."))
                 for site, block in units:
@@ -216,12 +216,12 @@ def estimate_table(
             rows.extend(t_rows)
             notes.extend(Note(*n) for n in t_notes)
         rows.extend(h_rows)
-        if permutations > 0 and any(r["quantity"] == "gradient_logistic" for r in rows):
-            notes.append(Note(ALL, ALL, "", "gradient_logistic",
+        if permutations > 0 and any(r["quantity"] == Q.GRADIENT_LOGISTIC for r in rows):
+            notes.append(Note(ALL, ALL, "", Q.GRADIENT_LOGISTIC,
                               "p-values of logistic gradients test the score statistic, which for 0/1 fitness "
                               "gives the linear gradient's permutation p-value."))
         if rg_assumed:
-            notes.append(Note(ALL, ALL, "", "response_multi",
+            notes.append(Note(ALL, ALL, "", Q.RESPONSE_MULTI,
                               "Genetic correlations not entered are taken equal to the phenotypic correlations of each cell."))
     table = pd.DataFrame(rows, columns=COLUMNS)
     table["n"] = table["n"].astype("Int64")

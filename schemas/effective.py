@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from fieldslope.common.names import Kind
 from fieldslope.schemas.protocol import Protocol
 
 
@@ -132,9 +133,9 @@ def effective(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Fi
               without_open_outliers: bool = False, as_of: int | None = None) -> pd.DataFrame:
     """The effective frame: columns ID, season, groups, traits, fitness components, parents."""
     states = flag_states(conn, as_of, leaving_out=True)
-    leave_out = states["status"].eq("exclude") | (states["status"].eq("open") & states["kind"].eq("out_of_range"))
+    leave_out = states["status"].eq("exclude") | (states["status"].eq("open") & states["kind"].eq(Kind.OUT_OF_RANGE))
     if without_open_outliers:
-        leave_out |= states["status"].eq("open") & states["kind"].eq("outlier")
+        leave_out |= states["status"].eq("open") & states["kind"].eq(Kind.OUTLIER)
     drop = states[leave_out]
     record_level = drop["field"].isin(["", protocol.id_col, protocol.season_col])
     value_level = drop[~record_level & drop["field"].isin(output_fields(protocol))]

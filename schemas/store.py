@@ -27,6 +27,7 @@ from fieldslope.schemas import store_checks as checks
 from fieldslope.schemas import store_health as health
 from fieldslope.schemas import store_schema as schema
 from fieldslope.common.errors import SheetError, StoreError
+from fieldslope.common.names import Outcome
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import CheckReport, FlagNote, RowError
 from fieldslope.schemas.batch_plan import BatchPlan, Progress, now
@@ -254,7 +255,7 @@ class Store:
         earlier = self._taken_in(hashlib.sha256(data).hexdigest())
         if earlier is not None:     # quick answer without reading the sheet (checked again when writing)
             plan = BatchPlan(name, data, None, None)
-            return _Outcome(plan, "duplicate", duplicate_of=earlier[0],
+            return _Outcome(plan, Outcome.DUPLICATE, duplicate_of=earlier[0],
                             message=_duplicate_message(name, *earlier)).result(earlier[0])
         plan = BatchPlan.make(self.protocol, name, data, progress)
         operator = operator or default_operator()
@@ -288,9 +289,9 @@ class Store:
                   recheck: bool = False) -> "_Outcome":
         dup = plan.sha and not recheck and _earlier_batch(conn, plan.sha)
         if dup:
-            return _Outcome(plan, "duplicate", duplicate_of=dup[0], message=_duplicate_message(plan.name, *dup))
+            return _Outcome(plan, Outcome.DUPLICATE, duplicate_of=dup[0], message=_duplicate_message(plan.name, *dup))
         if plan.report is None:
-            return _Outcome(plan, "refused", message=plan.refusal)
+            return _Outcome(plan, Outcome.REFUSED, message=plan.refusal)
         p, report = self.protocol, plan.report
         valid = report.valid
         seasons = sorted({str(v) for v in pd.unique(valid[p.season_col].to_numpy(dtype=object))})
@@ -306,7 +307,7 @@ class Store:
         if errors and not accept_valid:
             msg = (f"{plan.name}: {len(bad_rows)} of {n} rows have errors, so nothing was stored; fix them and "
                    "import again, or import with --accept-valid to store the valid rows and quarantine the others.")
-            return _Outcome(plan, "refused", errors=errors, message=msg)
+            return _Outcome(plan, Outcome.REFUSED, errors=errors, message=msg)
         bad = set(bad_rows)
         flags = [f for f in report.flags if f.row not in bad]
         compared = [f for f in self.fields if f in valid.columns and f not in OPTIONAL_TEXT]  # not visit notes
@@ -316,7 +317,7 @@ class Store:
             known = {r[0] for r in conn.execute("SELECT DISTINCT individual FROM records")}
             flags += checks.unknown_parents(p, valid, known)
         flags.sort(key=lambda f: f.row)
-        outcome = "partial" if errors else "stored"
+        outcome = Outcome.PARTIAL if errors else Outcome.STORED
         stored = len(valid)
         msg = f"{plan.name}: {stored} of {n} rows stored" + (
             f", {len(bad_rows)} quarantined (fix them with fieldslope resolve)" if bad_rows else "") + "."
@@ -324,7 +325,7 @@ class Store:
 
     def _store(self, conn, plan: "BatchPlan", operator: str, accept_valid: bool, progress: Progress) -> ImportResult:
         out = self._evaluate(conn, plan, accept_valid)
-        if out.outcome == "duplicate":
+        if out.outcome == Outcome.DUPLICATE:
             return out.result(out.duplicate_of)
         sheet = plan.report.sheet if plan.report else None
         errors_json = json.dumps([e.__dict__ for e in out.errors])
@@ -333,10 +334,10 @@ class Store:
             "n_stored, n_quarantined, errors, message) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)",
             (plan.name, plan.sha, plan.data, sheet.encoding if sheet else "", sheet.delimiter if sheet else "",
              operator, now(), out.outcome, plan.report.n_rows if plan.report else 0,
-             len(out.valid) if out.outcome != "refused" else 0,
-             len(out.bad_rows) if out.outcome == "partial" else 0, errors_json, out.message))
+             len(out.valid) if out.outcome != Outcome.REFUSED else 0,
+             len(out.bad_rows) if out.outcome == Outcome.PARTIAL else 0, errors_json, out.message))
         batch_id = cur.lastrowid
-        if out.outcome == "refused":
+        if out.outcome == Outcome.REFUSED:
             return out.result(batch_id)
         record_ids = self._insert_records(conn, batch_id, batch_id, out.valid, progress)
         created = now()
@@ -583,10 +584,10 @@ class _Outcome:
 
     def result(self, batch_id: int | None, checked_only: bool = False) -> ImportResult:
         report = self.plan.report
-        stored = self.outcome in ("stored", "partial")
+        stored = self.outcome in (Outcome.STORED, Outcome.PARTIAL)
         return ImportResult(
             file_name=self.plan.name, outcome=self.outcome,
-            batch_id=self.duplicate_of if self.outcome == "duplicate" else batch_id,
+            batch_id=self.duplicate_of if self.outcome == Outcome.DUPLICATE else batch_id,
             n_rows=report.n_rows if report else 0, n_stored=len(self.valid) if stored else 0,
-            n_quarantined=len(self.bad_rows) if self.outcome == "partial" else 0,
+            n_quarantined=len(self.bad_rows) if self.outcome == Outcome.PARTIAL else 0,
             errors=tuple(self.errors), flags=tuple(self.flags), message=self.message, checked_only=checked_only)

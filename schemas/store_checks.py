@@ -12,6 +12,7 @@ import math
 import numpy as np
 import pandas as pd
 
+from fieldslope.common.names import Kind
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import FlagNote, RowError
 
@@ -59,7 +60,7 @@ def differs_from_record(protocol: Protocol, valid: pd.DataFrame, record: pd.Data
         new = sub[field].to_numpy(dtype=object)
         old = record[field].to_numpy(dtype=object)[pos]
         for i in np.flatnonzero(_differ(new, old)):
-            out.append(FlagNote(int(rows[i]), ids[i], seasons[i], field, "differs_from_record", show(new[i]),
+            out.append(FlagNote(int(rows[i]), ids[i], seasons[i], field, Kind.DIFFERS_FROM_RECORD, show(new[i]),
                                 f"{field} {show(new[i])} differs from {show(old[i])} already on record for "
                                 f"{ids[i]} in {seasons[i]}; keep the new value, exclude it, or set the right one"))
     return out
@@ -116,7 +117,7 @@ def new_outliers(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame) 
             hit = np.flatnonzero(np.isfinite(bz) & (np.abs(bz) > limit) & np.isfinite(bv))
         for i in hit:
             ind, season = batch_keys[i]
-            out.append(FlagNote(int(rows[i]), ind, season, trait, "outlier", show(bv[i]),
+            out.append(FlagNote(int(rows[i]), ind, season, trait, Kind.OUTLIER, show(bv[i]),
                                 f"{trait} {show(bv[i])} is a robust outlier in its cell (z = {bz[i]:.1f}, "
                                 f"limit {limit:g}); re-measure if the animal is at hand, else keep or exclude it"))
     return out
@@ -135,7 +136,7 @@ def unknown_parents(protocol: Protocol, valid: pd.DataFrame, known_ids: set[str]
         for i in np.flatnonzero(mask.to_numpy()):
             parent = str(vals.iloc[i])
             ind, season = str(valid[protocol.id_col].iloc[i]), str(valid[protocol.season_col].iloc[i])
-            out.append(FlagNote(int(valid["_row"].iloc[i]), ind, season, col, "unknown_parent", parent,
+            out.append(FlagNote(int(valid["_row"].iloc[i]), ind, season, col, Kind.UNKNOWN_PARENT, parent,
                                 f"{col} {parent!r} of {ind} is not on record in any season; check the ID "
                                 "(heritability uses only parents on record)"))
     return out

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 import pandas as pd
 
 from fieldslope.common.errors import SheetError
+from fieldslope.common.names import Kind
 from fieldslope.schemas.records import CheckReport, FlagNote, RowError, Sheet
 from fieldslope.schemas.store_supersede import supersede
 from fieldslope.schemas.store_types import RecordError, Resolution
@@ -48,7 +49,7 @@ class QuarantineFix:
                                "VALUES (?,?,?,?,?,?)",
                                (batch_id, r, ind, season, payload,
                                 json.dumps([e.__dict__ for e in by_row[r]]))).lastrowid
-            notes = [FlagNote(r, ind, season, e.column, "quarantined", e.value,
+            notes = [FlagNote(r, ind, season, e.column, Kind.QUARANTINED, e.value,
                               f"row {r} was quarantined: {e.sentence()}; set the right value "
                               "(fieldslope resolve FLAG --set VALUE) or leave the row out (--exclude)")
                      for e in by_row[r]]

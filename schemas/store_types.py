@@ -6,6 +6,7 @@ from collections import Counter
 from dataclasses import dataclass, field
 
 from fieldslope.common.errors import FieldslopeError, RecordError
+from fieldslope.common.names import Outcome
 from fieldslope.schemas.records import FlagNote, RowError
 
 
@@ -27,7 +28,7 @@ class ImportResult:
 
     @property
     def ok(self) -> bool:
-        return self.outcome != "refused"
+        return self.outcome != Outcome.REFUSED
 
     def flag_counts(self) -> dict[str, int]:
         return dict(Counter(f.kind for f in self.flags))

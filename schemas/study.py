@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from fieldslope.common.errors import FieldslopeError, StudyError
+from fieldslope.common.names import Outcome
 from fieldslope.schemas.protocol import Protocol, load_protocol
 from fieldslope.schemas.store import Progress, Store
 from fieldslope.schemas.store_types import ImportResult
@@ -125,7 +126,7 @@ class Study:
         except FileNotFoundError:
             return []
         known = {b.sha256: b for b in reversed(self.store.batches())}
-        taken = {b.sha256: b for b in self.store.batches() if b.outcome != "refused"}
+        taken = {b.sha256: b for b in self.store.batches() if b.outcome != Outcome.REFUSED}
         known.update(taken)
         out, seen = [], {}
         for path in entries:

@@ -28,6 +28,7 @@ import pandas as pd
 import pandera.pandas as pa
 
 from fieldslope.common.errors import SheetError
+from fieldslope.common.names import Kind
 from fieldslope.schemas.id_checks import mangled_id_reasons
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import CheckReport, FlagNote, RowError, Sheet
@@ -328,7 +329,7 @@ def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[st
         unit = f" {spec.unit}" if spec.unit else ""
         span = f"{'' if spec.min is None else f'{spec.min:g}'}–{'' if spec.max is None else f'{spec.max:g}'}{unit}"
         for i in np.flatnonzero(outside):
-            note(i, col, "out_of_range", str(shown[i]),
+            note(i, col, Kind.OUT_OF_RANGE, str(shown[i]),
                  f"{col} = {shown[i]}{unit} is outside the plausible range {span}; check the sheet, then keep, "
                  "correct or exclude it.")
 
@@ -337,7 +338,7 @@ def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[st
         if blank.all():
             continue   # a column left wholly blank was not measured in this batch: nothing to flag
         for i in np.flatnonzero(blank):
-            note(i, col, "missing_fitness", "",
+            note(i, col, Kind.MISSING_FITNESS, "",
                  f"{col} is blank for {ids[i]} in {seasons[i]}; fill it in (or a later census will).")
 
     keys = pd.Series(list(zip(ids, seasons)))
@@ -348,12 +349,12 @@ def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[st
             groups.setdefault(keys.iat[i], []).append(int(rows[i]))
         for i in np.flatnonzero(dup):
             where = ", ".join(map(str, groups[keys.iat[i]]))
-            note(i, "", "duplicate_id", str(ids[i]),
+            note(i, "", Kind.DUPLICATE_ID, str(ids[i]),
                  f"ID {ids[i]} appears more than once for season {seasons[i]} (rows {where}); "
                  "keep the right row and exclude or correct the others.")
 
     for i, reason in mangled_id_reasons(ids):
-        note(i, roles.id, "mangled_id", str(ids[i]),
+        note(i, roles.id, Kind.MANGLED_ID, str(ids[i]),
              f"ID {ids[i]!r} {reason}; check it against the paper sheet and correct it.")
     flags.sort(key=lambda f: f.row)
     return flags

@@ -182,6 +182,25 @@ async def test_intervals_arrive_in_a_second_pass(filled):
         assert str(shown[4]) == f"{fmt(row['ci_low'])}, {fmt(row['ci_high'])}"
 
 
+async def test_status_line_counts_only_batches_that_stored_rows(filled, write_batch, hopper_rows):
+    """A refused batch stores nothing but the record of its refusal, so the status line leaves it
+    out of the batch count; a partly stored batch (valid rows taken, the rest kept aside) counts."""
+    rows = hopper_rows("2026", "Reed Bend", n=30, seed=7)
+    bad = [dict(r) for r in rows]
+    bad[0]["wing"] = "long"                          # not a number: a hard error in one row
+    refused = filled.store.import_file(write_batch(bad, "refused.csv"), operator="crew")
+    assert refused.outcome == "refused"
+    bad[1]["tag"] = "H9999"                          # another file: same error, valid rows taken in
+    partial = filled.store.import_file(write_batch(bad, "partial.csv"), operator="crew", accept_valid=True)
+    assert partial.outcome == "partial"
+    assert [b.outcome for b in filled.store.batches()].count("refused") == 1
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app), what="first figures")
+        assert app.snapshot.n_batches == 5                # four stored, one partly stored; not the refused one
+        assert "5 batches" in screen_text(app) and "6 batches" not in screen_text(app)
+
+
 @pytest.mark.parametrize("size", SIZES)
 async def test_live_update_after_another_connection_imports(filled, write_batch, hopper_rows, size):
     app = make_app(filled.root)

@@ -9,6 +9,7 @@ from dataclasses import replace
 from pathlib import Path
 
 from fieldslope.common.errors import FieldslopeError, SheetError
+from fieldslope.common.names import ALL, Outcome
 from fieldslope.schemas.study import Study, resolve_study_dir
 from fieldslope.tui import cli_format as fmt
 
@@ -42,11 +43,11 @@ def _report(result) -> None:
         print(line, file=out)
     if result.earlier:
         fmt.say(result.earlier, file=out)
-    if result.outcome == "refused":
+    if result.outcome == Outcome.REFUSED:
         fmt.say(f"fieldslope: {result.message}", file=err)
         return
     fmt.say(result.message, file=out)
-    if result.outcome != "duplicate":
+    if result.outcome != Outcome.DUPLICATE:
         print(fmt.flag_summary(result.flags), file=out)
 
 
@@ -69,8 +70,8 @@ def check(args) -> int:
     with _open(args) as study:
         def one(name):
             result = study.store.check_file(name, accept_valid=args.accept_valid, recheck=True)
-            if result.outcome in ("stored", "partial"):
-                verb = "would store" if result.outcome == "stored" else "would store (quarantining the rest)"
+            if result.outcome in (Outcome.STORED, Outcome.PARTIAL):
+                verb = "would store" if result.outcome == Outcome.STORED else "would store (quarantining the rest)"
                 result = replace(result, message=f"{result.file_name}: {verb} {result.n_stored} of "
                                                  f"{result.n_rows} rows.")
             return result
@@ -124,7 +125,7 @@ def estimate(args) -> int:
     if frame.empty:
         raise FieldslopeError("no records yet; take in batch files with fieldslope import FILE first.")
     _check_choice("season", args.season, sorted(frame[protocol.season_col].dropna().astype(str).unique()))
-    if protocol.groups and args.site is not None and args.site != "all":
+    if protocol.groups and args.site is not None and args.site != ALL:
         _check_choice("site", args.site, sorted(frame[protocol.groups[0]].dropna().astype(str).unique()))
     _check_choice("fitness", args.fitness, list(protocol.fitness))
     progress = fmt.Progress("estimating")

@@ -31,6 +31,7 @@ from pathlib import Path
 from typing import Callable, TextIO
 
 from fieldslope.common.errors import FieldslopeError, DemoError
+from fieldslope.common.names import ALL, Q, Outcome
 
 
 def _demo_dir() -> Path:
@@ -148,9 +149,9 @@ class BatchOutcome:
         final = self.final
         if self.retake is not None:
             what = f"{final.n_stored} stored, {final.n_quarantined} quarantined"
-        elif final.outcome == "refused":
+        elif final.outcome == Outcome.REFUSED:
             what = "refused whole"
-        elif final.outcome == "duplicate":
+        elif final.outcome == Outcome.DUPLICATE:
             what = "already taken in"
         else:
             what = f"{final.n_stored} stored"
@@ -165,7 +166,7 @@ def take_in(store, path: Path, operator: str = OPERATOR) -> BatchOutcome:
     data = path.read_bytes()
     first = store.import_bytes(path.name, data, operator=operator)
     retake = None
-    if first.outcome == "refused" and first.errors:
+    if first.outcome == Outcome.REFUSED and first.errors:
         retake = store.import_bytes(path.name, data, operator=operator, accept_valid=True)
     return BatchOutcome(path.name, first, retake)
 
@@ -219,7 +220,7 @@ def _wrap(text: str, indent: str = "    ") -> str:
 
 def gradient_lines(table, fitness: str, traits: tuple[str, ...]) -> list[str]:
     """Linear gradients per season and site (pooled site = all), 80 columns: β ±se, * if the 95 % CI excludes 0."""
-    rows = table[(table["quantity"] == "gradient") & (table["fitness"] == fitness)]
+    rows = table[(table["quantity"] == Q.GRADIENT) & (table["fitness"] == fitness)]
     head = f"{'season':<7}{'site':<17}{'n':>5}" + "".join(f"{t[:14]:>16}" for t in traits)
     out = [head]
     for (season, site), block in rows.groupby(["season", "site"], sort=False):
@@ -240,7 +241,7 @@ def gradient_lines(table, fitness: str, traits: tuple[str, ...]) -> list[str]:
 
 
 def term_lines(table, quantity: str, fitness: str | None, label: str) -> list[str]:
-    rows = table[(table["quantity"] == quantity) & (table["site"] == "all")]
+    rows = table[(table["quantity"] == quantity) & (table["site"] == ALL)]
     if fitness is not None:
         rows = rows[rows["fitness"] == fitness]
     out = []
@@ -249,7 +250,7 @@ def term_lines(table, quantity: str, fitness: str | None, label: str) -> list[st
             spread = f"95 % CI {r.ci_low:+.3f} to {r.ci_high:+.3f}"
         else:
             spread = f"se {r.se:.3f}" if r.se == r.se else ""
-        season = "" if r.season == "all" else f" {r.season}"
+        season = "" if r.season == ALL else f" {r.season}"
         out.append(_wrap(f"  {label} {r.term}{season}: {r.estimate:+.3f}  {spread}  n={r.n}"))
     return out
 
@@ -293,17 +294,17 @@ def report(study_dir: Path, out: TextIO, *, bootstrap: int = HEADLESS_BOOTSTRAP,
                 ""), file=out)
     for line in gradient_lines(table, total, traits):
         print(line, file=out)
-    lines = term_lines(table, "correlational", total, "γ")
+    lines = term_lines(table, Q.CORRELATIONAL, total, "γ")
     if lines:
         print("Correlational gradients (pooled over sites):", file=out)
         for line in lines:
             print(line, file=out)
-    lines = term_lines(table, "heritability", None, "h²")
+    lines = term_lines(table, Q.HERITABILITY, None, "h²")
     if lines:
         print("Heritability (offspring on midparent):", file=out)
         for line in lines:
             print(line, file=out)
-    refused = [b for b in batches if b.outcome == "refused"]
+    refused = [b for b in batches if b.outcome == Outcome.REFUSED]
     print("", file=out)
     print(f"{len(batches)} batch records, {len(refused)} refusals on record.", file=out)
     for line in flag_summary(flags):

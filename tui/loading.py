@@ -10,6 +10,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Callable
 
+from fieldslope.common.names import Q, Outcome
 from fieldslope.tui.snapshot import Snapshot, records
 
 
@@ -130,7 +131,7 @@ class Poller:
 
 
 # what the sensitivity comparison shows beside the figures without the open outliers: S, β and γ
-SENSITIVITY_QUANTITIES = ("differential", "gradient", "quadratic", "correlational")
+SENSITIVITY_QUANTITIES = (Q.DIFFERENTIAL, Q.GRADIENT, Q.QUADRATIC, Q.CORRELATIONAL)
 
 
 def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity: bool,
@@ -160,7 +161,7 @@ def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity
             (s, site, f, q, term): float(v) for s, site, f, q, term, v in zip(
                 t["season"], t["site"], t["fitness"], t["quantity"], t["term"], t["estimate"])}
         extras["gradient_with_outliers"] = {
-            (s, site, f, term): v for (s, site, f, q, term), v in extras["with_outliers"].items() if q == "gradient"}
+            (s, site, f, term): v for (s, site, f, q, term), v in extras["with_outliers"].items() if q == Q.GRADIENT}
     return Snapshot(
         protocol=study.protocol, table=est.table, notes=tuple(est.notes), frame=frame, flags=flags,
         batches=batches, heritability=h2, data_version=version, refreshed_at=refreshed_at,
@@ -194,7 +195,7 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
     previous = last_figures = None
     try:
         store = study.store
-        ids = [b["id"] for b in records(store.batches()) if b.get("outcome", "stored") != "refused"]
+        ids = [b["id"] for b in records(store.batches()) if b.get("outcome") != Outcome.REFUSED]
         for k in ids:
             if should_stop():
                 break
@@ -206,7 +207,7 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
                 continue                       # this batch did not touch the season
             previous = sub
             t = estimates_for_frame(sub, protocol, bootstrap=0).table
-            t = t[(t["season"] == season) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")]
+            t = t[(t["season"] == season) & (t["fitness"] == fitness) & (t["quantity"] == Q.GRADIENT)]
             figures = t[["site", "term", "estimate", "se", "n"]].to_numpy().tolist()
             if figures == last_figures:
                 continue                       # the batch changed nothing these gradients use

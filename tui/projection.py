@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from textual.content import Content
 
+from fieldslope.common.names import Q
 from fieldslope.tui.widgets.literal import assemble
-
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.pictures import fmt
 
@@ -22,8 +22,8 @@ def projection_text(snap: Snapshot, season: str, site: str, fitness: str, trait:
     """The mean carried over k generations of response R, and the generations needed for a target change."""
     from fieldslope.analysis.response import generations_needed, project_mean
 
-    r = snap.value(season, site, fitness, "response", trait)
-    mean = snap.value(season, site, fitness, "mean", trait)
+    r = snap.value(season, site, fitness, Q.RESPONSE, trait)
+    mean = snap.value(season, site, fitness, Q.MEAN, trait)
     if r is None or r["estimate"] is None:
         return assemble((f"No response for {trait} here: it needs h² (press h) and S.", "$text-muted"))
     unit = snap.protocol.traits[trait].unit if trait in snap.protocol.traits else ""

@@ -12,12 +12,12 @@ from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import TYPE_CHECKING, Any
 
+from fieldslope.common.names import ALL, Outcome, Status
+
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from fieldslope.schemas.protocol import Protocol
-
-ALL = "all"
 
 
 @dataclass(frozen=True)
@@ -48,11 +48,12 @@ class Snapshot:
     # -- what there is ---------------------------------------------------
     @property
     def n_batches(self) -> int:
-        return sum(1 for b in self.batches if b.get("status", "stored") != "refused")
+        """Batches whose rows went into the record (stored or partly stored; not refused ones)."""
+        return sum(1 for b in self.batches if b.get("outcome") in (Outcome.STORED, Outcome.PARTIAL))
 
     @property
     def flags_open(self) -> int:
-        return sum(1 for f in self.flags if f.get("status", "open") == "open")
+        return sum(1 for f in self.flags if f.get("status", Status.OPEN) == Status.OPEN)
 
     @property
     def fitness_names(self) -> tuple[str, ...]:
@@ -184,12 +185,3 @@ def records(items: Any) -> tuple[dict, ...]:
         return tuple(items.to_dict("records"))
     return tuple(_as_dict(x) for x in items)
 
-
-KIND_LABELS = {"differs_from_record": "differs", "out_of_range": "out of range", "outlier": "outlier",
-               "missing_fitness": "no fitness", "duplicate_id": "duplicate ID", "mangled_id": "mangled ID",
-               "quarantined": "quarantined", "unknown_parent": "parent?"}
-
-
-def kind_label(kind) -> str:
-    """A flag kind in plain words (the store's names have underscores)."""
-    return KIND_LABELS.get(str(kind), str(kind).replace("_", " "))

@@ -12,11 +12,12 @@ from textual.content import Content
 from textual.message import Message
 from textual.widgets import DataTable, Static
 
+from fieldslope.common.names import flag_label
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import FormScreen
 from fieldslope.tui.screens.intake import operator_name
-from fieldslope.tui.snapshot import Snapshot, kind_label
+from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
 from fieldslope.tui.widgets.pictures import histogram_strip
 
@@ -85,7 +86,7 @@ class FlagsScreen(StudyScreen):
         for f in open_flags:
             counts[f.get("kind", "")] = counts.get(f.get("kind", ""), 0) + 1
         head = [("History (resolved flags)  " if self.history else "Open flags  ", "bold")]
-        head += [(f"{kind_label(k)} {v}  ", "$warning") for k, v in sorted(counts.items())] or [("none", "$success")]
+        head += [(f"{flag_label(k)} {v}  ", "$warning") for k, v in sorted(counts.items())] or [("none", "$success")]
         self.query_one("#flags-counts", Static).update(assemble(*head))
         table = self.query_one("#flags-table", DataTable)
         keep = table.cursor_row
@@ -93,7 +94,7 @@ class FlagsScreen(StudyScreen):
         last = None
         for f in flags:
             group = (f.get("kind"), f["_site"], f.get("batch_id"))
-            kind = kind_label(group[0])
+            kind = flag_label(group[0])
             shown = ("", "", "") if group == last else (kind, str(group[1])[:14], str(group[2]))
             last = group
             table.add_row(*shown, str(f.get("individual", "")), str(f.get("field", ""))[:10],
@@ -113,7 +114,7 @@ class FlagsScreen(StudyScreen):
 
     def detail(self, snap: Snapshot, flag: dict) -> None:
         p = snap.protocol
-        lines: list[Content] = [assemble((f"{kind_label(flag.get('kind'))}: ", "bold $warning"), str(flag.get("message", "")))]
+        lines: list[Content] = [assemble((f"{flag_label(flag.get('kind'))}: ", "bold $warning"), str(flag.get("message", "")))]
         lines.append(literal(f"flag {flag.get('id')}, batch {flag.get('batch_id')} {flag.get('file_name', '')}, "
                              f"sheet row {flag.get('row')}"))
         if not is_open(flag):
@@ -166,7 +167,7 @@ class FlagsScreen(StudyScreen):
         flag = self._picked()
         if flag is None:
             return
-        what = f"{flag.get('individual')} {flag.get('field') or 'record'} = {flag.get('value')!s} ({kind_label(flag.get('kind'))})"
+        what = f"{flag.get('individual')} {flag.get('field') or 'record'} = {flag.get('value')!s} ({flag_label(flag.get('kind'))})"
         fields = [("reason", "Reason", "")]
         if action == "set":
             fields.insert(0, ("value", "New value", str(flag.get("value") or "")))

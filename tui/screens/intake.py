@@ -14,11 +14,12 @@ from textual.content import Content
 from textual.message import Message
 from textual.widgets import DataTable, Input, Static, TabbedContent, TabPane
 
+from fieldslope.common.names import Outcome, flag_label
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.safe_text import escape_controls
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import ConfirmScreen
-from fieldslope.tui.snapshot import Snapshot, kind_label
+from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
 
 
@@ -165,7 +166,7 @@ class IntakeScreen(StudyScreen):
         for e in r.errors:
             report.add_row(str(e.row), e.column, e.value or "", f"ERROR {e.reason}")
         for f in r.flags:
-            report.add_row(str(f.row), f.field, f.value or "", f"flag {kind_label(f.kind)}: {f.message}")
+            report.add_row(str(f.row), f.field, f.value or "", f"flag {flag_label(f.kind)}: {f.message}")
         sheet = self.query_one("#intake-sheet", DataTable)
         sheet.clear(columns=True)
         if msg.preview is not None:
@@ -189,11 +190,11 @@ class IntakeScreen(StudyScreen):
         if r is None or self.current is None:
             self.query_one("#intake-summary", Static).update("Check a file first (c), then take it in.")
             return
-        if r.outcome == "refused" and not (accept_valid and r.errors and r.n_rows > len(_bad_rows(r))):
+        if r.outcome == Outcome.REFUSED and not (accept_valid and r.errors and r.n_rows > len(_bad_rows(r))):
             self.app.notify(f"{self.current.name} cannot be taken in: {r.message or 'see the problems listed'}",
                             severity="error")
             return
-        if r.outcome == "duplicate":
+        if r.outcome == Outcome.DUPLICATE:
             self.app.notify(f"{self.current.name} was taken in before; nothing to do.", severity="warning")
             return
         bad = len(_bad_rows(r))
@@ -207,7 +208,7 @@ class IntakeScreen(StudyScreen):
         if accept_valid and bad:
             lines.append(f"Rows kept in quarantine (visible and fixable on Flags): {bad}")
         if r.flags:
-            counts = ", ".join(f"{kind_label(k)} {v}" for k, v in sorted(r.flag_counts().items()))
+            counts = ", ".join(f"{flag_label(k)} {v}" for k, v in sorted(r.flag_counts().items()))
             lines.append(f"Flags opened: {len(r.flags)} ({counts})")
         lines.append("Stored values are never overwritten; corrections are added later with a reason.")
         title = "Take in the valid rows?" if accept_valid else "Take in this batch?"
@@ -282,9 +283,9 @@ def _size(n: int) -> str:
 
 
 def _summary_line(name: str, r) -> Content:
-    if r.outcome == "duplicate":
+    if r.outcome == Outcome.DUPLICATE:
         return assemble((f"{name}: ", "bold"), r.message or "already taken in; nothing to do.")
-    if r.outcome == "refused" and not r.errors:
+    if r.outcome == Outcome.REFUSED and not r.errors:
         return assemble((f"{name}: ", "bold"), (r.message or "refused", "$error"))
     bad = len(_bad_rows(r))
     parts = [(f"{name}: ", "bold"), f"{r.n_rows} rows, "]
@@ -295,9 +296,9 @@ def _summary_line(name: str, r) -> Content:
 
 
 def _outcome_line(r) -> str:
-    if r.outcome == "duplicate":
+    if r.outcome == Outcome.DUPLICATE:
         return f"{r.file_name}: already taken in; nothing stored."
-    if r.outcome == "refused":
+    if r.outcome == Outcome.REFUSED:
         return f"{r.file_name} refused: {r.message}"
     extra = f", {r.n_quarantined} quarantined" if r.n_quarantined else ""
     return f"{r.file_name}: {r.n_stored} rows stored{extra}, {len(r.flags)} flags (batch {r.batch_id})."

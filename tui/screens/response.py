@@ -12,6 +12,7 @@ from textual.containers import Horizontal, VerticalScroll
 from textual.message import Message
 from textual.widgets import DataTable, Input, Label, Static
 
+from fieldslope.common.names import Q
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.choices import ChoiceKeys, Choices
@@ -69,11 +70,11 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         The estimators take parent–offspring estimates first and entered values
         otherwise; an estimate equal to the latest entry is labelled as entered.
         """
-        rows = snap.rows(quantity="heritability", term=trait)
+        rows = snap.rows(quantity=Q.HERITABILITY, term=trait)
         entry = _entered(snap, trait)
         if not rows.empty:
             r = rows.iloc[0]
-            est = snap.value(r["season"], r["site"], r["fitness"], "heritability", trait)
+            est = snap.value(r["season"], r["site"], r["fitness"], Q.HERITABILITY, trait)
             if entry and est is not None and est["estimate"] is not None \
                     and abs(float(entry["value"]) - est["estimate"]) < 1e-12:
                 return est, f"entered: {entry.get('source', '')}"
@@ -92,15 +93,15 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         key = dict(season=c.season, site=c.site, fitness=c.fitness)
         for trait in snap.protocol.trait_names:
             h2, source = self.h2_of(snap, trait)
-            s = snap.value(**key, quantity="differential", term=trait)
-            r = snap.value(**key, quantity="response", term=trait)
-            rp = snap.value(**key, quantity="response_pct", term=trait)
-            rm = snap.value(**key, quantity="response_multi", term=trait)
+            s = snap.value(**key, quantity=Q.DIFFERENTIAL, term=trait)
+            r = snap.value(**key, quantity=Q.RESPONSE, term=trait)
+            rp = snap.value(**key, quantity=Q.RESPONSE_PCT, term=trait)
+            rm = snap.value(**key, quantity=Q.RESPONSE_MULTI, term=trait)
             table.add_row(trait, fmt(h2["estimate"]) if h2 else "–", source[:22],
                           _e(s), _e(r), _e(rp), _e(rm), key=trait)
         if snap.protocol.trait_names:
             table.move_cursor(row=max(0, min(keep, len(snap.protocol.trait_names) - 1)))
-        order = ("response_multi", "response", "response_pct", "heritability")   # the G assumption first
+        order = (Q.RESPONSE_MULTI, Q.RESPONSE, Q.RESPONSE_PCT, Q.HERITABILITY)   # the G assumption first
         picked = [n for n in snap.notes if getattr(n, "quantity", "") in order
                   and getattr(n, "season", c.season) in (c.season, ALL)]
         picked.sort(key=lambda n: order.index(n.quantity))

@@ -15,6 +15,7 @@ from textual.message import Message
 from textual.widgets import Input, Label, Static, TabbedContent, TabPane
 from textual.worker import get_current_worker
 
+from fieldslope.common.names import Q
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.snapshot import ALL, Snapshot
@@ -87,12 +88,12 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         c = self.choices
         width = max(50, self.size.width - 4)
         rows, marks = [], []
-        sites = sorted({s for s in snap.rows(fitness=c.fitness, quantity="gradient", term=trait)["site"]})
+        sites = sorted({s for s in snap.rows(fitness=c.fitness, quantity=Q.GRADIENT, term=trait)["site"]})
         per_site = [s for s in sites if s != ALL] or sites
         se_based = False
         for season in snap.seasons():
             for site in per_site:
-                v = snap.value(season, site, c.fitness, "gradient", trait)
+                v = snap.value(season, site, c.fitness, Q.GRADIENT, trait)
                 if v is None:
                     continue
                 lo, hi = v["ci_low"], v["ci_high"]
@@ -103,16 +104,16 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         summary: list[Content] = []
         for site in per_site + ([ALL] if ALL in sites and per_site != sites else []):
             name = "pooled" if site == ALL else site
-            mean = snap.value(ALL, site, c.fitness, "gradient_mean", trait)
+            mean = snap.value(ALL, site, c.fitness, Q.GRADIENT_MEAN, trait)
             if mean is not None:
                 lo, hi = mean["ci_low"], mean["ci_high"]
                 if lo is None and mean["se"] is not None:  # fixed-effect interval, mean ± 1.96 se
                     lo, hi = mean["estimate"] - 1.96 * mean["se"], mean["estimate"] + 1.96 * mean["se"]
                 rows.append((f"mean {name}", mean["estimate"], lo, hi))
-                marks.append("")          # the row's label says "mean"; "w" would read as fitness
-            tau2 = snap.value(ALL, site, c.fitness, "gradient_tau2", trait)
-            q = snap.value(ALL, site, c.fitness, "gradient_q", trait)
-            sc = snap.value(ALL, site, c.fitness, "sign_changes", trait)
+                marks.append("")          # the row's label says Q.MEAN; "w" would read as fitness
+            tau2 = snap.value(ALL, site, c.fitness, Q.GRADIENT_TAU2, trait)
+            q = snap.value(ALL, site, c.fitness, Q.GRADIENT_Q, trait)
+            sc = snap.value(ALL, site, c.fitness, Q.SIGN_CHANGES, trait)
             if mean or tau2 or sc:
                 summary.append(assemble(
                     (f"{name}: ", "bold"), "weighted mean β ", (_e(mean), "bold"), "  τ² ", (_e(tau2), "bold"),

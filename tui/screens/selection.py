@@ -8,6 +8,7 @@ from textual.binding import Binding
 from textual.containers import VerticalScroll
 from textual.widgets import DataTable, Static, TabbedContent, TabPane
 
+from fieldslope.common.names import Q
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.snapshot import Snapshot
@@ -44,10 +45,10 @@ def axes_text(snap: Snapshot, key: dict) -> str:
     p = len(traits)
     g = np.full((p, p), np.nan)
     for j, a in enumerate(traits):
-        v = snap.value(**key, quantity="quadratic", term=f"{a}^2")
+        v = snap.value(**key, quantity=Q.QUADRATIC, term=f"{a}^2")
         g[j, j] = np.nan if v is None or v["estimate"] is None else v["estimate"]
         for k in range(j + 1, p):
-            v = snap.value(**key, quantity="correlational", term=f"{a}:{traits[k]}")
+            v = snap.value(**key, quantity=Q.CORRELATIONAL, term=f"{a}:{traits[k]}")
             g[j, k] = g[k, j] = np.nan if v is None or v["estimate"] is None else v["estimate"]
     if p < 2 or not np.isfinite(g).all():
         return ""
@@ -147,8 +148,8 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
 
     def _summary(self, snap: Snapshot) -> None:
         c = self.choices
-        opp = snap.value(c.season, c.site, c.fitness, "opportunity", "")
-        grads = [snap.value(c.season, c.site, c.fitness, "gradient", t) for t in snap.protocol.trait_names]
+        opp = snap.value(c.season, c.site, c.fitness, Q.OPPORTUNITY, "")
+        grads = [snap.value(c.season, c.site, c.fitness, Q.GRADIENT, t) for t in snap.protocol.trait_names]
         ns = [g["n"] for g in grads if g and g["n"] is not None]
         n = opp["n"] if opp and opp["n"] is not None else (max(ns) if ns else None)
         missing = snap.missing_fitness(c.season, c.site, c.fitness)
@@ -179,25 +180,25 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
 
         lin.clear()
         for trait in snap.protocol.trait_names:
-            s = snap.value(**key, quantity="differential", term=trait)
-            s_std = snap.value(**key, quantity="differential_std", term=trait)
-            b = snap.value(**key, quantity="gradient", term=trait)
+            s = snap.value(**key, quantity=Q.DIFFERENTIAL, term=trait)
+            s_std = snap.value(**key, quantity=Q.DIFFERENTIAL_STD, term=trait)
+            b = snap.value(**key, quantity=Q.GRADIENT, term=trait)
             n = b["n"] if b and b["n"] is not None else (s["n"] if s and s["n"] is not None else None)
             lin.add_row(trait, est_text(s), est_text(s_std), est_text(b), ci_text(b, wait), p_text(b, wait),
-                        "–" if n is None else str(int(n)), *kept_in("differential", trait),
-                        *kept_in("gradient", trait), key=trait)
-        for term in snap.terms(**key, quantity="gradient_logistic"):
-            v = snap.value(**key, quantity="gradient_logistic", term=term)
+                        "–" if n is None else str(int(n)), *kept_in(Q.DIFFERENTIAL, trait),
+                        *kept_in(Q.GRADIENT, trait), key=trait)
+        for term in snap.terms(**key, quantity=Q.GRADIENT_LOGISTIC):
+            v = snap.value(**key, quantity=Q.GRADIENT_LOGISTIC, term=term)
             lin.add_row(f"{term} (logit β)", "", "", est_text(v), ci_text(v, wait), p_text(v, wait),
                         "–" if v["n"] is None else str(int(v["n"])), *([""] * (2 if kept is not None else 0)),
                         key=f"logit:{term}")
         gam.clear()
-        for quantity, label in (("quadratic", "γ "), ("correlational", "γ "), ("canonical", "λ ")):
+        for quantity, label in ((Q.QUADRATIC, "γ "), (Q.CORRELATIONAL, "γ "), (Q.CANONICAL, "λ ")):
             for term in snap.terms(**key, quantity=quantity):
                 v = snap.value(**key, quantity=quantity, term=term)
-                extra = [] if kept is None else [""] if quantity == "canonical" else kept_in(quantity, term)
-                gam.add_row(label + str(term), est_text(v), ci_text(v, wait) if quantity != "canonical" else "",
-                            p_text(v, wait) if quantity != "canonical" else "", *extra, key=f"{quantity}:{term}")
+                extra = [] if kept is None else [""] if quantity == Q.CANONICAL else kept_in(quantity, term)
+                gam.add_row(label + str(term), est_text(v), ci_text(v, wait) if quantity != Q.CANONICAL else "",
+                            p_text(v, wait) if quantity != Q.CANONICAL else "", *extra, key=f"{quantity}:{term}")
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
         parts: list[tuple[str, str]] = []
         kept_b = snap.extras.get("gradient_with_outliers")
@@ -238,7 +239,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         width = max(40, self.size.width - 4)
         height = max(8, self.size.height - 9)
         x, w, bins = scatter_data(snap, c.season, c.site, c.fitness, trait)
-        b = snap.value(c.season, c.site, c.fitness, "gradient", trait)
+        b = snap.value(c.season, c.site, c.fitness, Q.GRADIENT, trait)
         self.query_one("#sel-scatter", Static).update(
             scatter_picture(x, w, b["estimate"] if b else None, bins, width=width, height=height, xlabel=trait))
 
@@ -254,14 +255,14 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         a, bname = traits[c.trait], traits[(c.trait + 1) % len(traits)]
         first, second = (a, bname) if traits.index(a) < traits.index(bname) else (bname, a)
         vals = {}
-        for q, t in (("gradient", a), ("gradient", bname), ("quadratic", f"{a}^2"), ("quadratic", f"{bname}^2"),
-                     ("correlational", f"{first}:{second}")):
+        for q, t in ((Q.GRADIENT, a), (Q.GRADIENT, bname), (Q.QUADRATIC, f"{a}^2"), (Q.QUADRATIC, f"{bname}^2"),
+                     (Q.CORRELATIONAL, f"{first}:{second}")):
             v = snap.value(c.season, c.site, c.fitness, q, t)
             vals[(q, t)] = None if v is None else v["estimate"]
         if any(v is None for v in vals.values()):
             surf.update(literal(f"No quadratic model for {a} and {bname} here (see the notes on the Table tab)."))
             return
-        beta = (vals[("gradient", a)], vals[("gradient", bname)])
-        g12 = vals[("correlational", f"{first}:{second}")]
-        gamma = ((vals[("quadratic", f"{a}^2")], g12), (g12, vals[("quadratic", f"{bname}^2")]))
+        beta = (vals[(Q.GRADIENT, a)], vals[(Q.GRADIENT, bname)])
+        g12 = vals[(Q.CORRELATIONAL, f"{first}:{second}")]
+        gamma = ((vals[(Q.QUADRATIC, f"{a}^2")], g12), (g12, vals[(Q.QUADRATIC, f"{bname}^2")]))
         surf.update(surface_picture(beta, gamma, (a, bname), width=width, height=height))

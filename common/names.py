@@ -1,0 +1,98 @@
+"""One name for each quantity of the estimates table, each kind of flag and each batch outcome.
+
+The strings are part of the binding contracts (``estimation.md``: the ``quantity``
+column; ``intake.md``: flag kinds) and are written into the store and into exported
+tables, so their values never change; new names may be added. Code refers to them
+through these classes (``Q.GRADIENT``, ``Kind.OUTLIER``) instead of repeating the text.
+"""
+
+from __future__ import annotations
+
+from typing import Final
+
+#: The ``season`` or ``site`` of a pooled estimate (all seasons, all sites).
+ALL: Final = "all"
+
+
+class Q:
+    """Quantity names: the ``quantity`` column of the estimates table (estimation.md)."""
+
+    MEAN: Final = "mean"
+    SD: Final = "sd"
+    DIFFERENTIAL: Final = "differential"
+    DIFFERENTIAL_STD: Final = "differential_std"
+    GRADIENT: Final = "gradient"
+    GRADIENT_RAW: Final = "gradient_raw"
+    QUADRATIC: Final = "quadratic"
+    CORRELATIONAL: Final = "correlational"
+    CANONICAL: Final = "canonical"
+    GRADIENT_LOGISTIC: Final = "gradient_logistic"
+    OPPORTUNITY: Final = "opportunity"
+    HERITABILITY: Final = "heritability"
+    RESPONSE: Final = "response"
+    RESPONSE_PCT: Final = "response_pct"
+    RESPONSE_MULTI: Final = "response_multi"
+    # across seasons (season ``all``)
+    GRADIENT_MEAN: Final = "gradient_mean"
+    GRADIENT_TAU2: Final = "gradient_tau2"
+    GRADIENT_Q: Final = "gradient_q"
+    SIGN_CHANGES: Final = "sign_changes"
+
+
+#: Every quantity name, in the order of the estimation contract.
+QUANTITIES: Final = tuple(v for k, v in vars(Q).items() if k.isupper())
+
+
+class Kind:
+    """Flag kinds: raised by the sheet checks (schemas.validate) or by the store."""
+
+    # from the sheet alone
+    OUT_OF_RANGE: Final = "out_of_range"
+    MISSING_FITNESS: Final = "missing_fitness"
+    DUPLICATE_ID: Final = "duplicate_id"
+    MANGLED_ID: Final = "mangled_id"
+    # from the sheet against the record
+    OUTLIER: Final = "outlier"
+    DIFFERS_FROM_RECORD: Final = "differs_from_record"
+    UNKNOWN_PARENT: Final = "unknown_parent"
+    QUARANTINED: Final = "quarantined"
+
+
+#: Every flag kind.
+FLAG_KINDS: Final = tuple(v for k, v in vars(Kind).items() if k.isupper())
+
+#: Each flag kind in the plain words the dashboard shows (short: they sit in table cells).
+FLAG_LABELS: Final = {
+    Kind.DIFFERS_FROM_RECORD: "differs",
+    Kind.OUT_OF_RANGE: "out of range",
+    Kind.OUTLIER: "outlier",
+    Kind.MISSING_FITNESS: "no fitness",
+    Kind.DUPLICATE_ID: "duplicate ID",
+    Kind.MANGLED_ID: "mangled ID",
+    Kind.QUARANTINED: "quarantined",
+    Kind.UNKNOWN_PARENT: "parent?",
+}
+
+
+def flag_label(kind: object) -> str:
+    """A flag kind in plain words (a kind without a label: its name with spaces for underscores)."""
+    return FLAG_LABELS.get(str(kind), str(kind).replace("_", " "))
+
+
+class Outcome:
+    """What became of a batch (``ImportResult.outcome``, ``BatchInfo.outcome``)."""
+
+    STORED: Final = "stored"
+    PARTIAL: Final = "partial"          # valid rows stored, the rest kept aside or refused
+    REFUSED: Final = "refused"          # nothing stored but the record of the refusal
+    DUPLICATE: Final = "duplicate"      # the same bytes were taken in before
+
+
+class Status:
+    """Where a flag stands (``StoredFlag.status``)."""
+
+    OPEN: Final = "open"
+    KEEP: Final = "keep"
+    EXCLUDE: Final = "exclude"
+    SET: Final = "set"
+    SUPERSEDED: Final = "superseded"    # a later batch gave a new value for that field
