@@ -13,6 +13,7 @@ import numpy as np
 
 from fieldslope.analysis.cells import Prepared, Sample
 from fieldslope.analysis.fitness import relative
+from fieldslope.analysis.likelihood_ratio import slope_p_values
 from fieldslope.analysis.linear import Collinear, ols
 from fieldslope.analysis.logistic import Separation, fit_logistic, logistic_gradient
 from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
@@ -27,6 +28,7 @@ class Row:
     estimate: float
     se: float
     n: int
+    p: float = np.nan  # a p-value from the model itself (logistic gradients); NaN = from permutations
 
 
 @dataclass
@@ -58,7 +60,7 @@ def with_intercept(x: np.ndarray) -> np.ndarray:
     return np.column_stack([np.ones(len(x)), x])
 
 
-def point_block(preps: list[Prepared], traits: tuple[str, ...], where: str) -> BlockResult:
+def point_block(preps: list[Prepared], traits: tuple[str, ...], where: str, tests: bool = False) -> BlockResult:
     """Every estimate of the block; ``where`` names the block in notes."""
     res = BlockResult()
     fitness = preps[0].fitness
@@ -107,8 +109,9 @@ def point_block(preps: list[Prepared], traits: tuple[str, ...], where: str) -> B
         else:
             factor = np.mean(lg.p_hat * (1 - lg.p_hat)) / np.mean(W)
             grad = logistic_gradient(lg.coef, lg.p_hat, W)
+            p_lr = slope_p_values(with_intercept(x), W, lg.p_hat) if tests else np.full(p, np.nan)
             for j, name in enumerate(traits):
-                res.rows.append(Row(Q.GRADIENT_LOGISTIC, name, float(grad[j]), float(lg.se[1 + j] * factor), n))
+                res.rows.append(Row(Q.GRADIENT_LOGISTIC, name, float(grad[j]), float(lg.se[1 + j] * factor), n, float(p_lr[j])))
     q = len(quad_pairs(p))
     if n < 2 + p + q:
         res.notes.append((Q.QUADRATIC, f"Only {n} complete cases {where} for {fitness}; the quadratic model needs at least {2 + p + q}."))

@@ -245,20 +245,6 @@ def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int,
     return {k: np.concatenate(v) for k, v in pieces.items()}
 
 
-def permute_season(permuter, season: str, P: int, seed: int, tick) -> dict[tuple, float]:
-    """Permutation p-values of a season keyed like the table."""
-    from fieldslope.analysis.permute import permutation_p
-
-    observed = permuter.observed()
-    pieces: dict[tuple, list[np.ndarray]] = {}
-    for i, start in enumerate(range(0, P, CHUNK)):
-        size = min(CHUNK, P - start)
-        for key, val in permuter.chunk(chunk_rng(seed, season, 1, i), size).items():
-            pieces.setdefault(key, []).append(val)
-        tick(size)
-    return {k: permutation_p(observed[k], np.concatenate(v)) for k, v in pieces.items() if k in observed}
-
-
 def percentile_interval(replicates: np.ndarray) -> tuple[float, float, int]:
     """95 % percentile interval over the usable replicates, and how many were unusable."""
     good = replicates[np.isfinite(replicates)]

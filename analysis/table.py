@@ -14,7 +14,10 @@ call. Choices within the binding conventions, stated here once:
 - ``response`` se by the delta method (h^2 and S independent); no intervals;
 - percentile intervals leave out resamples that cannot be estimated and are
   withheld when more than 5 % cannot (a note says so);
-- permutation p-values are two-sided, (1 + #{|T*| >= |T|}) / (1 + P).
+- permutation p-values are two-sided, (1 + #{|T*| >= |T|}) / (1 + P): fitness shuffled for
+  differentials; Freedman-Lane partial tests (reduced-model residuals permuted) for gradients and
+  gamma terms; canonical eigenvalues against no nonlinear selection, twice the smaller tail, and
+  no percentile interval (``NO_INTERVAL``); logistic gradients a likelihood-ratio test (see ``permute``).
 
 Columns are exactly ``COLUMNS``; quantities follow the binding estimation
 conventions (relative fitness within cells, traits standardized with sd of
@@ -37,14 +40,17 @@ from fieldslope.analysis.derived import heritabilities, response_rows, temporal_
 from fieldslope.analysis.design import Design
 from fieldslope.common.errors import EstimationError
 from fieldslope.analysis.fitness import add_totals, total_kind
-from fieldslope.analysis.permute import SeasonPermuter
+from fieldslope.analysis.permute import SeasonPermuter, permute_season
 from fieldslope.analysis.point import point_block
-from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval, permute_season
+from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval
 from fieldslope.common.names import ALL, Q
 
 COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
 # the default random seed for bootstrap resamples and permutations (same seed, same numbers)
 DEFAULT_SEED = 20260601
+# quantities without a percentile interval: that of an ordered eigenvalue is biased away from zero
+# (the largest upward, the smallest downward); they are tested against no nonlinear selection instead
+NO_INTERVAL = {Q.CANONICAL}
 # BLAS threads while resampling (measured faster than several on a shared two-core machine)
 BLAS_THREADS = 1
 
@@ -118,7 +124,7 @@ def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, se
     failed: dict[tuple, dict] = {}  # (site, fitness) -> {"worst": resamples, "none": [rows without interval]}
     for r in season_rows:
         key = (r["site"], r["fitness"], r["quantity"], r["term"])
-        if key in boot:
+        if key in boot and r["quantity"] not in NO_INTERVAL:
             lo, hi, bad = percentile_interval(boot[key])
             r["ci_low"], r["ci_high"] = lo, hi
             if bad:
@@ -197,11 +203,11 @@ def estimate_table(
                                       f"Pooled gradients of season {season} for {f} leave out site(s) {', '.join(left_out)} "
                                       "(see their notes)."))
                 for site, block in units:
-                    res = point_block(block, design.traits, f"in season {season}, site {site}")
+                    res = point_block(block, design.traits, f"in season {season}, site {site}", tests=permutations > 0)
                     notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
                     season_rows.extend(
                         dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
-                             estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=np.nan, n=r.n)
+                             estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=r.p, n=r.n)
                         for r in res.rows
                     )
                     extra, assumed = response_rows(season, site, f, res, design.traits, used_h2, genetic_correlations)
@@ -216,10 +222,6 @@ def estimate_table(
             rows.extend(t_rows)
             notes.extend(Note(*n) for n in t_notes)
         rows.extend(h_rows)
-        if permutations > 0 and any(r["quantity"] == Q.GRADIENT_LOGISTIC for r in rows):
-            notes.append(Note(ALL, ALL, "", Q.GRADIENT_LOGISTIC,
-                              "p-values of logistic gradients test the score statistic, which for 0/1 fitness "
-                              "gives the linear gradient's permutation p-value."))
         if rg_assumed:
             notes.append(Note(ALL, ALL, "", Q.RESPONSE_MULTI,
                               "Genetic correlations not entered are taken equal to the phenotypic correlations of each cell."))

@@ -96,8 +96,11 @@ def test_vectorized_bootstrap_equals_statsmodels_loop(fitness):
             assert reps[(site, fitness, "opportunity", "")][b] == pytest.approx(ref["opportunity"], rel=1e-10)
 
 
-def test_permutation_statistics_equal_statsmodels_refits_of_shuffled_fitness():
-    """Permutation statistics from one matrix product equal statsmodels OLS refits of the shuffled data."""
+def test_permutation_statistics_equal_statsmodels_refits_of_permuted_residuals():
+    """Freedman & Lane (1983, J. Bus. Econ. Stat. 1:292-298): for each coefficient, the reduced model's
+    residuals permuted within cells and added back to its fitted values, then the full model refitted with
+    statsmodels OLS, give exactly the permutation statistic; for the canonical eigenvalues the reduced
+    model is the linear one. Differentials are shuffled-fitness differentials (plain permutation)."""
     from fieldslope.analysis.permute import SeasonPermuter
 
     frame = small_season(7)
@@ -106,25 +109,52 @@ def test_permutation_statistics_equal_statsmodels_refits_of_shuffled_fitness():
     preps = {"seeds": [prepare(c, "seeds", "count", TRAITS) for c in cells]}
     perm = SeasonPermuter(preps, TRAITS, pooled=True)
     rng = np.random.default_rng(3)
-    P = 8
-    orders = {c: np.array([rng.permutation(len(cells[c].z)) for _ in range(P)]) for c in range(2)}
-    stats_ = perm.statistics(lambda f, c, s: s.W[orders[c]])
-    sites = ("east", "west")
-    by_site = {s: frame[frame.site == s].reset_index(drop=True) for s in sites}
-    for b in range(P):
-        shuffled = {s: by_site[s].assign(seeds=by_site[s]["seeds"].to_numpy()[orders[k][b]]) for k, s in enumerate(sites)}
-        for site, block in (("east", [shuffled["east"]]), ("west", [shuffled["west"]]), ("all", list(shuffled.values()))):
-            ref = sm_estimates(block, "seeds")
-            for j, t in enumerate(TRAITS):
-                assert stats_[(site, "seeds", "gradient", t)][b] == pytest.approx(ref["gradient"][j], rel=1e-8, abs=1e-12)
-                assert stats_[(site, "seeds", "differential", t)][b] == pytest.approx(ref["differential"][j], rel=1e-8, abs=1e-12)
-            assert stats_[(site, "seeds", "quadratic", "wing^2")][b] == pytest.approx(ref["quadratic"][2], rel=1e-7, abs=1e-10)
-    # the unshuffled statistics are the point estimates
+    P = 5
+    orders = {key: np.array([rng.permutation(len(d.X)) for _ in range(P)]) for key, d in perm.designs.items()}
+    stats_ = perm.statistics(orders, None)
+    keys = list(perm.designs)  # one per cell (every individual is a complete case)
+    by_site = [frame[frame.site == s].reset_index(drop=True) for s in ("east", "west")]
+    terms = [("gradient", "mass"), ("gradient", "wing"), ("quadratic", "mass^2"), ("correlational", "mass:wing"),
+             ("quadratic", "wing^2")]
+    for site, cs in (("east", [0]), ("west", [1]), ("all", [0, 1])):
+        parts = []
+        for c in cs:
+            z = by_site[c][list(TRAITS)].to_numpy()
+            x = (z - z.mean(axis=0)) / z.std(axis=0, ddof=1)
+            W = by_site[c]["seeds"].to_numpy()
+            parts.append((np.column_stack([np.ones(len(x)), x, 0.5 * x[:, 0] ** 2, x[:, 0] * x[:, 1], 0.5 * x[:, 1] ** 2]),
+                          W / W.mean(), z))
+        X, w = np.vstack([q[0] for q in parts]), np.concatenate([q[1] for q in parts])
+        ends = np.cumsum([0] + [len(q[1]) for q in parts])
+
+        def permuted(e, b):  # the statistic's row order[i] meets residual i: residuals moved by the inverse
+            return np.concatenate([e[ends[i]:ends[i + 1]][np.argsort(orders[keys[c]][b])] for i, c in enumerate(cs)])
+
+        for t, (q, term) in enumerate(terms):
+            width = 3 if q == "gradient" else 6
+            keep = [k for k in range(width) if k != 1 + t]
+            reduced = sm.OLS(w, X[:, keep]).fit()
+            for b in range(P):
+                ref = sm.OLS(reduced.fittedvalues + permuted(reduced.resid, b), X[:, :width]).fit().params[1 + t]
+                assert stats_[(site, "seeds", q, term)][b] == pytest.approx(ref, rel=1e-8, abs=1e-12)
+        linear = sm.OLS(w, X[:, :3]).fit()
+        for b in range(P):
+            g = sm.OLS(linear.fittedvalues + permuted(linear.resid, b), X).fit().params[3:]
+            ev = np.linalg.eigvalsh(np.array([[g[0], g[1]], [g[1], g[2]]]))[::-1]
+            for i in range(2):
+                assert stats_[(site, "seeds", "canonical", f"m{i + 1}")][b] == pytest.approx(ev[i], rel=1e-8, abs=1e-12)
+            # differential: mean(w* z) - mean(z) with fitness shuffled within cells (the same rows' order)
+            z = np.vstack([q[2] for q in parts])
+            w_star = permuted(w, b)
+            S = (w_star[:, None] * z).mean(axis=0) - z.mean(axis=0)
+            for j, name in enumerate(TRAITS):
+                assert stats_[(site, "seeds", "differential", name)][b] == pytest.approx(S[j], rel=1e-8, abs=1e-12)
+    # the statistics of the identity are the point estimates
     from fieldslope.analysis.table import estimate_table
 
     table = estimate_table(frame, design, bootstrap=0, fitness=["seeds"]).table
     observed = perm.observed()
-    for _, r in table[table.quantity.isin(["gradient", "differential", "correlational"])].iterrows():
+    for _, r in table[table.quantity.isin(["gradient", "differential", "correlational", "canonical"])].iterrows():
         assert observed[(r.site, r.fitness, r.quantity, r.term)] == pytest.approx(r.estimate, rel=1e-9)
 
 
