@@ -96,6 +96,16 @@ def build_parser() -> argparse.ArgumentParser:
                    help="leave out values with open outlier flags too (sensitivity)")
     p.add_argument("--output", metavar="FILE", help="write to FILE instead of the screen")
 
+    p = command("summary", "one screen about the study: cells, flags, last batch, latest season's gradients")
+    p.add_argument("--format", choices=("text", "json"), default="text")
+    p.add_argument("--fitness", metavar="NAME", help="fitness measure of the gradients (default: the first total)")
+    p.add_argument("--bootstrap", metavar="N", type=_count, default=2000, help="resamples (default 2000)")
+    p.add_argument("--seed", metavar="N", type=int, default=None, help="random seed (default: fixed)")
+
+    p = command("changes", "what changed since a moment or a batch: batches, flags, corrections, estimates")
+    p.add_argument("--since", metavar="WHEN", help="a date, a time or a batch number (default: your last run)")
+    p.add_argument("--format", choices=("text", "json"), default="text")
+
     p = command("demo", "the demo season (an invented study)")
     p.add_argument("--headless", action="store_true", help="no dashboard: take in the batches, print estimates")
     return parser

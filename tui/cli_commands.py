@@ -19,7 +19,8 @@ def run(args) -> int:
     if command is None:
         return dashboard(args)
     return {"init": init, "check": check, "import": import_, "flags": flags, "resolve": resolve,
-            "history": history, "estimate": estimate, "demo": demo}[command](args)
+            "history": history, "estimate": estimate, "demo": demo, "summary": summary,
+            "changes": changes}[command](args)
 
 
 def _open(args, readonly: bool = False) -> Study:
@@ -191,6 +192,38 @@ def _write_atomic(path: Path, text: str) -> None:
         os.replace(tmp, path)
     except OSError as exc:
         raise FieldslopeError(f"{path}: cannot write the output ({exc.strerror}); check the folder.") from None
+
+
+def summary(args) -> int:
+    from fieldslope.tui import summary as view
+
+    with _open(args, readonly=True) as study:
+        progress = fmt.Progress("summary")
+        try:
+            info = view.gather(study, fitness=args.fitness, bootstrap=args.bootstrap, seed=args.seed,
+                               progress=progress)
+        finally:
+            progress.done()
+    sys.stdout.write(json.dumps(info, indent=1, allow_nan=False) + "\n" if args.format == "json"
+                     else view.text(info))
+    return 0
+
+
+def changes(args) -> int:
+    from datetime import datetime, timezone
+
+    from fieldslope.tui import changes as view
+
+    started = datetime.now(timezone.utc)
+    with _open(args, readonly=True) as study:
+        info = view.gather(study, args.since)
+        root = study.root
+    sys.stdout.write(json.dumps(info, indent=1, allow_nan=False) + "\n" if args.format == "json"
+                     else view.text(info))
+    trouble = view.remember_run(root, started, info["last_batch"])
+    if trouble:
+        print(f"fieldslope: {trouble}", file=sys.stderr)
+    return 0
 
 
 def demo(args) -> int:

@@ -1,0 +1,194 @@
+"""``fieldslope summary``: one screen of text about a study (or the same as JSON for scripts).
+
+What it holds: every season and site with its individuals, how many have each fitness measure
+and their open flags; the open flags by kind; the last batch; and for the latest season the pooled
+β of each trait on one fitness measure with its bootstrap interval and permutation p-value, marked
+where the interval excludes zero. The numbers are rows of the estimates table
+(``fieldslope estimate --season S --site all``): one path from records to numbers.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+
+from fieldslope.tui import cli_format as fmt
+
+WIDTH = fmt.WIDTH
+ALL = "all"
+# C0 controls, DEL, C1 controls, and the bidirectional marks, embeddings, overrides and isolates
+_VISIBLE = {c: (f"\\x{c:02x}" if c < 0x100 else f"\\u{c:04x}")
+            for c in (*range(0x20), *range(0x7F, 0xA0), 0x061C, 0x200E, 0x200F, *range(0x202A, 0x202F),
+                      *range(0x2066, 0x206A), 0x2028, 0x2029)}
+
+
+def shown(value: object) -> str:
+    """Text from data (IDs, sites, file names, operators, reasons) as the terminal may show it.
+
+    The one function every text from the record passes through on its way to the screen: C0 and C1
+    controls, DEL and bidirectional overrides are written visibly (``\\x1b``, ``\\u202e``).
+    """
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    return str(value).translate(_VISIBLE)
+
+
+def default_fitness(protocol) -> str:
+    """The fitness measure the summary reports: the first declared total, else the first component."""
+    totals = list(protocol.totals)
+    return totals[0] if totals else protocol.component_names[0]
+
+
+def _site_of(frame, protocol):
+    """A cell's site name as the estimators name it (group values joined with "/")."""
+    groups = list(protocol.groups)
+    if not groups:
+        return None
+    if len(groups) == 1:
+        return frame[groups[0]].astype(str)
+    return frame[groups].astype(str).agg("/".join, axis=1)
+
+
+def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: int | None = None,
+           progress=None) -> dict:
+    """Everything the summary shows, as plain data (the JSON output is exactly this)."""
+    from fieldslope.analysis.fitness import add_totals
+    from fieldslope.common.errors import FieldslopeError
+    from fieldslope.tui.bridge import design_from_protocol, estimates_for_frame
+
+    protocol, store = study.protocol, study.store
+    if fitness is not None and fitness not in protocol.fitness:
+        raise FieldslopeError(f"there is no fitness measure {fitness!r}; choose one of "
+                              f"{', '.join(protocol.fitness)}.")
+    fitness = fitness or default_fitness(protocol)
+    frame = store.effective_frame()
+    flags = store.flags()
+    batches = store.batches()
+    season_col = protocol.season_col
+    measures = [*protocol.component_names, *protocol.totals]
+    out: dict = {"study": str(study.root), "name": getattr(protocol, "name", "") or "",
+                 "traits": list(protocol.trait_names), "fitness_measures": measures, "cells": [],
+                 "open_flags": {}, "last_batch": None, "latest": None}
+    site_of_flag: dict = {}
+    if not frame.empty:
+        data = add_totals(frame, design_from_protocol(protocol))
+        data = data.assign(_site=_site_of(data, protocol) if protocol.groups else ALL)
+        site_of_flag = dict(zip(zip(data[protocol.id_col].astype(str), data[season_col].astype(str)),
+                                data["_site"]))
+    flag_cells = Counter((f.season, site_of_flag.get((f.individual, f.season), "")) for f in flags)
+    if not frame.empty:
+        for (season, site), cell in data.groupby([data[season_col].astype(str), "_site"], sort=True):
+            out["cells"].append({
+                "season": season, "site": site, "n": int(len(cell)),
+                "measured": {m: int(cell[m].notna().sum()) for m in measures if m in cell.columns},
+                "open_flags": int(flag_cells.get((season, site), 0))})
+    out["open_flags"] = dict(sorted(Counter(f.kind for f in flags).items()))
+    unplaced = sum(n for (season, site), n in flag_cells.items() if site == "")
+    if unplaced:
+        out["open_flags_without_record"] = int(unplaced)   # e.g. quarantined rows of unknown IDs
+    taken = [b for b in batches if b.outcome != "refused"]
+    if batches:
+        last = batches[-1]
+        out["last_batch"] = {"id": last.id, "file": last.file_name, "operator": last.operator,
+                             "received": last.received, "outcome": last.outcome, "rows": last.n_rows,
+                             "stored": last.n_stored}
+    out["batches"] = {"stored": len(taken), "refused": len(batches) - len(taken)}
+    if frame.empty:
+        return out
+    seasons = sorted(frame[season_col].dropna().astype(str).unique())
+    latest = seasons[-1]
+    one = frame[frame[season_col].astype(str) == latest].reset_index(drop=True)
+    # the latest season alone: its resamples depend only on the seed and the season's own rows,
+    # so these are the very numbers of the full estimates table (a test checks it)
+    est = estimates_for_frame(one, protocol, bootstrap=bootstrap, seed=seed, progress=progress)
+    t = est.table
+    t = t[(t["season"] == latest) & (t["site"] == ALL) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")]
+    if t.empty:    # one cell only: its own rows are the season's estimate
+        t = est.table
+        sites = sorted(set(t["site"]))
+        t = t[(t["season"] == latest) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")
+              & (t["site"] == (sites[0] if len(sites) == 1 else ALL))]
+    rows = []
+    for r in t.itertuples(index=False):
+        lo, hi = _num(r.ci_low), _num(r.ci_high)
+        rows.append({"trait": r.term, "estimate": _num(r.estimate), "se": _num(r.se), "ci_low": lo,
+                     "ci_high": hi, "p_value": _num(r.p_value), "n": None if r.n is None or r.n != r.n else int(r.n),
+                     "excludes_zero": bool(lo is not None and hi is not None and (lo > 0 or hi < 0))})
+    notes = [n.message for n in est.notes if n.season in (latest, ALL, "") and n.fitness in (fitness, "")
+             and n.site in (ALL, "") and n.quantity in ("gradient", "")]
+    out["latest"] = {"season": latest, "site": rows and t["site"].iloc[0] or ALL, "fitness": fitness,
+                     "quantity": "gradient", "bootstrap": bootstrap, "rows": rows, "notes": notes}
+    return out
+
+
+def _num(v):
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return None
+    return f if math.isfinite(f) else None
+
+
+def _signed(v, width: int) -> str:
+    return " " * width if v is None else f"{v:+.3f}".rjust(width)
+
+
+def text(info: dict) -> str:
+    """The summary as lines of at most 80 columns; every text from data passes through :func:`shown`."""
+    from fieldslope.tui.snapshot import kind_label
+
+    cut = fmt.cut
+    lines = [cut(shown(info["name"] or "study") + " · " + shown(info["study"]), WIDTH)]
+    lines.append(cut("traits: " + ", ".join(shown(t) for t in info["traits"]), WIDTH))
+    measures = info["fitness_measures"]
+    if not info["cells"]:
+        lines.append("no records yet; take in batch files with fieldslope import FILE.")
+    else:
+        # as many fitness columns as fit beside season, site, n and open flags
+        room = max(0, (WIDTH - 7 - 19 - 7 - 6) // 10)
+        cols = measures[:room]
+        head = f"{'season':<6} {'site':<18} {'n':>6} " + "".join(f"{cut(m, 9):>10}" for m in cols) + f"{'flags':>6}"
+        lines += ["", head]
+        for c in info["cells"]:
+            lines.append(f"{cut(shown(c['season']), 6):<6} {cut(shown(c['site']), 18):<18} {c['n']:>6} "
+                         + "".join(f"{c['measured'].get(m, 0):>10}" for m in cols) + f"{c['open_flags']:>6}")
+        if len(cols) < len(measures):
+            lines.append(cut(f"(columns: individuals with each fitness value; {len(measures) - len(cols)} more "
+                             "measures in --format json)", WIDTH))
+        else:
+            lines.append("(n individuals; then how many have each fitness value; open flags)")
+    flags = info["open_flags"]
+    total = sum(flags.values())
+    lines.append("")
+    lines.append(fmt.wrap(("open flags: " + ", ".join(f"{kind_label(k)} {n}" for k, n in flags.items())
+                           + f" ({total} in all; fieldslope flags lists them)") if flags else "open flags: none",
+                          indent=""))
+    b = info["last_batch"]
+    if b:
+        when = str(b["received"]).replace("T", " ")[:16]
+        lines.append(fmt.wrap(f"last batch: #{b['id']} {shown(b['file'])} ({b['outcome']}, {b['stored']} of "
+                              f"{b['rows']} rows) by {shown(b['operator'])}, {when} UTC; "
+                              f"{info['batches']['stored']} batches taken in, {info['batches']['refused']} refused",
+                              indent=""))
+    latest = info["latest"]
+    if latest:
+        where = "pooled over sites" if latest["site"] == ALL else f"site {shown(latest['site'])}"
+        lines += ["", fmt.wrap(f"season {shown(latest['season'])}, {where}: β on relative {shown(latest['fitness'])} "
+                               f"(w per sd; 95 % bootstrap interval and permutation p, {latest['bootstrap']} "
+                               "resamples)", indent="")]
+        lines.append(f"  {'trait':<18} {'β':>8} {'se':>7}   {'95 % interval':^18} {'p':>7} {'n':>6}")
+        for r in latest["rows"]:
+            interval = (f"{_signed(r['ci_low'], 7)} to {_signed(r['ci_high'], 7)}"
+                        if r["ci_low"] is not None else " " * 18)
+            se = "" if r["se"] is None else f"{r['se']:.3f}"
+            mark = " *" if r["excludes_zero"] else ""
+            n = "" if r["n"] is None else str(r["n"])
+            lines.append(f"  {cut(shown(r['trait']), 18):<18} {_signed(r['estimate'], 8)} {se:>7}  {interval} "
+                         f"{fmt.p_text(r['p_value']):>7} {n:>6}{mark}")
+        if any(r["excludes_zero"] for r in latest["rows"]):
+            lines.append("  * the interval excludes zero")
+        if not latest["rows"]:
+            lines.append("  no estimate (see the notes of fieldslope estimate)")
+        for note in latest["notes"][:3]:
+            lines.append(fmt.wrap(shown(note), indent="  "))
+    return "\n".join(line.rstrip() for line in lines) + "\n"
