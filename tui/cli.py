@@ -106,6 +106,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--since", metavar="WHEN", help="a date, a time or a batch number (default: your last run)")
     p.add_argument("--format", choices=("text", "json"), default="text")
 
+    p = command("report", "write one self-contained HTML page about the study (tables, pictures, cautions)")
+    p.add_argument("--output", metavar="FILE", required=True, help="the HTML file to write")
+    p.add_argument("--season", metavar="S", help="only this season (default: every season)")
+    p.add_argument("--site", metavar="S", help="tables and pictures of this site only (default: all sites)")
+    p.add_argument("--since", metavar="WHEN", help="add what changed since a date, a time or a batch number")
+    p.add_argument("--fitness", metavar="NAME", help="fitness measure (default: the first total)")
+    p.add_argument("--bootstrap", metavar="N", type=_count, default=2000, help="resamples (default 2000)")
+    p.add_argument("--seed", metavar="N", type=int, default=None, help="random seed (default: fixed)")
+    p.add_argument("--figures", metavar="DIR", help="also write each picture as SVG and PNG into DIR")
+
     p = command("demo", "the demo season (an invented study)")
     p.add_argument("--headless", action="store_true", help="no dashboard: take in the batches, print estimates")
     return parser

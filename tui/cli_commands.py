@@ -20,7 +20,7 @@ def run(args) -> int:
         return dashboard(args)
     return {"init": init, "check": check, "import": import_, "flags": flags, "resolve": resolve,
             "history": history, "estimate": estimate, "demo": demo, "summary": summary,
-            "changes": changes}[command](args)
+            "changes": changes, "report": report}[command](args)
 
 
 def _open(args, readonly: bool = False) -> Study:
@@ -223,6 +223,23 @@ def changes(args) -> int:
     trouble = view.remember_run(root, started, info["last_batch"])
     if trouble:
         print(f"fieldslope: {trouble}", file=sys.stderr)
+    return 0
+
+
+def report(args) -> int:
+    from fieldslope.tui import report as page
+
+    options = page.Options(season=args.season, site=args.site, since=args.since, fitness=args.fitness,
+                           bootstrap=args.bootstrap, seed=args.seed, png=bool(args.figures))
+    with _open(args, readonly=True) as study:
+        progress = fmt.Progress("report")
+        try:
+            result = page.build(study, options, progress=progress)
+        finally:
+            progress.done()
+    written = page.write(result, Path(args.output), Path(args.figures) if args.figures else None)
+    print(f"wrote the report to {args.output}" + (f" and {written} pictures to {args.figures}" if args.figures else ""),
+          file=sys.stderr)
     return 0
 
 
