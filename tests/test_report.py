@@ -168,4 +168,4 @@ def test_a_browser_renders_the_page(made, tmp_path):
     image = Image.open(shot).convert("L")
     lo, hi = image.getextrema()
     assert hi - lo > 100                               # not blank: dark text on a light page
-    assert sum(1 for v in image.getdata() if v < 128) > 2000
+    assert sum(image.histogram()[:128]) > 2000          # many dark pixels: text and pictures drawn

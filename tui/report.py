@@ -418,8 +418,7 @@ def build(study, options: Options, progress=None) -> Report:
       + "".join(f"<tr><td>{html.escape(a)}</td><td>{html.escape(b)}</td><td>{html.escape(c)}</td></tr>"
                 for a, b, c in CONVENTIONS) + "</table>")
     w("<p class=\"note\">The pooled estimate of a season relativizes fitness and standardizes traits within each "
-      "cell first, then fits one regression on all rows of that season. Canonical eigenvalues carry no "
-      "percentile interval; their p-values test against no nonlinear selection.</p>")
+      "cell first, then fits one regression on all rows of that season.</p>")
     w(f"<h2 id=\"{_slug('Cautions')}\">Cautions</h2>")
     w("".join(f"<p class=\"caution\">{html.escape(c)}</p>" for c in CAUTIONS))
     w("</body></html>\n")
