@@ -13,24 +13,17 @@ import math
 from collections import Counter
 
 from fieldslope.tui import cli_format as fmt
+from fieldslope.tui.safe_text import escape_controls
 
 WIDTH = fmt.WIDTH
 ALL = "all"
-# C0 controls, DEL, C1 controls, and the bidirectional marks, embeddings, overrides and isolates
-_VISIBLE = {c: (f"\\x{c:02x}" if c < 0x100 else f"\\u{c:04x}")
-            for c in (*range(0x20), *range(0x7F, 0xA0), 0x061C, 0x200E, 0x200F, *range(0x202A, 0x202F),
-                      *range(0x2066, 0x206A), 0x2028, 0x2029)}
 
 
 def shown(value: object) -> str:
-    """Text from data (IDs, sites, file names, operators, reasons) as the terminal may show it.
-
-    The one function every text from the record passes through on its way to the screen: C0 and C1
-    controls, DEL and bidirectional overrides are written visibly (``\\x1b``, ``\\u202e``).
-    """
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return ""
-    return str(value).translate(_VISIBLE)
+    """Text from data (IDs, sites, file names, operators, reasons) as the terminal may show it: the one
+    function every text from the record passes through on its way out (control and bidirectional
+    characters written visibly by :func:`tui.safe_text.escape_controls`)."""
+    return escape_controls(value)
 
 
 def default_fitness(protocol) -> str:
