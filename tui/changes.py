@@ -224,7 +224,7 @@ def _num(v):
 
 def text(info: dict) -> str:
     """The changes as lines of at most 80 columns; text from data goes through :func:`summary.shown`."""
-    from fieldslope.tui.snapshot import kind_label
+    from fieldslope.common.names import flag_label as kind_label
 
     cut, wrap = fmt.cut, fmt.wrap
     lines = [wrap(f"changes since {info['since']}:", indent="")]

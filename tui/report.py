@@ -17,10 +17,11 @@ from datetime import datetime, timezone
 
 from fieldslope.tui.summary import default_fitness, shown
 
-ALL = "all"
+from fieldslope.common.names import ALL, Q
+
 # the order quantities are listed in; quantities not named here (added later) follow by name
-ORDER = ("mean", "sd", "opportunity", "differential", "differential_std", "gradient", "gradient_raw",
-         "gradient_logistic", "quadratic", "correlational", "canonical")
+ORDER = (Q.MEAN, Q.SD, Q.OPPORTUNITY, Q.DIFFERENTIAL, Q.DIFFERENTIAL_STD, Q.GRADIENT, Q.GRADIENT_RAW,
+         Q.GRADIENT_LOGISTIC, Q.QUADRATIC, Q.CORRELATIONAL, Q.CANONICAL)
 LABELS = {
     "mean": "mean", "sd": "standard deviation", "opportunity": "opportunity for selection I",
     "differential": "selection differential S", "differential_std": "S / sd",
@@ -31,8 +32,8 @@ LABELS = {
     "gradient_q": "Cochran's Q", "sign_changes": "sign changes", "heritability": "heritability h²",
     "response": "response R = h²S", "response_pct": "R as % of the mean", "response_multi": "Δz̄ = Gβ",
 }
-ACROSS = ("gradient_mean", "gradient_tau2", "gradient_q", "sign_changes")
-RESPONSE = ("response", "response_pct", "response_multi")
+ACROSS = (Q.GRADIENT_MEAN, Q.GRADIENT_TAU2, Q.GRADIENT_Q, Q.SIGN_CHANGES)
+RESPONSE = (Q.RESPONSE, Q.RESPONSE_PCT, Q.RESPONSE_MULTI)
 PROJECT_GENERATIONS = (1, 5, 10)
 
 CONVENTIONS = (
@@ -236,7 +237,7 @@ def build(study, options: Options, progress=None) -> Report:
         w(f"<tr><td>{esc(day)}</td><td class=\"num\">{d['batches']}</td><td class=\"num\">{d['refused']}</td>"
           f"<td class=\"num\">{d['stored']}</td><td>{esc(', '.join(sorted(d['operators'])))}</td></tr>")
     w("</table>")
-    from fieldslope.tui.snapshot import kind_label
+    from fieldslope.common.names import flag_label as kind_label
 
     flags = info["open_flags"]
     if flags:
@@ -334,7 +335,8 @@ def build(study, options: Options, progress=None) -> Report:
 
     # -- across seasons ---------------------------------------------------------------------------
     w(f"<h2 id=\"{_slug('Across seasons')}\">Across seasons</h2>")
-    across = table[(table["season"] == ALL) & table["quantity"].isin(ACROSS) & (table["fitness"] == fitness)
+    # every across-season quantity there is (new ones appear by themselves), heritability apart
+    across = table[(table["season"] == ALL) & (table["quantity"] != Q.HERITABILITY) & (table["fitness"] == fitness)
                    & (table["site"] == pic_site)]
     if len(seasons_all) < 2 or across.empty:
         w("<p>One season only so far: nothing is combined across seasons.</p>")
@@ -543,7 +545,7 @@ def _intake_series(store, protocol, batches):
 
 
 def changes_html(info: dict) -> str:
-    from fieldslope.tui.snapshot import kind_label
+    from fieldslope.common.names import flag_label as kind_label
 
     out = [f"<p>Since {esc(info['since'])}.</p>"]
     if info["batches"]:

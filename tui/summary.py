@@ -128,7 +128,7 @@ def _signed(v, width: int) -> str:
 
 def text(info: dict) -> str:
     """The summary as lines of at most 80 columns; every text from data passes through :func:`shown`."""
-    from fieldslope.tui.snapshot import kind_label
+    from fieldslope.common.names import flag_label as kind_label
 
     cut = fmt.cut
     lines = [cut(shown(info["name"] or "study") + " · " + shown(info["study"]), WIDTH)]
