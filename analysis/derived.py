@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 
 from fieldslope.analysis.design import Design
-from fieldslope.analysis.heritability import parent_offspring
+from fieldslope.analysis.heritability import code_pedigree, parent_offspring
 from fieldslope.analysis.point import BlockResult
 from fieldslope.analysis.response import breeders_response, genetic_covariance, multivariate_response, response_se
 from fieldslope.analysis.seasons import combine, sign_changes
@@ -22,8 +22,9 @@ def heritabilities(data: pd.DataFrame, design: Design, entered: dict | None):
     """(rows, notes, used) where used maps trait -> (h2, se or None) for the responses."""
     rows, notes, used = [], [], {}
     entered = entered or {}
+    pedigree = code_pedigree(data, design) if design.mother is not None or design.father is not None else None
     for trait in design.traits:
-        fit, why = parent_offspring(data, design, trait)
+        fit, why = parent_offspring(data, design, trait, pedigree)
         if fit is not None:
             rows.append(row(ALL, ALL, "", Q.HERITABILITY, trait, fit.estimate, fit.se, n=fit.n_families))
             notes.append((ALL, ALL, "", Q.HERITABILITY, fit.describe()))
