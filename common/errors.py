@@ -30,6 +30,10 @@ class StudyError(FieldslopeError):
     """The study folder is missing, incomplete or already taken."""
 
 
+class PedigreeError(FieldslopeError):
+    """The parent records cannot form a pedigree (an individual is its own ancestor)."""
+
+
 class EstimationError(FieldslopeError):
     """The data frame does not match the design, or a planning input is out of range."""
 
