@@ -11,20 +11,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from animal_sim import tabular_a
 from fieldslope.analysis.pedigree import from_frame, summarize
 from fieldslope.common.errors import PedigreeError
-
-
-def tabular_a(dam: list[int], sire: list[int]) -> np.ndarray:
-    """The additive relationship matrix by the tabular method (parents before offspring, -1 unknown)."""
-    n = len(dam)
-    A = np.zeros((n, n))
-    for i in range(n):
-        s, d = sire[i], dam[i]
-        for j in range(i):
-            A[i, j] = A[j, i] = 0.5 * ((A[j, s] if s >= 0 else 0.0) + (A[j, d] if d >= 0 else 0.0))
-        A[i, i] = 1.0 + (0.5 * A[s, d] if s >= 0 and d >= 0 else 0.0)
-    return A
 
 
 def frame(rows) -> pd.DataFrame:
