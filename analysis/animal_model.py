@@ -211,13 +211,16 @@ class Surface:
 
 
 def _unpack(theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(G0, R0) from (log v_a1, log v_a2, atanh r_a, log v_e1, log v_e2, atanh r_e)."""
-    out = []
-    for lv1, lv2, z in (theta[:3], theta[3:]):
-        sd1, sd2 = math.exp(lv1 / 2), math.exp(lv2 / 2)
-        cov = math.tanh(z) * sd1 * sd2
-        out.append(np.array([[sd1 * sd1, cov], [cov, sd2 * sd2]]))
-    return out[0], out[1]
+    """(G0, R0) from theta = (log v_a1, l21, l22, log v_e1, log v_e2, atanh r_e).
+
+    G0 = L L' with L = [[sqrt(v_a1), 0], [l21, l22]]: every positive semi-definite G0, a genetic correlation
+    of +-1 included (l22 = 0), is an interior point, so the curvature there still gives standard errors."""
+    l11 = math.exp(theta[0] / 2)
+    l21, l22 = theta[1], theta[2]
+    G0 = np.array([[l11 * l11, l11 * l21], [l11 * l21, l21 * l21 + l22 * l22]])
+    sd1, sd2 = math.exp(theta[3] / 2), math.exp(theta[4] / 2)
+    cov = math.tanh(theta[5]) * sd1 * sd2
+    return G0, np.array([[sd1 * sd1, cov], [cov, sd2 * sd2]])
 
 
 def bivariate_deviance(surface: Surface, pair: tuple[int, int], scale: np.ndarray, theta: np.ndarray,
@@ -258,7 +261,8 @@ class BivariateFit:
     deviance: float
 
 
-BOUND_Z = 5.0  # |atanh r| <= 5: correlations within +-0.9999
+BOUND_Z = 5.0  # |atanh r_e| <= 5: residual correlations within +-0.9999
+RG_EDGE = 0.999  # a genetic correlation this close to +-1 is on the edge: no standard error or interval
 
 
 def fit_bivariate(surface: Surface, pair: tuple[int, int], rounds: int = 12) -> BivariateFit:
@@ -269,8 +273,9 @@ def fit_bivariate(surface: Surface, pair: tuple[int, int], rounds: int = 12) -> 
     scale = np.sqrt(np.diag(S0))
     P = S0 / np.outer(scale, scale)
     r0 = float(np.clip(P[0, 1], -0.9, 0.9))
-    theta = np.array([math.log(0.3), math.log(0.3), math.atanh(r0), math.log(0.7), math.log(0.7), math.atanh(r0)])
-    bounds = [(-14.0, 3.0), (-14.0, 3.0), (-BOUND_Z, BOUND_Z)] * 2
+    theta = np.array([math.log(0.3), r0 * math.sqrt(0.3), math.sqrt(0.3 * (1 - r0 * r0)), math.log(0.7),
+                      math.log(0.7), math.atanh(r0)])
+    bounds = [(-14.0, 3.0), (-3.0, 3.0), (-3.0, 3.0), (-14.0, 3.0), (-14.0, 3.0), (-BOUND_Z, BOUND_Z)]
     f = lambda th: bivariate_deviance(surface, pair, scale, th)[0]  # noqa: E731
     for _ in range(rounds):
         res = minimize(f, theta, method="L-BFGS-B", bounds=bounds, options={"ftol": 1e-13, "gtol": 1e-8})
@@ -286,17 +291,20 @@ def fit_bivariate(surface: Surface, pair: tuple[int, int], rounds: int = 12) -> 
     G0, R0 = _unpack(theta)
     D = np.diag(scale)
     G, R = D @ G0 @ D, D @ R0 @ D
-    rg = math.tanh(theta[2])
+    l21, l22 = theta[1], theta[2]
+    s_2 = math.hypot(l21, l22)
+    rg = l21 / s_2 if s_2 > 0 else math.nan
     cov_theta = _hessian_inverse(f, theta, bounds)
-    rg_se = cov_a_se = math.nan
+    rg_se = cov_a_se = low = high = math.nan
     if cov_theta is not None:
-        rg_se = (1 - rg * rg) * math.sqrt(cov_theta[2, 2])
-        grad = np.array([G0[0, 1] / 2, G0[0, 1] / 2, (1 - rg * rg) * math.sqrt(G0[0, 0] * G0[1, 1])])
+        grad = np.array([G0[0, 1] / 2, math.sqrt(G0[0, 0]), 0.0])  # d cov_a / d(theta0, l21, l22)
         cov_a_se = float(scale[0] * scale[1] * math.sqrt(max(grad @ cov_theta[:3, :3] @ grad, 0.0)))
-    low = high = math.nan
-    if cov_theta is not None:  # Wald interval on the atanh scale, mapped back into (-1, 1)
-        half = Z95 * math.sqrt(cov_theta[2, 2])
-        low, high = math.tanh(theta[2] - half), math.tanh(theta[2] + half)
+        if abs(rg) < RG_EDGE:
+            grad = np.array([0.0, l22 * l22 / s_2**3, -l21 * l22 / s_2**3])  # d r_g / d(theta0, l21, l22)
+            rg_se = math.sqrt(max(grad @ cov_theta[:3, :3] @ grad, 0.0))
+            # Wald interval on the atanh scale, mapped back into (-1, 1)
+            half = Z95 * rg_se / (1 - rg * rg)
+            low, high = math.tanh(math.atanh(rg) - half), math.tanh(math.atanh(rg) + half)
     return BivariateFit(G, R, rg, rg_se, low, high, float(G[0, 1]), cov_a_se, kernel.n, best)
 
 

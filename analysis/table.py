@@ -30,6 +30,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -44,6 +45,9 @@ from fieldslope.analysis.permute import SeasonPermuter, permute_season
 from fieldslope.analysis.point import point_block
 from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval
 from fieldslope.common.names import ALL, Q
+
+if TYPE_CHECKING:  # pragma: no cover
+    from fieldslope.analysis.genetics import Genetics
 
 COLUMNS = ["season", "site", "fitness", "quantity", "term", "estimate", "se", "ci_low", "ci_high", "p_value", "n"]
 # the default random seed for bootstrap resamples and permutations (same seed, same numbers)
@@ -154,6 +158,7 @@ def estimate_table(
     h2: dict[str, tuple[float, float | None, str]] | None = None,
     genetic_correlations: dict[tuple[str, str], float] | None = None,
     fitness: Sequence[str] | None = None,
+    genetics: "Genetics | None" = None,
 ) -> Estimates:
     """All estimates for the effective data ``frame`` under ``design``.
 
@@ -165,7 +170,10 @@ def estimate_table(
     from parent-offspring data take precedence. ``genetic_correlations`` maps
     trait pairs to r_g (default: the phenotypic correlations, said in a note).
     ``fitness`` picks the fitness measures (default all, totals included).
-    ``progress(done, total, label)`` is called during resampling.
+    ``progress(done, total, label)`` is called during resampling. ``genetics``
+    (from ``analysis.genetics.pedigree_estimates``, fitted separately because it
+    is slow) adds the animal-model rows; its heritabilities and genetic
+    correlations then give the responses and the G of Delta z = G beta.
     """
     fitness_names = list(fitness) if fitness is not None else list(design.fitness_names)
     check_frame(frame, design, fitness_names)
@@ -175,6 +183,11 @@ def estimate_table(
         data = add_totals(frame, design)
         seasons = split_cells(data, design, fitness_names)
         h_rows, h_notes, used_h2 = heritabilities(data, design, h2)
+        if genetics is not None:
+            from fieldslope.analysis.genetics import use_pedigree  # its module loads scipy: only when given
+
+            h_notes += genetics.notes + use_pedigree(genetics, used_h2, design.traits)
+            genetic_correlations = {**genetics.rg, **(genetic_correlations or {})}
         rows: list[dict] = []
         notes: list[Note] = [Note(*n) for n in h_notes]
         rg_assumed = False
@@ -222,6 +235,8 @@ def estimate_table(
             rows.extend(t_rows)
             notes.extend(Note(*n) for n in t_notes)
         rows.extend(h_rows)
+        if genetics is not None:
+            rows.extend(genetics.rows)
         if rg_assumed:
             notes.append(Note(ALL, ALL, "", Q.RESPONSE_MULTI,
                               "Genetic correlations not entered are taken equal to the phenotypic correlations of each cell."))

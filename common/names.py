@@ -37,6 +37,11 @@ class Q:
     GRADIENT_TAU2: Final = "gradient_tau2"
     GRADIENT_Q: Final = "gradient_q"
     SIGN_CHANGES: Final = "sign_changes"
+    # from the animal model on the whole pedigree (season and site ``all``)
+    HERITABILITY_PEDIGREE: Final = "heritability_pedigree"
+    ADDITIVE_VARIANCE: Final = "additive_variance"
+    GENETIC_CORRELATION: Final = "genetic_correlation"
+    RESPONSE_PRICE: Final = "response_price"
 
 
 #: Every quantity name, in the order of the estimation contract.

@@ -37,11 +37,28 @@ def estimates_for_frame(
     seed: int | None = None,
     h2: dict | None = None,
     progress: Callable[[int, int, str], None] | None = None,
+    pedigree: bool = False,
+    genetics=None,
 ):
-    """Estimates for an effective-data frame (see DEVELOPERS.md for its columns)."""
+    """Estimates for an effective-data frame (see DEVELOPERS.md for its columns).
+
+    ``pedigree`` fits the animal models first (slow: the command line does, the
+    dashboard's live refresh does not); ``genetics`` passes a fit already made.
+    """
     from fieldslope.analysis.table import estimate_table  # heavy: imported on first use
 
-    kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2}
+    if pedigree and genetics is None:
+        genetics = pedigree_genetics(frame, protocol, progress=progress)
+    kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2, "genetics": genetics}
     if seed is not None:
         kwargs["seed"] = seed
     return estimate_table(frame, design_from_protocol(protocol), **kwargs)
+
+
+def pedigree_genetics(frame: "pd.DataFrame", protocol: Protocol, *, progress=None):
+    """Animal-model rows and notes for the whole pedigree (``analysis.genetics.Genetics``)."""
+    from fieldslope.analysis.genetics import pedigree_estimates  # heavy: imported on first use
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):  # many small dense products
+        return pedigree_estimates(frame, design_from_protocol(protocol), progress=progress)

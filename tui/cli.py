@@ -94,6 +94,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--fitness", metavar="NAME", help="only this fitness component or total")
     p.add_argument("--without-open-outliers", action="store_true",
                    help="leave out values with open outlier flags too (sensitivity)")
+    p.add_argument("--skip-pedigree", action="store_true",
+                   help="no animal models (the pedigree rows take a while on large studies)")
     p.add_argument("--output", metavar="FILE", help="write to FILE instead of the screen")
 
     p = command("summary", "one screen about the study: cells, flags, last batch, latest season's gradients")

@@ -132,7 +132,7 @@ def estimate(args) -> int:
     progress = fmt.Progress("estimating")
     try:
         est = estimates_for_frame(frame, protocol, bootstrap=args.bootstrap, seed=args.seed, h2=h2 or None,
-                                  progress=progress)
+                                  progress=progress, pedigree=not args.skip_pedigree)
     finally:
         progress.done()
     table = est.table

@@ -1,0 +1,181 @@
+"""Quantitative genetics from the whole pedigree: the rows the animal model adds to the estimates table.
+
+Per trait (univariate animal model): ``heritability_pedigree`` (h^2 with its
+REML standard error and profile-likelihood 95 % interval) and
+``additive_variance`` (V_A, trait units squared). Per pair of traits
+(bivariate): ``genetic_correlation`` (term ``a:b``). Per trait and fitness
+measure (bivariate with relative fitness, relative within its cell):
+``response_price``, the additive genetic covariance of the trait with relative
+fitness, which is the expected change of the mean per generation by the
+Robertson-Price identity (Robertson 1966, Anim. Prod. 8:95-108; Price 1970,
+Nature 227:520-521; Morrissey, Kruuk & Wilson 2010, J. Evol. Biol.
+23:2277-2288). All rows have season ``all`` and site ``all``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from fieldslope.analysis.animal_data import model_data, relative_fitness
+from fieldslope.analysis.animal_model import Z95, Kernel, Surface, fit_bivariate, fit_univariate
+from fieldslope.analysis.design import Design
+from fieldslope.analysis.fitness import add_totals
+from fieldslope.analysis.pedigree import Pedigree, from_frame, summarize
+from fieldslope.common.errors import PedigreeError
+from fieldslope.common.names import ALL, Q
+
+HERITABILITY = Q.HERITABILITY_PEDIGREE
+ADDITIVE_VARIANCE = Q.ADDITIVE_VARIANCE
+GENETIC_CORRELATION = Q.GENETIC_CORRELATION
+RESPONSE_PRICE = Q.RESPONSE_PRICE
+MIN_RECORDS = 10  # records for an animal model (beyond the cell means)
+
+
+@dataclass(frozen=True)
+class Genetics:
+    rows: list[dict]
+    notes: list[tuple[str, str, str, str, str]]  # (season, site, fitness, quantity, sentence)
+    h2: dict[str, tuple[float, float]] = field(default_factory=dict)  # trait -> (h2, se)
+    rg: dict[tuple[str, str], float] = field(default_factory=dict)
+    summary: str = ""
+
+
+def _row(fitness, quantity, term, estimate, se=math.nan, low=math.nan, high=math.nan, n=None) -> dict:
+    return dict(season=ALL, site=ALL, fitness=fitness, quantity=quantity, term=term, estimate=float(estimate),
+                se=float(se), ci_low=float(low), ci_high=float(high), p_value=math.nan, n=n)
+
+
+def related(ped: Pedigree, data) -> bool:
+    """True if two measured individuals are related: one is the other's parent, or they share a parent."""
+    measured = np.zeros(ped.n, dtype=bool)
+    measured[data.Z.nonzero()[1]] = True
+    for par in (ped.dam, ped.sire):
+        kids = measured & (par >= 0)
+        if (measured[par[kids]]).any():
+            return True
+        counts = np.bincount(par[kids], minlength=ped.n)
+        if (counts >= 2).any():
+            return True
+    return False
+
+
+def pedigree_estimates(frame: pd.DataFrame, design: Design, fitness_names=None,
+                       progress: Callable[[int, int, str], None] | None = None) -> Genetics:
+    """All pedigree rows for ``frame`` (effective data, every season); notes say what is missing and why."""
+    notes: list[tuple] = []
+    if design.mother is None and design.father is None:
+        return Genetics([], [(ALL, ALL, "", HERITABILITY, "The protocol names no parent columns, so there is no pedigree.")])
+    try:
+        ped = from_frame(frame, design.id, design.season, design.mother, design.father)
+    except PedigreeError as err:
+        return Genetics([], [(ALL, ALL, "", HERITABILITY, f"No animal model: {err}")])
+    summary = summarize(ped).describe()
+    notes.append((ALL, ALL, "", HERITABILITY, summary))
+    notes.extend((ALL, ALL, "", HERITABILITY, p) for p in ped.problems)
+    data = add_totals(frame, design)
+    fitness_names = list(design.fitness_names if fitness_names is None else fitness_names)
+    traits = list(design.traits)
+    values = data[traits].apply(pd.to_numeric, errors="coerce").astype(float)
+    steps = len(traits) + 1 + len(fitness_names)
+    done = [0]
+
+    def tick(label: str) -> None:
+        done[0] += 1
+        if progress is not None:
+            progress(done[0], steps, label)
+
+    rows: list[dict] = []
+    h2: dict = {}
+    later_total = 0
+    for t in traits:
+        md, later = model_data(data, design, ped, values[[t]])
+        later_total = max(later_total, later)
+        tick(f"animal model, {t}")
+        why = _unusable(ped, md)
+        if why:
+            notes.append((ALL, ALL, "", HERITABILITY, f"No pedigree heritability of {t}: {why}."))
+            continue
+        fit = fit_univariate(Kernel(md))
+        rows.append(_row("", HERITABILITY, t, fit.h2, fit.h2_se, fit.h2_low, fit.h2_high, fit.n))
+        rows.append(_row("", ADDITIVE_VARIANCE, t, fit.va, fit.va_se, n=fit.n))
+        h2[t] = (fit.h2, fit.h2_se)
+        if fit.h2_high >= 0.999 or fit.h2_low <= 0.0:
+            notes.append((ALL, ALL, "", HERITABILITY,
+                          f"The likelihood interval of the heritability of {t} reaches the end of the range searched "
+                          f"({'0' if fit.h2_low <= 0 else '0.999'})."))
+    if later_total:
+        notes.append((ALL, ALL, "", HERITABILITY,
+                      "Individuals measured in several seasons enter the animal model with their earliest record "
+                      "(the model has no permanent-environment effect)."))
+    rg: dict = {}
+    if len(traits) > 1:
+        md, _ = model_data(data, design, ped, values[traits])
+        tick("animal model, genetic correlations")
+        why = _unusable(ped, md)
+        if why:
+            notes.append((ALL, ALL, "", GENETIC_CORRELATION, f"No genetic correlations: {why}."))
+        else:
+            surface = Surface(Kernel(md))
+            for j in range(len(traits)):
+                for k in range(j + 1, len(traits)):
+                    fit = fit_bivariate(surface, (j, k))
+                    term = f"{traits[j]}:{traits[k]}"
+                    rows.append(_row("", GENETIC_CORRELATION, term, fit.rg, fit.rg_se, fit.rg_low, fit.rg_high, fit.n))
+                    rg[(traits[j], traits[k])] = fit.rg
+            notes.append((ALL, ALL, "", GENETIC_CORRELATION,
+                          "Genetic correlations come from bivariate animal models on the individuals with every trait; "
+                          "their intervals are Wald intervals on the atanh scale."))
+    else:
+        tick("")
+    for f in fitness_names:
+        w = relative_fitness(data, design, f).rename("__w")
+        md, _ = model_data(data, design, ped, pd.concat([values[traits], w], axis=1))
+        tick(f"animal model, {f}")
+        why = _unusable(ped, md)
+        if why:
+            notes.append((ALL, ALL, f, RESPONSE_PRICE, f"No Robertson-Price response for {f}: {why}."))
+            continue
+        surface = Surface(Kernel(md))
+        for j, t in enumerate(traits):
+            fit = fit_bivariate(surface, (j, len(traits)))
+            half = Z95 * fit.cov_a_se
+            rows.append(_row(f, RESPONSE_PRICE, t, fit.cov_a, fit.cov_a_se, fit.cov_a - half, fit.cov_a + half, fit.n))
+    if any(r["quantity"] == RESPONSE_PRICE for r in rows):
+        notes.append((ALL, ALL, "", RESPONSE_PRICE,
+                      "Robertson-Price responses are additive genetic covariances of each trait with relative fitness "
+                      "(relative within its season and site) per generation, from bivariate animal models on the "
+                      "individuals with every trait and that fitness; intervals are estimate +- 1.96 se."))
+    return Genetics(rows, notes, h2, rg, summary)
+
+
+def _unusable(ped: Pedigree, md) -> str:
+    n, p = md.X.shape
+    if n - p < MIN_RECORDS:
+        return f"only {n} individuals have the values needed, in {p} season-site cells"
+    if not related(ped, md):
+        return ("no two measured individuals are related in the pedigree (parent and offspring, or sharing a parent), "
+                "so additive genetic variance cannot be told apart from the rest")
+    return ""
+
+
+def use_pedigree(genetics: Genetics, used_h2: dict, traits) -> list[tuple]:
+    """Put the pedigree heritabilities into ``used_h2`` (they take precedence) and say which G the responses use."""
+    notes = []
+    for t, value in genetics.h2.items():
+        used_h2[t] = value
+    if genetics.h2:
+        notes.append((ALL, ALL, "", Q.RESPONSE,
+                      f"Responses of {', '.join(genetics.h2)} use the pedigree heritability (animal model)."))
+    pairs = len(traits) * (len(traits) - 1) // 2
+    if pairs and len(genetics.rg) == pairs and all(t in genetics.h2 for t in traits):
+        notes.append((ALL, ALL, "", Q.RESPONSE_MULTI,
+                      "Delta z = G beta uses G from the animal model: pedigree heritabilities and genetic correlations."))
+    elif genetics.rg:
+        notes.append((ALL, ALL, "", Q.RESPONSE_MULTI,
+                      "Delta z = G beta uses the pedigree genetic correlations where they were estimated."))
+    return notes
