@@ -62,10 +62,9 @@ class PedigreeSummary:
     inbred: int
 
     def describe(self) -> str:
-        return (f"Pedigree: {self.individuals} individuals, {self.founders} founders, "
-                f"{self.max_depth} generations deep, {self.full_sib_families} full-sib and "
-                f"{self.half_sib_families} half-sib families, mean inbreeding {self.mean_inbreeding:.4f} "
-                f"({self.inbred} inbred).")
+        return (f"Pedigree: {self.individuals} individuals ({self.founders} founders), {self.max_depth} generations "
+                f"deep; {self.full_sib_families} full-sib, {self.half_sib_families} half-sib families; "
+                f"mean inbreeding {self.mean_inbreeding:.4f} ({self.inbred} inbred).")
 
 
 def _clean(series: pd.Series) -> pd.Series:

@@ -50,7 +50,7 @@ def test_rows_are_the_animal_model_fits(study):
     assert list(rg["term"]) == ["t0:t1"] and -1 < rg["estimate"].iloc[0] < 1
     price = t[t["quantity"] == "response_price"]
     assert list(price["term"]) == ["t0", "t1"] and (price["fitness"] == "W").all()
-    assert "Pedigree: 270 individuals, 90 founders, 2 generations deep" in g.summary
+    assert "Pedigree: 270 individuals (90 founders), 2 generations deep" in g.summary
 
 
 def test_responses_use_the_pedigree_heritability_and_g(study):

@@ -347,7 +347,7 @@ async def test_response_uses_an_entered_heritability(filled, size):
         await wait_for(app, pilot, lambda: ready(app))
         await pilot.press("4")
         await pilot.pause()
-        assert "none: press h" in screen_text(app)
+        assert "none (h)" in screen_text(app)
         await pilot.press("h")                           # the cursor is on the first trait, wing
         await pilot.pause()
         app.screen.query_one("#form-value").value = "0.4"
@@ -358,8 +358,8 @@ async def test_response_uses_an_entered_heritability(filled, size):
         screen = app.screen
         row = screen.query_one("#resp-table").get_row("wing")
         r = snap.value("2025", "all", "total", "response", "wing")
-        assert str(row[1]) == fmt(0.4) and str(row[4]) == fmt(r["estimate"])
-        assert "entered" in str(row[2])
+        assert str(row[1]) == fmt(0.4) and str(row[5]) == fmt(r["estimate"])
+        assert "entered" in str(row[3])
         screen.query_one("#resp-k").value = "5"
         await pilot.pause()
         mean = snap.value("2025", "all", "total", "mean", "wing")["estimate"]

@@ -18,11 +18,13 @@ def _number(text: str, kind=float):
 
 
 def projection_text(snap: Snapshot, season: str, site: str, fitness: str, trait: str,
-                    k_text: str, target_text: str) -> Content:
-    """The mean carried over k generations of response R, and the generations needed for a target change."""
+                    k_text: str, target_text: str, response: float | None = None) -> Content:
+    """The mean carried over k generations of response R, and the generations needed for a target change.
+
+    ``response`` replaces the table's R (the Response screen passes R = h²S with the pedigree h²)."""
     from fieldslope.analysis.response import generations_needed, project_mean
 
-    r = snap.value(season, site, fitness, Q.RESPONSE, trait)
+    r = snap.value(season, site, fitness, Q.RESPONSE, trait) if response is None else {"estimate": response}
     mean = snap.value(season, site, fitness, Q.MEAN, trait)
     if r is None or r["estimate"] is None:
         return assemble((f"No response for {trait} here: it needs h² (press h) and S.", "$text-muted"))

@@ -1,4 +1,10 @@
-"""Response: h² per trait, R = h²S, R as % of the mean, Δz̄ = Gβ, and a projection over generations."""
+"""Response: h² per trait, R = h²S, R as % of the mean, Δz̄ = Gβ, the Robertson–Price response, and a projection.
+
+The animal models (pedigree h² and the Robertson–Price covariances) are slow, so
+this screen fits them in its own worker, once per data version, while the
+point estimates go on refreshing; until they are in, the pedigree line shows
+the progress and the table the parent–offspring or entered h².
+"""
 
 from __future__ import annotations
 
@@ -11,7 +17,9 @@ from textual.binding import Binding
 from textual.containers import Horizontal, VerticalScroll
 from textual.message import Message
 from textual.widgets import DataTable, Input, Label, Static
+from textual.worker import Worker, WorkerState
 
+from fieldslope.analysis.response import breeders_response
 from fieldslope.common.names import Q
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.screens.base import StudyScreen
@@ -38,12 +46,27 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     class H2Saved(Message):
         text: str
 
+    @dataclass
+    class PedigreeProgress(Message):
+        text: str
+
+    @dataclass
+    class PedigreeFitted(Message):
+        version: int
+        genetics: object  # fieldslope.analysis.genetics.Genetics
+
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
         self.choices = Choices()
+        self._genetics = None
+        self._genetics_version: int | None = None
+        self._fitting: int | None = None  # the data version being fitted
+        self._pedigree_text = ""
+        self._r_pedigree: dict[str, float] = {}  # R = h²S with the pedigree h², per trait, for the projection
 
     def body(self) -> ComposeResult:
         yield Static(id="resp-choices", classes="choices")
+        yield Static(id="resp-pedigree")
         with VerticalScroll():
             yield LiteralTable(id="resp-table", cursor_type="row", zebra_stripes=True, classes="panel")
             yield Static(id="resp-g", classes="notes")
@@ -55,7 +78,8 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             yield Static(id="resp-projection", classes="notes panel")
 
     def on_mount(self) -> None:
-        self.query_one("#resp-table", DataTable).add_columns("trait", "h²", "source", "S", "R", "R % mean", "Δz̄ (Gβ)")
+        self.query_one("#resp-table", DataTable).add_columns("trait", "h²", "h² 95 %", "from", "S", "R=h²S", "R %",
+                                                            "Gβ", "Price")
 
     def action_focus_generations(self) -> None:
         self.query_one("#resp-k", Input).focus()
@@ -91,14 +115,30 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         keep = table.cursor_row
         table.clear()
         key = dict(season=c.season, site=c.site, fitness=c.fitness)
+        gen = self._genetics if self._genetics_version == snap.data_version else None
+        self._r_pedigree = {}
         for trait in snap.protocol.trait_names:
             h2, source = self.h2_of(snap, trait)
             s = snap.value(**key, quantity=Q.DIFFERENTIAL, term=trait)
             r = snap.value(**key, quantity=Q.RESPONSE, term=trait)
             rp = snap.value(**key, quantity=Q.RESPONSE_PCT, term=trait)
             rm = snap.value(**key, quantity=Q.RESPONSE_MULTI, term=trait)
-            table.add_row(trait, fmt(h2["estimate"]) if h2 else "–", source[:22],
-                          _e(s), _e(r), _e(rp), _e(rm), key=trait)
+            ped = _genetics_row(gen, Q.HERITABILITY_PEDIGREE, trait, "")
+            price = _genetics_row(gen, Q.RESPONSE_PRICE, trait, c.fitness or "")
+            span = "–"
+            if ped is not None:   # the pedigree h² takes precedence: R = h²S with it
+                h2, source = {"estimate": ped["estimate"]}, "pedigree"
+                span = f"{fmt(ped['ci_low'], 2)}–{fmt(ped['ci_high'], 2)}"
+                r = None if s is None else {"estimate": breeders_response(ped["estimate"], s["estimate"])}
+                if r is not None:
+                    self._r_pedigree[trait] = r["estimate"]
+                mean = snap.value(**key, quantity=Q.MEAN, term=trait)
+                rp = None if r is None or mean is None or not mean["estimate"] else {
+                    "estimate": 100 * r["estimate"] / mean["estimate"]}
+            table.add_row(trait, fmt(h2["estimate"]) if h2 else "–", span, _short_source(source),
+                          _e(s), _e(r), _e(rp), _e(rm), _e(price), key=trait)
+        self._fit_pedigree(snap)
+        self._show_pedigree_line()
         if snap.protocol.trait_names:
             table.move_cursor(row=max(0, min(keep, len(snap.protocol.trait_names) - 1)))
         order = (Q.RESPONSE_MULTI, Q.RESPONSE, Q.RESPONSE_PCT, Q.HERITABILITY)   # the G assumption first
@@ -111,6 +151,48 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         g_text = head + whole_sentences(list(dict.fromkeys(notes)), room)
         self.query_one("#resp-g", Static).update(assemble((g_text, "$text-muted")))
         self._projection()
+
+    # -- the animal models, in their own worker -------------------------------
+    def _fit_pedigree(self, snap: Snapshot) -> None:
+        if self._fitting is not None or self._genetics_version == snap.data_version:
+            return
+        self._fitting = snap.data_version
+        self._pedigree_text = "Pedigree: fitting the animal models…"
+        self._pedigree_worker(snap.frame, snap.protocol, snap.data_version)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="resp-pedigree")
+    def _pedigree_worker(self, frame, protocol, version: int) -> None:
+        from fieldslope.tui.bridge import pedigree_genetics
+
+        def progress(done: int, total: int, label: str) -> None:
+            self.post_message(self.PedigreeProgress(f"Pedigree: fitting animal models, {done} of {total} ({label})…"))
+
+        self.post_message(self.PedigreeFitted(version, pedigree_genetics(frame, protocol, progress=progress)))
+
+    def on_response_screen_pedigree_progress(self, msg: PedigreeProgress) -> None:
+        if self._fitting is not None:
+            self._pedigree_text = msg.text
+            self._show_pedigree_line()
+
+    def on_response_screen_pedigree_fitted(self, msg: PedigreeFitted) -> None:
+        self._fitting = None
+        self._genetics, self._genetics_version = msg.genetics, msg.version
+        notes = [n[-1] for n in msg.genetics.notes]
+        self._pedigree_text = msg.genetics.summary or (notes[0] if notes else "")
+        if self.app.snapshot is not None:
+            self.show(self.app.snapshot)   # refits if the data changed meanwhile
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        if event.worker.group != "resp-pedigree" or event.state != WorkerState.ERROR:
+            return
+        self._genetics, self._genetics_version = None, self._fitting   # no retry until the data change
+        self._fitting = None
+        self._pedigree_text = f"Pedigree: the animal models failed ({event.worker.error}); the table uses other h²."
+        self._show_pedigree_line()
+        self.app.notify(self._pedigree_text, severity="error")
+
+    def _show_pedigree_line(self) -> None:
+        self.query_one("#resp-pedigree", Static).update(assemble((self._pedigree_text, "$text-muted")))
 
     @on(Input.Changed, "#resp-k")
     @on(Input.Changed, "#resp-target")
@@ -133,7 +215,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         k_text = self.query_one("#resp-k", Input).value.strip()
         target_text = self.query_one("#resp-target", Input).value.strip()
         out.update(projection_text(snap, self.choices.season, self.choices.site, self.choices.fitness, trait,
-                                   k_text, target_text))
+                                   k_text, target_text, self._r_pedigree.get(trait)))
 
     @on(DataTable.RowHighlighted, "#resp-table")
     def _row(self) -> None:
@@ -199,6 +281,20 @@ def whole_sentences(notes: list[str], limit: int) -> str:
             break
         out.append(note)
     return " ".join(out)
+
+
+def _short_source(source: str) -> str:
+    """The h² source in a narrow column: pedigree, parents (parent–offspring), entered, or none (h)."""
+    if source.startswith("entered"):
+        return "entered"
+    return {"parent–offspring": "parents", "pedigree": "pedigree"}.get(source, "none (h)")
+
+
+def _genetics_row(gen, quantity: str, term: str, fitness: str) -> dict | None:
+    if gen is None:
+        return None
+    return next((r for r in gen.rows if r["quantity"] == quantity and r["term"] == term and r["fitness"] == fitness),
+                None)
 
 
 def _e(row: dict | None) -> str:
