@@ -33,7 +33,8 @@ from fieldslope.schemas.records import CheckReport, FlagNote, RowError
 from fieldslope.schemas.batch_plan import BatchPlan, Progress, now
 from fieldslope.schemas.store_quarantine import QuarantineFix
 from fieldslope.schemas.store_supersede import supersede
-from fieldslope.schemas.store_types import BatchInfo, ImportResult, RecordError, Resolution, StoredFlag
+from fieldslope.schemas.store_types import (BatchInfo, HeritabilityEntry, ImportResult, RecordError, Resolution,
+                                            StoredFlag)
 
 OPTIONAL_TEXT = ("date", "observer", "notes")
 _CHUNK = 20_000
@@ -539,6 +540,13 @@ class Store:
         rows = self._read(lambda c: c.execute(
             "SELECT id, trait, value, se, source, operator, created FROM heritability ORDER BY id").fetchall())
         return pd.DataFrame(rows, columns=["id", "trait", "value", "se", "source", "operator", "created"])
+
+    def heritability_records(self) -> tuple[HeritabilityEntry, ...]:
+        """Every entered h² in the order entered, as typed records (``heritability_entries`` as a table)."""
+        frame = self.heritability_entries()
+        return tuple(HeritabilityEntry(int(i), str(t), float(v), None if pd.isna(s) else float(s), str(src), str(op),
+                                       str(c))
+                     for i, t, v, s, src, op, c in frame.itertuples(index=False, name=None))
 
     def heritability(self) -> dict[str, tuple[float, float | None, str]]:
         """The latest entry per trait: trait -> (h², se or None, source), as estimate_table's ``h2``."""

@@ -77,6 +77,19 @@ class StoredFlag:
 
 
 @dataclass(frozen=True)
+class HeritabilityEntry:
+    """An entered h² with its source (the study keeps every entry; the latest per trait is used)."""
+
+    id: int
+    trait: str
+    value: float
+    se: float | None
+    source: str
+    operator: str
+    created: str
+
+
+@dataclass(frozen=True)
 class Resolution:
     flag_id: int
     action: str

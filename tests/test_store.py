@@ -275,6 +275,9 @@ def test_heritability_entries_latest_wins(study):
     study.store.set_heritability("wing", 0.35, None, "pooled 2022-2023", operator="ana")
     assert study.store.heritability() == {"wing": (0.35, None, "pooled 2022-2023")}
     assert len(study.store.heritability_entries()) == 2
+    first, latest = study.store.heritability_records()
+    assert (first.trait, first.value, first.se, first.source, first.operator) == ("wing", 0.3, 0.1, "2023 parent-offspring", "ana")
+    assert (latest.value, latest.se, latest.source) == (0.35, None, "pooled 2022-2023") and latest.id > first.id
     with pytest.raises(RecordError):
         study.store.set_heritability("mass", 0.3, 0.1, "x")
     with pytest.raises(RecordError):

@@ -319,7 +319,7 @@ async def test_flags_resolve_with_a_reason_and_move_to_history(study, write_batc
         await pilot.press("2")
         await pilot.pause()
         screen = app.screen
-        assert screen.rows and screen.rows[0]["id"] == flag.id
+        assert screen.rows and screen.rows[0].id == flag.id
         text = screen_text(app)
         assert "45.1" in text and "where the value sits" in text
         await pilot.press("e")
@@ -329,14 +329,14 @@ async def test_flags_resolve_with_a_reason_and_move_to_history(study, write_batc
         assert "Reason is required" in screen_text(app)
         app.screen.query_one("#form-reason").value = "decimal slip, animal re-measured at 4.51"
         await pilot.press("ctrl+s")
-        await wait_for(app, pilot, lambda: not any(f["id"] == flag.id and f["status"] == "open"
+        await wait_for(app, pilot, lambda: not any(f.id == flag.id and f.status == "open"
                                                    for f in app.snapshot.flags), what="the flag resolved")
         resolved = [f for f in study.store.flags(include_resolved=True) if f.id == flag.id][0]
         assert resolved.status == "exclude" and resolved.reason.startswith("decimal slip")
-        assert all(r["id"] != flag.id for r in screen.rows)
+        assert all(r.id != flag.id for r in screen.rows)
         await pilot.press("h")
         await pilot.pause()
-        assert any(r["id"] == flag.id for r in screen.rows)
+        assert any(r.id == flag.id for r in screen.rows)
         assert "History" in screen_text(app)
 
 
@@ -482,7 +482,7 @@ async def test_flags_correct_a_value(study, write_batch, hopper_rows):
         await wait_for(app, pilot, lambda: ready(app))
         await pilot.press("2")
         await pilot.pause()
-        assert app.screen.rows[0]["kind"] == "out_of_range"
+        assert app.screen.rows[0].kind == "out_of_range"
         # kinds in plain words on screen, not the store's names
         assert "out of range 1" in screen_text(app) and "out_of_range" not in screen_text(app)
         await pilot.press("c")
@@ -490,7 +490,7 @@ async def test_flags_correct_a_value(study, write_batch, hopper_rows):
         app.screen.query_one("#form-value").value = "1.74"
         app.screen.query_one("#form-reason").value = "sheet re-read: 1.74"
         await pilot.press("ctrl+s")
-        await wait_for(app, pilot, lambda: not any(f["status"] == "open" and f["kind"] == "out_of_range"
+        await wait_for(app, pilot, lambda: not any(f.status == "open" and f.kind == "out_of_range"
                                                    for f in app.snapshot.flags), what="the correction")
         frame = app.snapshot.frame
         assert frame.loc[frame["tag"] == tag, "tibia"].item() == pytest.approx(1.74)
@@ -533,7 +533,7 @@ async def test_flags_keep_a_whole_group_with_one_reason(study, write_batch, hopp
         assert "Keep all 3 out_of_range flags of batch 1 at Gull Flat" in screen_text(app)
         app.screen.query_one("#form-reason").value = "checked: large animals this week"
         await pilot.press("ctrl+s")
-        await wait_for(app, pilot, lambda: not any(f["status"] == "open" and f["kind"] == "out_of_range"
+        await wait_for(app, pilot, lambda: not any(f.status == "open" and f.kind == "out_of_range"
                                                    for f in app.snapshot.flags), what="the group kept")
         kept = [f for f in study.store.flags(include_resolved=True) if f.id in ids]
         assert {f.status for f in kept} == {"keep"} and {f.reason for f in kept} == {"checked: large animals this week"}

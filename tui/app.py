@@ -472,7 +472,7 @@ class FieldslopeApp(App):
         snap = self.snapshot
         if snap is not None:
             parts.append(f" │ {snap.n_batches} batches │ {snap.flags_open} flags │ {snap.refreshed_at}")
-            if snap.sensitivity:
+            if snap.outliers_left_out:
                 parts.append((" │ outliers out", "bold $warning"))
             if self.readonly:
                 parts.append((" │ read-only", "bold $warning"))

@@ -8,10 +8,11 @@ estimators through :mod:`tui.bridge` (one path from records to numbers).
 from __future__ import annotations
 
 from pathlib import Path
+from types import MappingProxyType
 from typing import Callable
 
 from fieldslope.common.names import Q, Outcome
-from fieldslope.tui.snapshot import Snapshot, records
+from fieldslope.tui.snapshot import Sensitivity, Snapshot
 
 
 def open_study(study_dir: Path):
@@ -145,28 +146,25 @@ def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity
         store = study.store
         frame = store.effective_frame(without_open_outliers=sensitivity)
         included = store.effective_frame() if sensitivity else None
-        flags = records(store.flags(include_resolved=True))
-        batches = records(store.batches())
-        h2 = records(store.heritability_entries())
+        flags = tuple(store.flags(include_resolved=True))
+        batches = tuple(store.batches())
+        h2 = store.heritability_records()
         h2_values = store.heritability() or None
     finally:
         _close(study)
     est = estimates_for_frame(frame, study.protocol, bootstrap=0, h2=h2_values)
-    extras: dict = {"h2": h2_values}
+    kept_in = None
     if included is not None:
-        # the other side of the sensitivity comparison: gradients with the open outliers kept in
+        # the other side of the sensitivity comparison: S, β and γ with the open outliers kept in
         t = estimates_for_frame(included, study.protocol, bootstrap=0, h2=h2_values).table
         t = t[t["quantity"].isin(SENSITIVITY_QUANTITIES) & t["estimate"].notna()]
-        extras["with_outliers"] = {
+        kept_in = Sensitivity(MappingProxyType({
             (s, site, f, q, term): float(v) for s, site, f, q, term, v in zip(
-                t["season"], t["site"], t["fitness"], t["quantity"], t["term"], t["estimate"])}
-        extras["gradient_with_outliers"] = {
-            (s, site, f, term): v for (s, site, f, q, term), v in extras["with_outliers"].items() if q == Q.GRADIENT}
+                t["season"], t["site"], t["fitness"], t["quantity"], t["term"], t["estimate"])}))
     return Snapshot(
         protocol=study.protocol, table=est.table, notes=tuple(est.notes), frame=frame, flags=flags,
         batches=batches, heritability=h2, data_version=version, refreshed_at=refreshed_at,
-        sensitivity=sensitivity, intervals=False, generation=generation, readonly=readonly,
-        extras=extras,
+        sensitivity=kept_in, intervals=False, generation=generation, readonly=readonly, h2=h2_values,
     )
 
 
@@ -176,7 +174,7 @@ def add_intervals(snap: Snapshot, *, bootstrap: int, seed: int | None,
     from fieldslope.tui.bridge import estimates_for_frame
 
     est = estimates_for_frame(snap.frame, snap.protocol, bootstrap=bootstrap, seed=seed,
-                              h2=snap.extras.get("h2"), progress=progress)
+                              h2=snap.h2, progress=progress)
     return snap.with_(table=est.table, notes=tuple(est.notes), intervals=True)
 
 
@@ -195,7 +193,7 @@ def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivit
     previous = last_figures = None
     try:
         store = study.store
-        ids = [b["id"] for b in records(store.batches()) if b.get("outcome") != Outcome.REFUSED]
+        ids = [b.id for b in store.batches() if b.outcome != Outcome.REFUSED]
         for k in ids:
             if should_stop():
                 break

@@ -8,16 +8,39 @@ the database. This module does not import Textual.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from functools import cached_property
+from types import MappingProxyType
 from typing import TYPE_CHECKING, Any
 
-from fieldslope.common.names import ALL, Outcome, Status
+from fieldslope.common.names import ALL, Q, Outcome
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from fieldslope.schemas.protocol import Protocol
+    from fieldslope.schemas.store_types import BatchInfo, HeritabilityEntry, StoredFlag
+
+#: A row of the estimates table: (season, site, fitness, quantity, term).
+RowKey = tuple[str, str, str, str, str]
+
+
+@dataclass(frozen=True)
+class Sensitivity:
+    """The comparison shown while the open outlier flags are left out: the point estimates of the
+    same data with those values kept in (S, β and γ: ``tui.loading.SENSITIVITY_QUANTITIES``)."""
+
+    kept_in: Mapping[RowKey, float] = field(default_factory=lambda: MappingProxyType({}))
+
+    def value(self, season: str, site: str, fitness: str, quantity: str, term: str) -> float | None:
+        """The estimate with the open outliers kept in, or None where there is none."""
+        return self.kept_in.get((season, site, fitness, quantity, term))
+
+    def gradients(self, season: str, site: str, fitness: str, traits) -> dict[str, float]:
+        """trait -> β with the open outliers kept in, for the traits that have one."""
+        found = ((t, self.value(season, site, fitness, Q.GRADIENT, t)) for t in traits)
+        return {t: v for t, v in found if v is not None}
 
 
 @dataclass(frozen=True)
@@ -26,34 +49,37 @@ class Snapshot:
 
     ``table`` is the tidy estimates table (columns of estimation.md), ``frame``
     the effective data it was computed from (for the pictures and the counts of
-    missing fitness), ``flags`` the open flags as plain dicts, ``batches`` the
-    batch list as plain dicts.
+    missing fitness), ``flags`` every flag (open and resolved), ``batches`` every
+    batch taken in or refused, ``heritability`` every entered h², all as the
+    store's own records. ``sensitivity`` is set while the open outlier flags are
+    left out (None while they are kept in); ``h2`` is the latest entered h² per
+    trait as the estimators take it.
     """
 
     protocol: "Protocol"
     table: "pd.DataFrame"
     notes: tuple            # analysis.table.Note: season, site, fitness, quantity, message
     frame: "pd.DataFrame"
-    flags: tuple[dict, ...]
-    batches: tuple[dict, ...]
-    heritability: tuple[dict, ...]
+    flags: "tuple[StoredFlag, ...]"
+    batches: "tuple[BatchInfo, ...]"
+    heritability: "tuple[HeritabilityEntry, ...]"
     data_version: int
     refreshed_at: str
-    sensitivity: bool = False      # True: open outlier flags left out
+    sensitivity: Sensitivity | None = None
     intervals: bool = False        # True once the bootstrap intervals are in
     generation: int = 0
     readonly: bool = False
-    extras: dict = field(default_factory=dict)
+    h2: "Mapping[str, tuple[float, float | None, str]] | None" = None
 
     # -- what there is ---------------------------------------------------
     @property
     def n_batches(self) -> int:
         """Batches whose rows went into the record (stored or partly stored; not refused ones)."""
-        return sum(1 for b in self.batches if b.get("outcome") in (Outcome.STORED, Outcome.PARTIAL))
+        return sum(1 for b in self.batches if b.outcome in (Outcome.STORED, Outcome.PARTIAL))
 
     @property
     def flags_open(self) -> int:
-        return sum(1 for f in self.flags if f.get("status", Status.OPEN) == Status.OPEN)
+        return sum(1 for f in self.flags if f.is_open)
 
     @property
     def fitness_names(self) -> tuple[str, ...]:
@@ -146,6 +172,15 @@ class Snapshot:
                 out.append(getattr(n, "message", str(n)))
         return out
 
+    @property
+    def outliers_left_out(self) -> bool:
+        return self.sensitivity is not None
+
+    def entered_h2(self, trait: str) -> "HeritabilityEntry | None":
+        """The latest h² entered for a trait (the one the estimators use), or None."""
+        entries = [e for e in self.heritability if e.trait == trait]
+        return entries[-1] if entries else None
+
     def with_(self, **changes: Any) -> "Snapshot":
         return replace(self, **changes)
 
@@ -156,32 +191,4 @@ def _num(v):
     except (TypeError, ValueError):
         return None
     return f if math.isfinite(f) else None
-
-
-def batch_dict(b: Any) -> dict:
-    """A batch record (dataclass, mapping or row) as a plain dict."""
-    return _as_dict(b)
-
-
-def _as_dict(obj: Any) -> dict:
-    if isinstance(obj, dict):
-        return dict(obj)
-    if hasattr(obj, "__dataclass_fields__"):
-        from dataclasses import asdict
-
-        return asdict(obj)
-    if hasattr(obj, "_asdict"):
-        return dict(obj._asdict())
-    if hasattr(obj, "keys"):
-        return {k: obj[k] for k in obj.keys()}
-    return dict(vars(obj))
-
-
-def records(items: Any) -> tuple[dict, ...]:
-    """Store results (a DataFrame, or a list of records) as a tuple of plain dicts."""
-    if items is None:
-        return ()
-    if hasattr(items, "to_dict") and hasattr(items, "columns"):
-        return tuple(items.to_dict("records"))
-    return tuple(_as_dict(x) for x in items)
 

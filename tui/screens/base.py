@@ -36,7 +36,7 @@ class StudyScreen(Screen):
         snap = getattr(self.app, "snapshot", None)
         if snap is None:
             return
-        key = (snap.generation, snap.intervals, snap.sensitivity)
+        key = (snap.generation, snap.intervals, snap.outliers_left_out)
         if force or key != self._shown:
             self._shown = key
             self.show(snap)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -13,6 +14,7 @@ from textual.message import Message
 from textual.widgets import DataTable, Static
 
 from fieldslope.common.names import flag_label
+from fieldslope.schemas.store_types import StoredFlag
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import FormScreen
@@ -20,10 +22,6 @@ from fieldslope.tui.screens.intake import operator_name
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
 from fieldslope.tui.widgets.pictures import histogram_strip
-
-
-def is_open(flag: dict) -> bool:
-    return flag.get("status", "open") == "open"
 
 
 class FlagsScreen(StudyScreen):
@@ -45,7 +43,8 @@ class FlagsScreen(StudyScreen):
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
         self.history = False
-        self.rows: list[dict] = []
+        self.rows: list[StoredFlag] = []        # the table's rows, in order
+        self.sites: dict[int, str] = {}          # flag id -> the site of its record
         self._index_key: int | None = None
         self._index: dict = {}
 
@@ -66,25 +65,25 @@ class FlagsScreen(StudyScreen):
                 (str(i), str(s)): k for k, (i, s) in enumerate(zip(f[p.id_col], f[p.season_col]))}
         return self._index
 
-    def record_of(self, snap: Snapshot, flag: dict):
-        k = self.record_index(snap).get((str(flag.get("individual")), str(flag.get("season"))))
+    def record_of(self, snap: Snapshot, flag: StoredFlag):
+        k = self.record_index(snap).get((str(flag.individual), str(flag.season)))
         return None if k is None else snap.frame.iloc[k]
 
-    def site_of(self, snap: Snapshot, flag: dict) -> str:
+    def group_of(self, flag: StoredFlag) -> tuple[str, str, int]:
+        """Flags shown together and resolved together: same kind, site and batch."""
+        return flag.kind, self.sites.get(flag.id, ""), flag.batch_id
+
+    def site_of(self, snap: Snapshot, flag: StoredFlag) -> str:
         rec = self.record_of(snap, flag)
         groups = snap.protocol.groups
         return "" if rec is None or not groups else "/".join(str(rec[g]) for g in groups)
 
     def show(self, snap: Snapshot) -> None:
-        flags = [dict(f) for f in snap.flags if is_open(f) != self.history]
-        for f in flags:
-            f["_site"] = self.site_of(snap, f)
-        flags.sort(key=lambda f: (f.get("kind", ""), f["_site"], f.get("batch_id") or 0, str(f.get("individual"))))
+        flags = [f for f in snap.flags if f.is_open != self.history]
+        self.sites = {f.id: self.site_of(snap, f) for f in flags}
+        flags.sort(key=lambda f: (f.kind, self.sites[f.id], f.batch_id or 0, str(f.individual)))
         self.rows = flags
-        open_flags = [f for f in snap.flags if is_open(f)]
-        counts: dict[str, int] = {}
-        for f in open_flags:
-            counts[f.get("kind", "")] = counts.get(f.get("kind", ""), 0) + 1
+        counts = Counter(f.kind for f in snap.flags if f.is_open)
         head = [("History (resolved flags)  " if self.history else "Open flags  ", "bold")]
         head += [(f"{flag_label(k)} {v}  ", "$warning") for k, v in sorted(counts.items())] or [("none", "$success")]
         self.query_one("#flags-counts", Static).update(assemble(*head))
@@ -93,12 +92,12 @@ class FlagsScreen(StudyScreen):
         table.clear()
         last = None
         for f in flags:
-            group = (f.get("kind"), f["_site"], f.get("batch_id"))
+            group = self.group_of(f)
             kind = flag_label(group[0])
             shown = ("", "", "") if group == last else (kind, str(group[1])[:14], str(group[2]))
             last = group
-            table.add_row(*shown, str(f.get("individual", "")), str(f.get("field", ""))[:10],
-                          str(f.get("value", ""))[:12], key=str(f.get("id")))
+            table.add_row(*shown, str(f.individual), str(f.field)[:10],
+                          str(f.value)[:12], key=str(f.id))
         if flags:
             table.move_cursor(row=max(0, min(keep, len(flags) - 1)))
             self.detail(snap, flags[table.cursor_row])
@@ -112,32 +111,32 @@ class FlagsScreen(StudyScreen):
         if snap is not None and 0 <= event.cursor_row < len(self.rows):
             self.detail(snap, self.rows[event.cursor_row])
 
-    def detail(self, snap: Snapshot, flag: dict) -> None:
+    def detail(self, snap: Snapshot, flag: StoredFlag) -> None:
         p = snap.protocol
-        lines: list[Content] = [assemble((f"{flag_label(flag.get('kind'))}: ", "bold $warning"), str(flag.get("message", "")))]
-        lines.append(literal(f"flag {flag.get('id')}, batch {flag.get('batch_id')} {flag.get('file_name', '')}, "
-                             f"sheet row {flag.get('row')}"))
-        if not is_open(flag):
-            lines.append(assemble((f"{flag.get('status')} ", "bold"),
-                                          f"by {flag.get('resolved_by')} at {flag.get('resolved_at')}: {flag.get('reason')}",
-                                          f" (new value {flag.get('new_value')})" if flag.get("new_value") else ""))
+        lines: list[Content] = [assemble((f"{flag_label(flag.kind)}: ", "bold $warning"), str(flag.message))]
+        lines.append(literal(f"flag {flag.id}, batch {flag.batch_id} {flag.file_name}, "
+                             f"sheet row {flag.row}"))
+        if not flag.is_open:
+            lines.append(assemble((f"{flag.status} ", "bold"),
+                                          f"by {flag.resolved_by} at {flag.resolved_at}: {flag.reason}",
+                                          f" (new value {flag.new_value})" if flag.new_value else ""))
         f = snap.frame
         if f is not None and not f.empty:
             r = self.record_of(snap, flag)
             if r is not None:
                 shown = [f"{c}={_short(r[c])}" for c in (*p.groups, *p.trait_names, *p.component_names) if c in f.columns]
-                lines.append(assemble(("record ", "$text-muted"), f"{flag.get('individual')} {flag.get('season')}: ",
+                lines.append(assemble(("record ", "$text-muted"), f"{flag.individual} {flag.season}: ",
                                               " ".join(shown)))
-            field = flag.get("field")
+            field = flag.field
             if field in f.columns and field in p.traits:
-                site = flag.get("_site") or self.site_of(snap, flag)
-                cell = snap.cell_frame(str(flag.get("season")), site) if site else f
+                site = self.sites.get(flag.id) or self.site_of(snap, flag)
+                cell = snap.cell_frame(str(flag.season), site) if site else f
                 try:
-                    value = float(str(flag.get("value")).replace(",", "."))
+                    value = float(str(flag.value).replace(",", "."))
                 except ValueError:
                     value = None
                 lines.append(assemble(("where the value sits among ", "$text-muted"),
-                                              f"{field} in season {flag.get('season')}, site {site or 'all'}:"))
+                                              f"{field} in season {flag.season}, site {site or 'all'}:"))
                 lines.append(histogram_strip(cell[field].tolist(), value, width=max(20, self.size.width - 4)))
         self.query_one("#flags-detail", Static).update(Content("\n").join(lines))
 
@@ -152,7 +151,7 @@ class FlagsScreen(StudyScreen):
              "set": "The new value is used from now on; the old one stays in the history."}
     VERBS = {"keep": "Keep", "exclude": "Exclude", "set": "Correct"}
 
-    def _picked(self) -> dict | None:
+    def _picked(self) -> StoredFlag | None:
         table = self.query_one("#flags-table", DataTable)
         if self.history or not self.rows or not (0 <= table.cursor_row < len(self.rows)):
             self.app.notify("Pick an open flag first.", severity="warning")
@@ -167,15 +166,15 @@ class FlagsScreen(StudyScreen):
         flag = self._picked()
         if flag is None:
             return
-        what = f"{flag.get('individual')} {flag.get('field') or 'record'} = {flag.get('value')!s} ({flag_label(flag.get('kind'))})"
+        what = f"{flag.individual} {flag.field or 'record'} = {flag.value!s} ({flag_label(flag.kind)})"
         fields = [("reason", "Reason", "")]
         if action == "set":
-            fields.insert(0, ("value", "New value", str(flag.get("value") or "")))
+            fields.insert(0, ("value", "New value", str(flag.value or "")))
         required = ("reason", "value") if action == "set" else ("reason",)
 
         def done(values: dict | None) -> None:
             if values:
-                self._resolve_worker(self.app.study_dir, [int(flag["id"])], action, values.get("value"),
+                self._resolve_worker(self.app.study_dir, [flag.id], action, values.get("value"),
                                      values["reason"])
 
         self.app.push_screen(FormScreen(f"{self.VERBS[action]}: {what}", self.TEXTS[action], fields, required), done)
@@ -185,8 +184,8 @@ class FlagsScreen(StudyScreen):
         flag = self._picked()
         if flag is None:
             return
-        group = (flag.get("kind"), flag["_site"], flag.get("batch_id"))
-        ids = [int(f["id"]) for f in self.rows if (f.get("kind"), f["_site"], f.get("batch_id")) == group]
+        group = self.group_of(flag)
+        ids = [f.id for f in self.rows if self.group_of(f) == group]
         title = (f"{self.VERBS[action]} all {len(ids)} {group[0]} flags of batch {group[2]}"
                  + (f" at {group[1]}" if group[1] else ""))
 

@@ -95,16 +95,16 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         otherwise; an estimate equal to the latest entry is labelled as entered.
         """
         rows = snap.rows(quantity=Q.HERITABILITY, term=trait)
-        entry = _entered(snap, trait)
+        entry = snap.entered_h2(trait)
         if not rows.empty:
             r = rows.iloc[0]
             est = snap.value(r["season"], r["site"], r["fitness"], Q.HERITABILITY, trait)
             if entry and est is not None and est["estimate"] is not None \
-                    and abs(float(entry["value"]) - est["estimate"]) < 1e-12:
-                return est, f"entered: {entry.get('source', '')}"
+                    and abs(entry.value - est["estimate"]) < 1e-12:
+                return est, f"entered: {entry.source}"
             return est, "parent–offspring"
         if entry:
-            return {"estimate": float(entry["value"]), "se": entry.get("se")}, f"entered: {entry.get('source', '')}"
+            return {"estimate": entry.value, "se": entry.se}, f"entered: {entry.source}"
         return None, "none: press h"
 
     def show(self, snap: Snapshot) -> None:
@@ -300,7 +300,3 @@ def _genetics_row(gen, quantity: str, term: str, fitness: str) -> dict | None:
 def _e(row: dict | None) -> str:
     return "–" if row is None else fmt(row["estimate"])
 
-
-def _entered(snap: Snapshot, trait: str) -> dict | None:
-    entries = [e for e in snap.heritability if e.get("trait") == trait]
-    return entries[-1] if entries else None

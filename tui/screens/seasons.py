@@ -140,7 +140,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
             self.query_one("#sea-trend-pic", Static).update(
                 "No season has a β yet: β needs fitness, which arrives with the census batches.")
             return
-        key = (snap.generation, snap.sensitivity, c.season, c.fitness)
+        key = (snap.generation, snap.outliers_left_out, c.season, c.fitness)
         if key == self.trend_key:
             return
         self.trend_key = key

@@ -156,7 +156,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         parts = [("n ", "$text-muted"), (str(int(n)) if n is not None else "–", "bold"),
                  ("  missing fitness ", "$text-muted"), (str(missing), "bold"),
                  ("  I ", "$text-muted"), (fmt(opp["estimate"]) if opp else "–", "bold")]
-        if snap.sensitivity:
+        if snap.outliers_left_out:
             parts.append(("  open outliers left out", "bold $warning"))
         if not snap.intervals:
             parts.append(("  intervals: computing …" if self.app.bootstrap else "  intervals off", "$accent"))
@@ -166,7 +166,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         c = self.choices
         key = dict(season=c.season, site=c.site, fitness=c.fitness)
         wait = not snap.intervals and self.app.bootstrap > 0
-        kept = snap.extras.get("with_outliers") if snap.sensitivity else None
+        kept = snap.sensitivity
         lin = self.query_one("#sel-linear", DataTable)
         gam = self.query_one("#sel-gamma", DataTable)
         self._columns(lin, gam, kept is not None)
@@ -175,7 +175,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             """The figure with the open outliers kept in (an extra column in the comparison only)."""
             if kept is None:
                 return []
-            v = kept.get((c.season, c.site, c.fitness, quantity, term))
+            v = kept.value(c.season, c.site, c.fitness, quantity, term)
             return ["–" if v is None else fmt(v)]
 
         lin.clear()
@@ -201,10 +201,9 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
                             p_text(v, wait) if quantity != Q.CANONICAL else "", *extra, key=f"{quantity}:{term}")
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
         parts: list[tuple[str, str]] = []
-        kept_b = snap.extras.get("gradient_with_outliers")
-        if snap.sensitivity and kept_b is not None:
-            shown = [f"{t} {fmt(kept_b[(c.season, c.site, c.fitness, t)])}" for t in snap.protocol.trait_names
-                     if (c.season, c.site, c.fitness, t) in kept_b]
+        if kept is not None:
+            kept_b = kept.gradients(c.season, c.site, c.fitness, snap.protocol.trait_names)
+            shown = [f"{t} {fmt(v)}" for t, v in kept_b.items()]
             parts.append(("β with the open outliers kept in: " + (", ".join(shown) or "none") + "; the columns "
                           "marked (in) give S, β and γ with them kept in, all other figures leave them out. ",
                           "$warning"))
