@@ -37,6 +37,7 @@ from fieldslope.tui.messages import (
     IntervalsReady,
     Polled,
     PointsReady,
+    ReportWritten,
     StoreWritten,
     StudyFailed,
     StudyReady,
@@ -75,6 +76,10 @@ class FieldslopeCommands(Provider):
                             lambda m=mode: app.action_show(m)))
             out += [
                 ("Refresh now", "re-read the store and recompute the estimates", app.action_refresh),
+                ("Write the report", "an HTML page and its pictures, into the study's reports folder",
+                 app.action_write_report),
+                ("Save a screenshot", "an SVG picture of this screen, into the study's reports folder",
+                 lambda: app.deliver_screenshot()),
                 ("Toggle open outliers", "show the estimates with or without open outlier flags",
                  app.action_toggle_sensitivity),
                 ("Take in a file by path", "open a batch file that is not in the drop folder",
@@ -127,6 +132,7 @@ class FieldslopeApp(App):
         Binding("5", "show('seasons')", "Seasons screen", id="go_seasons", show=False),
         Binding("o", "toggle_sensitivity", "Outliers in/out", id="sensitivity", show=False),
         Binding("ctrl+r", "refresh", "Refresh now", id="refresh", show=False),
+        Binding("p", "write_report", "Write the report into reports/", id="write_report", show=False),
         Binding("ctrl+q", "quit", "Quit", id="quit", show=False),
     ]
 
@@ -426,6 +432,8 @@ class FieldslopeApp(App):
             self._mark_updating("")
             if group == "points":
                 self.schedule_poll()
+        elif group == "report":
+            self.note = ""
         elif group == "poll":
             # try again after a pause, so a locked or vanished store does not end live refresh
             self._poller = None
@@ -490,7 +498,7 @@ class FieldslopeApp(App):
 
     # -- actions -----------------------------------------------------------
     def check_action(self, action: str, parameters: tuple) -> bool | None:
-        if action in ("show", "toggle_sensitivity", "refresh") and not self.study_ready:
+        if action in ("show", "toggle_sensitivity", "refresh", "write_report") and not self.study_ready:
             return False
         return True
 
@@ -519,6 +527,51 @@ class FieldslopeApp(App):
     def action_refresh(self) -> None:
         if self.study_ready:
             self.start_points()
+
+    # -- the report and screenshots (into the study's reports/ folder) ----
+    def action_write_report(self) -> None:
+        if not self.study_ready or self.study_dir is None:
+            return
+        self.note = "writing the report …"
+        self.refresh_status()
+        self.write_report()
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="report")
+    def write_report(self) -> None:
+        from fieldslope.tui.report_task import write_study_report
+
+        page, figures, count = write_study_report(self.study_dir, bootstrap=self.bootstrap, seed=self.seed)
+        self.post_message(ReportWritten(str(page), str(figures), count))
+
+    def on_report_written(self, msg: ReportWritten) -> None:
+        self.note = ""
+        self.notify(f"Report written to {msg.page} ({msg.count} pictures in {msg.figures})", timeout=12)
+        self.refresh_status()
+
+    def deliver_screenshot(self, filename: str | None = None, path: str | None = None,
+                           time_format: str | None = None) -> str | None:
+        """Save an SVG screenshot into the study's reports/ folder (the current folder without a study)
+        and say where; Textual's default wants a downloads folder, which many accounts lack."""
+        from fieldslope.common.errors import FieldslopeError
+
+        try:
+            if path is None:
+                if self.study_dir is not None and self.study_ready:
+                    from fieldslope.tui.report_task import reports_dir
+
+                    path = str(reports_dir(self.study_dir))
+                else:
+                    path = str(Path.cwd())
+            saved = self.save_screenshot(filename, path, time_format)
+        except FieldslopeError as exc:
+            self.notify(str(exc), severity="error", timeout=10)
+            return None
+        except OSError as exc:
+            self.notify(f"{path}: cannot save the screenshot ({exc.strerror}); check the folder.",
+                        severity="error", timeout=10)
+            return None
+        self.notify(f"Screenshot saved to {saved}", timeout=10)
+        return saved
 
 
 WRITE_GROUPS = ("intake-import", "flags-resolve", "resp-h2")

@@ -67,3 +67,12 @@ class StoreWritten(Message):
     """A screen stored something (batch, correction, h²): refresh without waiting for the poll."""
 
     what: str
+
+
+@dataclass
+class ReportWritten(Message):
+    """The report and its pictures were written (by the report worker)."""
+
+    page: str
+    figures: str
+    count: int
