@@ -19,7 +19,7 @@ async def test_key_writes_the_report_and_figures_into_reports(filled):  # noqa: 
         await pilot.press(binding.key)
         folder = filled.root / "reports"
         await wait_for(app, pilot, lambda: any(folder.glob("report-*.html")) and "Report written" in notices(app),
-                       what="the report")
+                       what="the report", timeout=180)   # twenty pictures: slow on a loaded machine
         page = next(folder.glob("report-*.html"))
         assert "<h2" in page.read_text(encoding="utf-8")
         figures = next(folder.glob("figures-*"))
@@ -34,9 +34,9 @@ async def test_palette_writes_the_report_and_screenshots_go_to_reports(filled, m
         await wait_for(app, pilot, lambda: ready(app))
         await run_from_palette(pilot, "write the report")
         folder = filled.root / "reports"
-        await wait_for(app, pilot, lambda: "Report written" in notices(app), what="the report")
+        await wait_for(app, pilot, lambda: "Report written" in notices(app), what="the report", timeout=180)
         await run_from_palette(pilot, "save a screenshot")
-        await wait_for(app, pilot, lambda: any(folder.glob("*.svg")), what="the screenshot")
+        await wait_for(app, pilot, lambda: any(folder.glob("*.svg")), what="the screenshot", timeout=60)
         shot = next(folder.glob("*.svg"))
         assert shot.read_text(encoding="utf-8").lstrip().startswith("<svg")
         assert str(shot) in notices(app) and not app.error
