@@ -169,3 +169,16 @@ def test_a_browser_renders_the_page(made, tmp_path):
     lo, hi = image.getextrema()
     assert hi - lo > 100                               # not blank: dark text on a light page
     assert sum(image.histogram()[:128]) > 2000          # many dark pixels: text and pictures drawn
+
+
+def test_a_tiny_p_value_is_escaped_text():
+    import html5lib
+
+    from fieldslope.tui.report import _row
+
+    row = type("Row", (), dict(season="2024", site="all", fitness="total", quantity="gradient_q", term="wing",
+                               estimate=12.5, se=float("nan"), ci_low=None, ci_high=None, p_value=0.0002, n=80))()
+    page = f"<!DOCTYPE html><html><head><title>t</title></head><body><table>{_row(row)}</table></body></html>"
+    doc = html5lib.HTMLParser(strict=True, namespaceHTMLElements=False).parse(page)
+    cells = ["".join(td.itertext()) for td in doc.iter("td")]
+    assert cells[5] == "<0.001"

@@ -444,7 +444,7 @@ def _row(r) -> str:
     return (f"<tr{cls} data-key=\"{esc(key)}\" data-value=\"{exact}\">"
             f"<td>{esc(LABELS.get(r.quantity, r.quantity))}</td><td>{esc(r.term)}</td>"
             f"<td class=\"num\">{num(value)}</td><td class=\"num\">{num(_f(r.se))}</td>"
-            f"<td class=\"num\">{interval}</td><td class=\"num\">{p_text(_f(r.p_value))}</td>"
+            f"<td class=\"num\">{interval}</td><td class=\"num\">{html.escape(p_text(_f(r.p_value)))}</td>"
             f"<td class=\"num\">{n}</td></tr>")
 
 
