@@ -291,3 +291,27 @@ def test_flags_all_shows_a_superseded_flag_with_its_batch(folder, protocol_file,
     open_now = call(capsys, "flags", "--study", study)[1]
     heads = [line for line in open_now.splitlines() if line.startswith("#")]
     assert len(heads) == 1 and "wing = 4.12" in heads[0]
+
+
+def test_batches_lists_the_days_intake(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    assert call(capsys, "import", str(folder / "measured.csv"), "--study", study, "--operator", "ana")[0] == 0
+    assert call(capsys, "import", str(folder / "late.csv"), "--study", study, "--operator", "bo")[0] == 1
+    assert call(capsys, "import", str(folder / "late.csv"), "--study", study, "--operator", "bo",
+                "--accept-valid")[0] == 0
+    code, out, err = call(capsys, "batches", "--study", study)
+    assert code == 0 and err == ""
+    lines = out.splitlines()
+    assert lines[0] == "3 batches (1 partial, 1 refused, 1 stored); times are local"
+    assert lines[1].startswith("#1 ") and "stored   12 rows stored  by ana" in lines[1]
+    assert lines[2].strip() == "measured.csv"
+    assert "refused  2 rows, none stored (1 error)  by bo" in lines[3]
+    assert "partial  1 of 2 rows stored, 1 quarantined  by bo" in lines[5]
+    assert all(len(line) <= 80 for line in lines)
+    code, out, _ = call(capsys, "batches", "--day", "today", "--study", study)
+    assert code == 0 and out.startswith("3 batches received on ")
+    code, out, _ = call(capsys, "batches", "--day", "2001-02-03", "--study", study)
+    assert code == 0 and out == "no batches received on 2001-02-03\n"
+    code, _, err = call(capsys, "batches", "--day", "Tuesday", "--study", study)
+    assert code == 2 and "'Tuesday' is not a day; write it as YYYY-MM-DD" in one_line(err)

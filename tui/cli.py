@@ -81,6 +81,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--reason", metavar="TEXT", required=True, help="why (kept with the change)")
     p.add_argument("--operator", metavar="NAME", help="who resolves it (default: your login name)")
 
+    p = command("batches", "list the batches received: outcome, rows, operator, time and file")
+    p.add_argument("--day", metavar="DAY", type=_day, help="only those received that day: today, yesterday or "
+                   "YYYY-MM-DD (your computer's calendar)")
+
     p = command("history", "one individual's values, flags and changes")
     p.add_argument("individual", metavar="ID")
 
@@ -131,6 +135,15 @@ def _flag_id(text: str) -> int:
     if value <= 0:
         raise argparse.ArgumentTypeError(f"{text!r} is not a flag number (see fieldslope flags)")
     return value
+
+
+def _day(text: str):
+    from fieldslope.tui.batch_list import parse_day
+
+    try:
+        return parse_day(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def _count(text: str) -> int:

@@ -19,7 +19,7 @@ def run(args) -> int:
     if command is None:
         return dashboard(args)
     return {"init": init, "check": check, "import": import_, "flags": flags, "resolve": resolve,
-            "history": history, "estimate": estimate, "demo": demo, "summary": summary,
+            "history": history, "batches": batches, "estimate": estimate, "demo": demo, "summary": summary,
             "changes": changes, "report": report}[command](args)
 
 
@@ -103,6 +103,17 @@ def resolve(args) -> int:
         res = study.store.resolve_flag(args.flag, action, value=args.set, reason=args.reason,
                                        operator=args.operator)
     fmt.say(res.message)
+    return 0
+
+
+def batches(args) -> int:
+    from fieldslope.tui import batch_list
+
+    with _open(args) as study:
+        found = study.store.batches()
+    if args.day is not None:
+        found = batch_list.on_day(found, args.day)
+    fmt.print_batches(found, day=args.day)
     return 0
 
 

@@ -92,6 +92,24 @@ def print_flags(flags, out: TextIO | None = None) -> None:
             print(wrap(f"{change}why: {f.reason} ({f.resolved_at})"), file=out)
 
 
+def print_batches(batches, day=None, out: TextIO | None = None) -> None:
+    """One line per batch (number, local time, outcome, rows, operator), its file on the next line."""
+    from fieldslope.tui.batch_list import plural, rows_text, when_text
+
+    out = out or sys.stdout
+    where = f" received on {day.isoformat()}" if day is not None else ""
+    if not batches:
+        print(f"no batches{where}" + ("" if day is not None else "; take files in with fieldslope import FILE"),
+              file=out)
+        return
+    counts = Counter(b.outcome for b in batches)
+    parts = ", ".join(f"{n} {o}" for o, n in sorted(counts.items()))
+    print(f"{plural(len(batches), 'batch')}{where} ({parts}); times are local", file=out)
+    for b in batches:
+        print(f"#{b.id:<4} {when_text(b.received)}  {b.outcome:<8} {rows_text(b)}  by {b.operator}", file=out)
+        print(f"      {b.file_name}", file=out)
+
+
 def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = None) -> None:
     out = out or sys.stdout
     print(f"{escape_controls(individual)}: {len(frame)} events", file=out)
