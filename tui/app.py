@@ -43,6 +43,7 @@ from fieldslope.tui.messages import (
     StudyReady,
 )
 from fieldslope.tui.snapshot import Snapshot
+from fieldslope.tui.typeahead import TypeAheadApp
 
 SCREENS_IN_ORDER = ("intake", "flags", "selection", "response", "seasons")
 SCREEN_TITLES = {
@@ -106,7 +107,7 @@ class FieldslopeCommands(Provider):
                 yield Hit(score, matcher.highlight(name), callback, help=help_text)
 
 
-class FieldslopeApp(App):
+class FieldslopeApp(TypeAheadApp):
     """The dashboard.
 
     ``study_dir``: the study folder (None, or a folder without a study, opens
