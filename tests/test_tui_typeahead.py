@@ -37,3 +37,16 @@ async def test_heritability_dialog_takes_typed_ahead_keys_in_their_fields(filled
         burst(app, "h", "0.4", "tab", "0.1", "tab", "src")
         await wait_for(app, pilot, lambda: field_values(app).get("form-source") == "src", what="all keys")
         assert field_values(app) == {"form-value": "0.4", "form-se": "0.1", "form-source": "src"}
+
+
+async def test_seasons_escape_leaves_the_width_field(filled):
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        burst(app, "5", "n", "0.3", "escape", "3")
+        await wait_for(app, pilot, lambda: app.current_mode == "selection", what="the Selection screen")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        await pilot.press("5")
+        await pilot.pause()
+        assert app.screen.query_one("#sea-width").value == "0.3"   # the 3 after Esc switched screens

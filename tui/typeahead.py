@@ -66,7 +66,7 @@ class TypeAheadApp(App):
     async def _screen_built(self, screen: Screen) -> None:
         if self._building is screen:
             self._building = None
-            await self._hand_on()
+            self.call_later(self._hand_on)
 
     # -- keys, one at a time -------------------------------------------------
     async def on_event(self, event: events.Event) -> None:
@@ -107,4 +107,6 @@ class TypeAheadApp(App):
     async def _key_done(self, key: events.Key) -> None:
         if self._key_in_hand is key:
             self._key_in_hand = None
-            await self._hand_on()
+            # through the app's queue: what the key asked for (``focus()`` queues the focus change there)
+            # happens before the next key is handed on
+            self.call_later(self._hand_on)

@@ -12,7 +12,7 @@ from textual.binding import Binding
 from textual.containers import Horizontal, VerticalScroll
 from textual.content import Content
 from textual.message import Message
-from textual.widgets import Input, Label, Static, TabbedContent, TabPane
+from textual.widgets import Input, Label, Static, TabbedContent, TabPane, Tabs
 from textual.worker import get_current_worker
 
 from fieldslope.common.names import Q
@@ -72,7 +72,8 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         self.query_one("#sea-width", Input).focus()
 
     def action_leave_field(self) -> None:
-        self.query_one("#sea-tabs", TabbedContent).focus()
+        # the tab row takes the focus (the TabbedContent itself cannot), so the next keys are commands again
+        self.query_one("#sea-tabs", TabbedContent).query_one(Tabs).focus()
 
     # -- across seasons ----------------------------------------------------
     def show(self, snap: Snapshot) -> None:
