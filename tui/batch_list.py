@@ -19,9 +19,12 @@ def local_time(received: str) -> datetime | None:
     return when.astimezone() if when.tzinfo else when
 
 
-def when_text(received: str) -> str:
+def when_text(received: str, short: bool = False) -> str:
+    """Local date and time to the minute; with ``short`` the year is left out when it is this year."""
     when = local_time(received)
-    return when.strftime("%Y-%m-%d %H:%M") if when else str(received)
+    if when is None:
+        return str(received)
+    return when.strftime("%m-%d %H:%M" if short and when.year == date.today().year else "%Y-%m-%d %H:%M")
 
 
 def rows_text(b: BatchInfo) -> str:

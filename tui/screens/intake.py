@@ -43,6 +43,7 @@ class IntakeScreen(StudyScreen):
         Binding("a", "take_valid", "Valid rows only", id="intake_take_valid"),
         Binding("slash", "open_path", "Open path", id="intake_path", key_display="/"),
         Binding("r", "rescan", "Rescan", id="intake_rescan", show=False),
+        Binding("b", "batches", "Batches taken in", id="intake_batches", show=False),
         Binding("escape", "leave_path", "Leave the path field", id="intake_leave", show=False),
     ]
 
@@ -66,11 +67,11 @@ class IntakeScreen(StudyScreen):
         self.current: Path | None = None
         self.checked = None
         self.problems: list[str] = []
-        self._said_empty = False
 
     def body(self) -> ComposeResult:
         yield Static(id="intake-folder", classes="choices")
         yield LiteralTable(id="intake-files", cursor_type="row", classes="panel")
+        yield Static(EMPTY_SENTENCE, id="intake-empty", classes="notes")
         with Horizontal(id="intake-path-row", classes="-hidden"):
             yield Input(placeholder="path of a batch file (CSV, TSV, XLSX); Enter to check", id="intake-path",
                         compact=True)
@@ -81,10 +82,13 @@ class IntakeScreen(StudyScreen):
                 yield Static(id="intake-problem", classes="notes")
             with TabPane("Preview", id="intake-preview"):
                 yield LiteralTable(id="intake-sheet", cursor_type="row")
+            with TabPane("Taken in", id="intake-taken"):
+                yield LiteralTable(id="intake-batches", cursor_type="row", zebra_stripes=True)
 
     def on_mount(self) -> None:
         self.query_one("#intake-files", DataTable).add_columns("file", "size", "status")
         self.query_one("#intake-report", DataTable).add_columns("row", "column", "value", "problem")
+        self.query_one("#intake-batches", DataTable).add_columns("#", "time", "outcome", "stored/rows", "by", "file")
         self.set_interval(1.5, self._tick)
 
     def _tick(self) -> None:
@@ -94,11 +98,31 @@ class IntakeScreen(StudyScreen):
 
     # -- listing -----------------------------------------------------------
     def show(self, snap: Snapshot) -> None:
+        self._folder_line()
+        self._show_batches(snap)
+        self.action_rescan()
+
+    def _folder_line(self) -> None:
+        """The drop folder, and whether it is empty (said on a line of its own, so the result of a file
+        opened by path stays shown below)."""
         from fieldslope.tui.loading import intake_dir
 
         self.query_one("#intake-folder", Static).update(assemble(
             ("Drop folder ", "$text-muted"), (str(intake_dir(self.app.study_dir)), "bold")))
-        self.action_rescan()
+        self.query_one("#intake-files", DataTable).display = bool(self.files)
+        self.query_one("#intake-empty", Static).display = not self.files
+
+    def _show_batches(self, snap: Snapshot) -> None:
+        """The batches already taken in (and refused), newest first."""
+        from fieldslope.schemas.store_types import BatchInfo
+        from fieldslope.tui.batch_list import when_text
+
+        table = self.query_one("#intake-batches", DataTable)
+        table.clear()
+        for b in reversed(snap.batches):
+            b = b if isinstance(b, BatchInfo) else BatchInfo(**b)
+            table.add_row(str(b.id), when_text(b.received, short=True), b.outcome, f"{b.n_stored}/{b.n_rows}", b.operator,
+                          b.file_name, key=str(b.id))
 
     def action_rescan(self) -> None:
         self._list_worker(self.app.study_dir)
@@ -116,15 +140,9 @@ class IntakeScreen(StudyScreen):
         table.clear()
         for f in msg.files:
             table.add_row(f["name"], _size(f["size"]), f["status"], key=str(f["path"]))
-        summary = self.query_one("#intake-summary", Static)
         if msg.files:
             table.move_cursor(row=min(keep, len(msg.files) - 1))
-            if self._said_empty:               # files arrived: the "empty" sentence no longer holds
-                self._said_empty = False
-                summary.update(PICK_HINT)
-        else:
-            self._said_empty = True
-            summary.update(EMPTY_SENTENCE)
+        self._folder_line()
 
     # -- checking ----------------------------------------------------------
     def _selected(self) -> Path | None:
@@ -240,6 +258,11 @@ class IntakeScreen(StudyScreen):
         self.post_message(StoreWritten(text))
         self.action_rescan()
 
+    def action_batches(self) -> None:
+        """Show the batches taken in, or go back to the problems of the file checked."""
+        tabs = self.query_one("#intake-tabs", TabbedContent)
+        tabs.active = "intake-problems" if tabs.active == "intake-taken" else "intake-taken"
+
     # -- by path -----------------------------------------------------------
     def action_open_path(self) -> None:
         row = self.query_one("#intake-path-row")
@@ -284,7 +307,8 @@ def _size(n: int) -> str:
 
 def _summary_line(name: str, r) -> Content:
     if r.outcome == Outcome.DUPLICATE:
-        return assemble((f"{name}: ", "bold"), r.message or "already taken in; nothing to do.")
+        earlier = f" as batch {r.batch_id}" if r.batch_id else ""
+        return assemble((f"{name}: ", "bold"), f"already taken in{earlier}; nothing to do.")
     if r.outcome == Outcome.REFUSED and not r.errors:
         return assemble((f"{name}: ", "bold"), (r.message or "refused", "$error"))
     bad = len(_bad_rows(r))
