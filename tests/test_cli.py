@@ -315,3 +315,13 @@ def test_batches_lists_the_days_intake(folder, protocol_file, capsys):
     assert code == 0 and out == "no batches received on 2001-02-03\n"
     code, _, err = call(capsys, "batches", "--day", "Tuesday", "--study", study)
     assert code == 2 and "'Tuesday' is not a day; write it as YYYY-MM-DD" in one_line(err)
+
+
+def test_batches_shows_file_and_operator_names_literally(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    (folder / "odd\x1b[2J.csv").write_text(MEASURED)
+    assert call(capsys, "import", str(folder / "odd\x1b[2J.csv"), "--study", study, "--operator", "a\x07b")[0] == 0
+    code, out, _ = call(capsys, "batches", "--study", study)
+    assert code == 0 and "\x1b" not in out and "\x07" not in out
+    assert "odd\\x1b[2J.csv" in out and "by a\\x07b" in out

@@ -106,8 +106,9 @@ def print_batches(batches, day=None, out: TextIO | None = None) -> None:
     parts = ", ".join(f"{n} {o}" for o, n in sorted(counts.items()))
     print(f"{plural(len(batches), 'batch')}{where} ({parts}); times are local", file=out)
     for b in batches:
-        print(f"#{b.id:<4} {when_text(b.received)}  {b.outcome:<8} {rows_text(b)}  by {b.operator}", file=out)
-        print(f"      {b.file_name}", file=out)
+        print(f"#{b.id:<4} {when_text(b.received)}  {b.outcome:<8} {rows_text(b)}  by {escape_controls(b.operator)}",
+              file=out)
+        print(f"      {escape_controls(b.file_name)}", file=out)
 
 
 def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = None) -> None:
