@@ -325,3 +325,17 @@ def test_batches_shows_file_and_operator_names_literally(folder, protocol_file, 
     code, out, _ = call(capsys, "batches", "--study", study)
     assert code == 0 and "\x1b" not in out and "\x07" not in out
     assert "odd\\x1b[2J.csv" in out and "by a\\x07b" in out
+
+
+def test_history_shows_every_value_whole(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    dam = "GF-2023-mother-of-the-long-line-0001"
+    (folder / "long.csv").write_text("tag,season,site,wing,tibia,survived,clutch,dam\n"
+                                     f"H01,2024,Gull Flat,4.523456789,1.5,1,3,{dam}\n")
+    assert call(capsys, "import", str(folder / "long.csv"), "--study", study, "--operator", "ana")[0] == 0
+    code, out, _ = call(capsys, "history", "H01", "--study", study)
+    assert code == 0 and "…" not in out
+    assert f"dam recorded: {dam}" in out and "wing recorded: 4.523456789" in out
+    assert "long.csv, row 2, batch 1, by ana" in out
+    assert all(len(line) <= 80 for line in out.splitlines())

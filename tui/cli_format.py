@@ -112,20 +112,41 @@ def print_batches(batches, day=None, out: TextIO | None = None) -> None:
 
 
 def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = None) -> None:
+    """Every event on one line with its value whole (wrapped, never cut); where it came from (file, row,
+    batch, operator) on an indented line whenever that changes."""
     out = out or sys.stdout
-    print(f"{escape_controls(individual)}: {len(frame)} events", file=out)
+    print(f"{escape_controls(individual)}: {len(frame)} events (times in UTC)", file=out)
+    source = None
     for r in frame.itertuples(index=False):
         when = str(r.time).replace("T", " ")[:16]
-        value = cut(r.value, 12)
+        value = escape_controls(r.value)
         if r.event == "corrected":
-            value = f"{cut(r.old or 'blank', 10)} → {cut(r.value, 10)}"
-        src = f"{cut(r.file, 16)} r{r.row}" if r.file else ""
-        who = cut(r.operator, 10)
-        line = f"{when} {cut(r.season, 6):<6} {cut(r.field, 10):<10} {cut(r.event, 18):<18} {value}"
-        line = cut(line, WIDTH - len(src) - len(who) - 2)
-        print(f"{line:<{WIDTH - len(src) - len(who) - 2}} {src} {who}".rstrip(), file=out)
+            value = f"{escape_controls(r.old) or 'blank'} → {value}"
+        field = escape_controls(r.field) or "record"
+        print(_hanging(f"{when}  {escape_controls(r.season)}  {field} {escape_controls(r.event)}"
+                       + (f": {value}" if value else "")), file=out)
+        here = _source(r)
+        if here and here != source:
+            print(wrap(here), file=out)
+        source = here or source
         if r.detail:
             print(wrap(str(r.detail)), file=out)
+
+
+def _source(r) -> str:
+    parts = []
+    if r.file:
+        parts.append(escape_controls(r.file) + ("" if pd.isna(r.row) else f", row {int(r.row)}"))
+    if not pd.isna(r.batch):
+        parts.append(f"batch {int(r.batch)}")
+    if r.operator:
+        parts.append(f"by {escape_controls(r.operator)}")
+    return ", ".join(parts)
+
+
+def _hanging(text: str) -> str:
+    """Wrap an already escaped line at 80 columns, continuation lines indented, no word cut."""
+    return textwrap.fill(text, WIDTH, subsequent_indent="    ", break_long_words=False, break_on_hyphens=False)
 
 
 _HEAD = f"{'quantity':<17} {'term':<10} {'estimate':>9} {'se':>8} {'ci_low':>9} {'ci_high':>9} {'p':>6} {'n':>5}"
