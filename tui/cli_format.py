@@ -136,8 +136,8 @@ def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = Non
 def _source(r) -> str:
     parts = []
     if r.file:
-        parts.append(escape_controls(r.file) + ("" if pd.isna(r.row) else f", row {int(r.row)}"))
-    if not pd.isna(r.batch):
+        parts.append(escape_controls(r.file) + ("" if missing(r.row) else f", row {int(r.row)}"))
+    if not missing(r.batch):
         parts.append(f"batch {int(r.batch)}")
     if r.operator:
         parts.append(f"by {escape_controls(r.operator)}")
