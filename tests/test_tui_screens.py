@@ -11,6 +11,7 @@ import time
 from pathlib import Path
 
 import pytest
+from textual.worker import WorkerCancelled
 
 from fieldslope.tui.app import FieldslopeApp
 from fieldslope.tui.widgets.pictures import fmt
@@ -30,7 +31,10 @@ async def wait_for(app, pilot, cond, timeout: float = 20.0, what: str = "") -> N
     while time.monotonic() - start < timeout:
         await pilot.pause(0.05)
         if cond():
-            await app.workers.wait_for_complete()
+            try:
+                await app.workers.wait_for_complete()
+            except WorkerCancelled:   # an exclusive worker (the drop-folder rescan) replaced by a newer one
+                await app.workers.wait_for_complete()
             await pilot.pause()
             return
     raise AssertionError(f"timed out waiting for {what or cond}; screen:\n{screen_text(app)}")
