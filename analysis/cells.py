@@ -89,6 +89,17 @@ def split_cells(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
     return out
 
 
+def measured_traits(traits: tuple[str, ...], cells: list[Cell]) -> tuple[tuple[str, ...], list[Cell], list[str]]:
+    """The traits with at least one value in a season's cells, the cells cut to those traits, and the
+    traits the season lacks (a trait added to the protocol in a later season has no values in earlier ones)."""
+    has = [any(np.any(~np.isnan(c.z[:, j])) for c in cells) for j in range(len(traits))]
+    if all(has):
+        return traits, cells, []
+    keep = [j for j, h in enumerate(has) if h]
+    cut = [Cell(c.season, c.site, c.z[:, keep], c.fitness) for c in cells]
+    return tuple(traits[j] for j in keep), cut, [t for t, h in zip(traits, has) if not h]
+
+
 def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Prepared:
     """The samples of ``cell`` for ``fitness``; unusable ones are None with a note saying why."""
     W = cell.fitness[fitness]

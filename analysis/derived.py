@@ -9,7 +9,7 @@ from fieldslope.analysis.design import Design
 from fieldslope.analysis.heritability import code_pedigree, parent_offspring
 from fieldslope.analysis.point import BlockResult
 from fieldslope.analysis.response import breeders_response, genetic_covariance, multivariate_response, response_se
-from fieldslope.analysis.seasons import combine, sign_changes
+from fieldslope.analysis.seasons import combine, sign_changes, significant_sign_changes
 from fieldslope.common.names import ALL, Q
 
 
@@ -88,8 +88,9 @@ def response_rows(season, site, fitness, res: BlockResult, traits, used: dict, r
     return out, assumed
 
 
-def temporal_rows(table_rows: list[dict], season_order: list[str]) -> tuple[list[dict], list[tuple]]:
-    """Across-season rows per site, fitness and trait from the seasons' gradients."""
+def temporal_rows(table_rows: list[dict], season_order: list[str], method: str = "dl") -> tuple[list[dict], list[tuple]]:
+    """Across-season rows per site, fitness and trait from the seasons' gradients (``method``: the
+    random-effects interval, "dl" DerSimonian-Laird or "hk" Hartung-Knapp; see ``seasons.combine``)."""
     rows, notes = [], []
     rank = {s: i for i, s in enumerate(season_order)}
     series: dict[tuple, list] = {}
@@ -103,10 +104,16 @@ def temporal_rows(table_rows: list[dict], season_order: list[str]) -> tuple[list
                           f"Gradients of {term} at site {site} exist for one season only, so nothing is combined across seasons."))
             continue
         b = np.array([r["estimate"] for r in rs])
-        c = combine(b, np.array([r["se"] for r in rs]))
+        c = combine(b, np.array([r["se"] for r in rs]), method)
         n = int(sum(r["n"] for r in rs))
-        rows.append(row(ALL, site, fitness, Q.GRADIENT_MEAN, term, c.mean, c.se, n=n))
+        lo, hi = c.interval
+        rows.append(row(ALL, site, fitness, Q.GRADIENT_MEAN, term, c.mean, c.se, n=n) | dict(ci_low=lo, ci_high=hi))
+        rows.append(row(ALL, site, fitness, Q.GRADIENT_MEAN_RE, term, c.mean_re, c.se_re, p=c.p_re, n=n)
+                    | dict(ci_low=c.ci_re[0], ci_high=c.ci_re[1]))
         rows.append(row(ALL, site, fitness, Q.GRADIENT_TAU2, term, c.tau2, n=n))
         rows.append(row(ALL, site, fitness, Q.GRADIENT_Q, term, c.q, p=c.q_p, n=n))
         rows.append(row(ALL, site, fitness, Q.SIGN_CHANGES, term, sign_changes(b), n=n))
+        lows, highs = [r["ci_low"] for r in rs], [r["ci_high"] for r in rs]
+        if np.all(np.isfinite(lows)) and np.all(np.isfinite(highs)):
+            rows.append(row(ALL, site, fitness, Q.SIGN_CHANGES_SIGNIFICANT, term, significant_sign_changes(lows, highs), n=n))
     return rows, notes

@@ -11,7 +11,8 @@ call. Choices within the binding conventions, stated here once:
   ``gradient_raw`` divides by the sd pooled within cells;
 - the se of a logistic gradient is the logistic coefficient's se times the
   same factor mean(p(1-p))/mean(W);
-- ``response`` se by the delta method (h^2 and S independent); no intervals;
+- ``response`` se by the delta method (h^2 and S independent); its interval from bootstrap S times
+  normal draws of h^2 (``response_interval``); ``response_multi`` has no interval yet;
 - percentile intervals leave out resamples that cannot be estimated and are
   withheld when more than 5 % cannot (a note says so);
 - permutation p-values are two-sided, (1 + #{|T*| >= |T|}) / (1 + P): fitness shuffled for
@@ -36,7 +37,7 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from fieldslope.analysis.cells import prepare, split_cells
+from fieldslope.analysis.cells import measured_traits, prepare, split_cells
 from fieldslope.analysis.derived import heritabilities, response_rows, temporal_rows
 from fieldslope.analysis.design import Design
 from fieldslope.common.errors import EstimationError
@@ -44,6 +45,7 @@ from fieldslope.analysis.fitness import add_totals, total_kind
 from fieldslope.analysis.permute import SeasonPermuter, permute_season
 from fieldslope.analysis.point import point_block
 from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval
+from fieldslope.analysis.response_interval import response_intervals
 from fieldslope.common.names import ALL, Q
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -113,7 +115,7 @@ def check_frame(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
             raise EstimationError(f"The total {name} needs the column(s) {', '.join(absent)}, which the data lack.")
 
 
-def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, seed, tick) -> list[Note]:
+def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, seed, tick, used_h2=None) -> list[Note]:
     """Fill ci_low, ci_high (bootstrap) and p_value (permutation) of a season's rows in place."""
     notes: list[Note] = []
     logistic = {(r["site"], r["fitness"]) for r in season_rows if r["quantity"] == Q.GRADIENT_LOGISTIC}
@@ -138,6 +140,8 @@ def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, se
                     f["none"].append(f"{r['quantity']} {r['term']}".strip())
         if key in perm:
             r["p_value"] = perm[key]
+    if boot and used_h2:
+        response_intervals(season_rows, boot, used_h2, seed, season)
     for (site, fitness), f in failed.items():
         msg = (f"Up to {f['worst']} of {B} resamples could not be estimated in season {season}, site {site} "
                "(a trait constant, mean fitness 0 or separation in the resample) and were left out of the intervals")
@@ -159,6 +163,7 @@ def estimate_table(
     genetic_correlations: dict[tuple[str, str], float] | None = None,
     fitness: Sequence[str] | None = None,
     genetics: "Genetics | None" = None,
+    random_effects: str = "dl",
 ) -> Estimates:
     """All estimates for the effective data ``frame`` under ``design``.
 
@@ -174,6 +179,8 @@ def estimate_table(
     (from ``analysis.genetics.pedigree_estimates``, fitted separately because it
     is slow) adds the animal-model rows; its heritabilities and genetic
     correlations then give the responses and the G of Delta z = G beta.
+    ``progress(done, total, label)`` is called during resampling. ``random_effects`` picks the interval of
+    the mean gradient across seasons when tau^2 > 0: "dl" (DerSimonian-Laird, normal) or "hk" (Hartung-Knapp).
     """
     fitness_names = list(fitness) if fitness is not None else list(design.fitness_names)
     check_frame(frame, design, fitness_names)
@@ -200,10 +207,17 @@ def estimate_table(
                 progress(done[0], total, label)
 
         for season, cells in seasons.items():
+            traits, cells, lacking = measured_traits(design.traits, cells)
+            if lacking:
+                notes.append(Note(season, ALL, "", "", f"Season {season} has no values of {', '.join(lacking)}, so its "
+                                  + (f"estimates use the traits it measured ({', '.join(traits)})." if traits else "traits have no estimates.")))
+            if not traits:
+                tick(bootstrap + permutations, f"season {season}")
+                continue
             season_rows, preps_by_f, pooled = [], {}, not (len(cells) == 1 and cells[0].site == ALL)
             for f in fitness_names:
                 kind = total_kind(design, f)
-                preps = [prepare(c, f, kind, design.traits) for c in cells]
+                preps = [prepare(c, f, kind, traits) for c in cells]
                 preps_by_f[f] = preps
                 for pr in preps:
                     notes.extend(Note(season, pr.cell.site, f, q, m) for q, m in pr.notes)
@@ -216,22 +230,22 @@ def estimate_table(
                                       f"Pooled gradients of season {season} for {f} leave out site(s) {', '.join(left_out)} "
                                       "(see their notes)."))
                 for site, block in units:
-                    res = point_block(block, design.traits, f"in season {season}, site {site}", tests=permutations > 0)
+                    res = point_block(block, traits, f"in season {season}, site {site}", tests=permutations > 0)
                     notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
                     season_rows.extend(
                         dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
                              estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=r.p, n=r.n)
                         for r in res.rows
                     )
-                    extra, assumed = response_rows(season, site, f, res, design.traits, used_h2, genetic_correlations)
+                    extra, assumed = response_rows(season, site, f, res, traits, used_h2, genetic_correlations)
                     season_rows.extend(extra)
                     rg_assumed |= assumed
             if bootstrap > 0 or permutations > 0:
-                notes.extend(attach_uncertainty(season, season_rows, preps_by_f, design.traits, pooled,
-                                                bootstrap, permutations, seed, tick))
+                notes.extend(attach_uncertainty(season, season_rows, preps_by_f, traits, pooled,
+                                                bootstrap, permutations, seed, tick, used_h2))
             rows.extend(season_rows)
         if len(seasons) > 1:
-            t_rows, t_notes = temporal_rows(rows, list(seasons))
+            t_rows, t_notes = temporal_rows(rows, list(seasons), random_effects)
             rows.extend(t_rows)
             notes.extend(Note(*n) for n in t_notes)
         rows.extend(h_rows)

@@ -42,6 +42,10 @@ class Q:
     ADDITIVE_VARIANCE: Final = "additive_variance"
     GENETIC_CORRELATION: Final = "genetic_correlation"
     RESPONSE_PRICE: Final = "response_price"
+    # random-effects mean (weights 1/(se^2 + tau^2)) and sign changes between seasons whose intervals
+    # exclude zero on opposite sides
+    GRADIENT_MEAN_RE: Final = "gradient_mean_re"
+    SIGN_CHANGES_SIGNIFICANT: Final = "sign_changes_significant"
 
 
 #: Every quantity name, in the order of the estimation contract.

@@ -226,3 +226,111 @@ def test_planning_refuses_a_zero_or_negative_input_in_one_sentence(half_width, v
     assert isinstance(err.value, FieldslopeError)
     msg = str(err.value)
     assert words in msg and msg.count(". ") == 0 and msg.endswith(".") and "\n" not in msg
+
+
+@pytest.mark.parametrize("method", ["dl", "hk"])
+def test_random_effects_mean_and_interval_match_statsmodels(method):
+    """Random-effects mean, se and 95 % interval: DerSimonian & Laird 1986 (normal), Hartung & Knapp 2001
+    (t with k - 1 df, scaled se), both against statsmodels.stats.meta_analysis.combine_effects."""
+    from fieldslope.analysis.seasons import combine
+
+    b = np.array([0.12, 0.31, -0.06, 0.22, 0.02])
+    v = np.array([0.010, 0.020, 0.015, 0.008, 0.012])
+    ref = combine_effects(b, v, method_re="dl", use_t=method == "hk")
+    c = combine(b, np.sqrt(v), method)
+    assert c.tau2 > 0 and c.tau2 == pytest.approx(ref.tau2, rel=1e-10)
+    assert c.mean_re == pytest.approx(ref.mean_effect_re, rel=1e-10)
+    lo, hi = ref.conf_int(use_t=method == "hk")[3 if method == "hk" else 1]
+    if method == "hk":
+        assert c.se_re == pytest.approx(ref.sd_eff_w_re_hksj, rel=1e-10)
+    else:
+        assert c.se_re == pytest.approx(ref.sd_eff_w_re, rel=1e-10)
+    assert c.ci_re == pytest.approx((lo, hi), rel=1e-9)
+    assert c.interval == c.ci_re  # tau^2 > 0: the mean's interval is the random-effects one
+    # the p-value answers the interval's question: p < 0.05 exactly when the interval excludes 0
+    assert (c.p_re < 0.05) == (lo > 0 or hi < 0)
+    # homogeneous estimates: tau^2 = 0 and the fixed-effect interval mean +- 1.96 se
+    same = combine(np.array([0.2, 0.21, 0.19]), np.array([0.1, 0.1, 0.1]), method)
+    assert same.tau2 == 0 and same.interval == pytest.approx((same.mean - 1.959964 * same.se, same.mean + 1.959964 * same.se))
+
+
+def test_sign_changes_counted_all_and_significant_opposite():
+    """All sign changes between consecutive seasons, and those whose intervals exclude zero on opposite
+    sides (the estimation conventions' two counts), by hand for a small series."""
+    from fieldslope.analysis.seasons import sign_changes, significant_sign_changes
+
+    est = [0.2, -0.3, 0.3, -0.05, 0.1]
+    lows = [0.1, -0.5, 0.2, -0.1, 0.02]
+    highs = [0.3, -0.1, 0.4, 0.2, 0.2]
+    assert sign_changes(est) == 4
+    assert significant_sign_changes(lows, highs) == 2  # (+ -), (- +); the fourth season's interval holds 0
+
+
+def test_across_season_rows_carry_random_effects_interval_and_both_counts():
+    frame = selection_frame()
+    t = estimate_table(frame, SEL_DESIGN, bootstrap=200, permutations=0).table
+    for site in ("bay", "cove", "all"):
+        g = t[(t.site == site) & (t.quantity == "gradient") & (t.term == "length") & (t.season != "all")]
+        g = g.set_index("season").loc[["2030", "2031", "2032", "2033"]]
+        ref = combine_effects(g.estimate.to_numpy(), g.se.to_numpy() ** 2, method_re="dl")  # statsmodels
+        mean = pick(t, season="all", site=site, quantity="gradient_mean", term="length")
+        re = pick(t, season="all", site=site, quantity="gradient_mean_re", term="length")
+        assert re.estimate == pytest.approx(ref.mean_effect_re, rel=1e-10)
+        lo_fe, hi_fe, lo_re, hi_re = (a for pair in ref.conf_int(use_t=False)[:2] for a in pair)
+        expect = (lo_re, hi_re) if ref.tau2 > 0 else (lo_fe, hi_fe)
+        assert (mean.ci_low, mean.ci_high) == pytest.approx(expect, rel=1e-9)
+        assert (re.ci_low, re.ci_high) == pytest.approx((lo_re, hi_re), rel=1e-9)
+        side = np.where(g.ci_low > 0, 1, np.where(g.ci_high < 0, -1, 0))
+        sig = pick(t, season="all", site=site, quantity="sign_changes_significant", term="length")
+        assert sig.estimate == np.count_nonzero(side[1:] * side[:-1] == -1)
+
+
+def test_trait_added_in_a_later_season():
+    """A trait first measured in a later season: earlier seasons keep their gradients on the traits they
+    measured (equal to a statsmodels OLS on those traits alone) and a note names the missing trait."""
+    import statsmodels.api as sm
+
+    frame = selection_frame()
+    frame.loc[frame.season == "2030", "girth"] = np.nan
+    est = estimate_table(frame, SEL_DESIGN, bootstrap=0)
+    t = est.table
+    early = t[(t.season == "2030") & (t.quantity == "gradient")]
+    assert set(early.term) == {"length"}
+    cell = frame[(frame.season == "2030") & (frame.site == "bay")]
+    z, W = cell["length"].to_numpy(), cell["eggs"].to_numpy()
+    x = (z - z.mean()) / z.std(ddof=1)
+    ref = sm.OLS(W / W.mean(), sm.add_constant(x)).fit().params[1]
+    assert pick(t, season="2030", site="bay", quantity="gradient", term="length").estimate == pytest.approx(ref, rel=1e-9)
+    assert set(t[(t.season == "2031") & (t.quantity == "gradient")].term) == {"length", "girth"}
+    assert any(n.season == "2030" and "girth" in n.message for n in est.notes)
+
+
+def test_response_interval_covers_the_true_response():
+    """R = h^2 S (breeder's equation; Falconer & Mackay 1996): over 200 simulated studies, each with its own
+    heritability estimate (true 0.4, se 0.1) and a season under linear selection (true S = 0.6 trait units),
+    the 95 % interval of R from bootstrap S and normal h^2 draws covers the true R = 0.24 in at least 90 %."""
+    from threadpoolctl import threadpool_limits
+
+    from fieldslope.analysis.cells import prepare, split_cells
+    from fieldslope.analysis.resample import SeasonResampler, bootstrap_season
+    from fieldslope.analysis.response_interval import heritability_draws
+    from fieldslope.analysis.resample import percentile_interval
+
+    rng = np.random.default_rng(31)
+    k, n, B = 200, 150, 400
+    x = rng.uniform(-np.sqrt(3), np.sqrt(3), (k, n))  # sd 1; bounded noise keeps fitness positive
+    W = 1 + 0.3 * x + rng.uniform(-0.4, 0.4, (k, n))
+    frame = pd.DataFrame({"id": np.arange(k * n).astype(str), "season": "s", "rep": np.repeat([f"r{i}" for i in range(k)], n),
+                          "z": (10 + 2 * x).ravel(), "w": W.ravel()})
+    design = Design(traits=("z",), fitness={"w": "continuous"}, groups=("rep",))
+    cells = split_cells(frame, design, ["w"])["s"]
+    preps = {"w": [prepare(c, "w", "continuous", ("z",)) for c in cells]}
+    with threadpool_limits(limits=1, user_api="blas"):
+        boot = bootstrap_season(SeasonResampler(preps, ("z",), False, set()), "s", B, 5, lambda k: None)
+    hits = 0
+    for c in cells:
+        h2_hat = 0.4 + 0.1 * rng.standard_normal()
+        R = heritability_draws(h2_hat, 0.1, B, rng) * boot[(c.site, "w", "differential", "z")]
+        lo, hi, _ = percentile_interval(R)
+        hits += lo <= 0.24 <= hi
+    assert hits / k >= 0.90

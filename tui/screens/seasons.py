@@ -131,7 +131,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         if not summary:
             summary.append(Content("Across-season summaries need at least two seasons with gradients at a site."))
         summary.append(assemble(("Weighted mean: weights 1/se²; τ²: DerSimonian–Laird between-season "
-                                         "variance; the mean rows show the weighted mean ± 1.96 se.", "$text-muted")))
+                                         "variance; a mean row's interval is the random-effects one when τ² > 0, else ± 1.96 se.", "$text-muted")))
         self.query_one("#sea-summary", Static).update(Content("\n").join(summary))
 
     # -- this season, batch by batch ---------------------------------------
