@@ -7,7 +7,12 @@ scaled); the ratio; the floor (one matrix product of the resample counts by
 the moment features); bootstrap=0 (live dashboard path); and the coverage of
 95 % bootstrap intervals over 1,000 simulated seasons with a known gradient.
 
-Run: python benchmarks/bench_estimation.py [--quick]
+With ``--peer COMMIT`` (for example 1e5e437, before the partial permutation
+tests) the full table is also timed at that commit, in a subprocess importing
+its sources from a temporary export (``git archive``), and the two are printed
+side by side (best wall clock and CPU time of three runs each, alternating).
+
+Run: python benchmarks/bench_estimation.py [--quick] [--peer COMMIT]
 """
 
 from __future__ import annotations
@@ -103,8 +108,51 @@ def coverage(seasons: int, B: int, n: int = 150, beta: float = 0.3, seed: int = 
     return hits / seasons
 
 
+PEER_SCRIPT = """
+import sys, time
+sys.path.insert(0, {bench!r})
+import bench_estimation as be
+from fieldslope.analysis.table import estimate_table
+frame = be.study()
+c, t = time.process_time(), time.perf_counter()
+estimate_table(frame, be.DESIGN, bootstrap=2000)
+print(time.perf_counter() - t, time.process_time() - c)
+"""
+
+
+def peer_side_by_side(commit: str, runs: int = 3) -> None:
+    """Full table (2,000 resamples and permutations) here and at ``commit``, alternating runs."""
+    import subprocess
+    import tempfile
+
+    root = Path(__file__).resolve().parents[1]
+    with tempfile.TemporaryDirectory() as tmp:
+        src, path = Path(tmp) / "src", Path(tmp) / "path" / "fieldslope"
+        src.mkdir()
+        path.mkdir(parents=True)
+        archive = subprocess.run(["git", "-C", str(root), "archive", commit], check=True, capture_output=True).stdout
+        subprocess.run(["tar", "-x", "-C", str(src)], input=archive, check=True)
+        for layer in ("analysis", "common", "schemas", "tui", "demo_season"):
+            (path / layer).symlink_to(src / layer)
+        best = {"here": (np.inf, np.inf), commit: (np.inf, np.inf)}
+        code = PEER_SCRIPT.format(bench=str(Path(__file__).parent))
+        for _ in range(runs):
+            for name, env_path in (("here", None), (commit, str(path.parent))):
+                env = dict(__import__("os").environ)
+                if env_path:
+                    env["PYTHONPATH"] = env_path
+                out = subprocess.run([sys.executable, "-c", code], env=env, check=True, capture_output=True, text=True)
+                wall, cpu = map(float, out.stdout.split())
+                best[name] = min(best[name], (wall, cpu))
+    (w1, c1), (w0, c0) = best["here"], best[commit]
+    print(f"full table here: {w1:.3f} s [CPU {c1:.3f}]; at {commit}: {w0:.3f} s [CPU {c0:.3f}]; "
+          f"ratio {w1 / w0:.2f} x wall, {c1 / c0:.2f} x CPU   (target <= 1.5 x)")
+
+
 def main() -> None:
     quick = "--quick" in sys.argv
+    if "--peer" in sys.argv:
+        peer_side_by_side(sys.argv[sys.argv.index("--peer") + 1])
     frame = study()
     B = 2000
     cpu = {}

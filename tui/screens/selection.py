@@ -198,7 +198,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
                 v = snap.value(**key, quantity=quantity, term=term)
                 extra = [] if kept is None else [""] if quantity == Q.CANONICAL else kept_in(quantity, term)
                 gam.add_row(label + str(term), est_text(v), ci_text(v, wait) if quantity != Q.CANONICAL else "",
-                            p_text(v, wait) if quantity != Q.CANONICAL else "", *extra, key=f"{quantity}:{term}")
+                            p_text(v, wait), *extra, key=f"{quantity}:{term}")  # λ: no interval, tested against γ = 0
         notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
         parts: list[tuple[str, str]] = []
         if kept is not None:
