@@ -179,8 +179,7 @@ def estimate_table(
     (from ``analysis.genetics.pedigree_estimates``, fitted separately because it
     is slow) adds the animal-model rows; its heritabilities and genetic
     correlations then give the responses and the G of Delta z = G beta.
-    ``progress(done, total, label)`` is called during resampling. ``random_effects`` picks the interval of
-    the mean gradient across seasons when tau^2 > 0: "dl" (DerSimonian-Laird, normal) or "hk" (Hartung-Knapp).
+    ``random_effects`` picks the interval of the mean gradient across seasons when tau^2 > 0: "dl" (DerSimonian-Laird, normal) or "hk" (Hartung-Knapp).
     """
     fitness_names = list(fitness) if fitness is not None else list(design.fitness_names)
     check_frame(frame, design, fitness_names)
