@@ -22,6 +22,10 @@ class StoreError(FieldslopeError):
     """The record store is locked, damaged, full or otherwise unusable."""
 
 
+class BusyError(StoreError):
+    """Another program holds the record store's write lock (SQLite reported it busy or locked)."""
+
+
 class RecordError(FieldslopeError):
     """A request the record cannot satisfy: an unknown flag, an unusable value, a missing reason."""
 

@@ -3,21 +3,19 @@ a later batch superseded, in time order."""
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+import sqlite3
 
 import pandas as pd
 
+from fieldslope.schemas.effective import FieldCol
 from fieldslope.schemas.store_checks import show
-
-if TYPE_CHECKING:  # pragma: no cover
-    from fieldslope.schemas.store import Store
 
 COLUMNS = ["time", "season", "field", "event", "value", "old", "batch", "file", "row", "operator", "detail"]
 _EVENT = {"keep": "kept", "exclude": "excluded", "set": "corrected"}
 
 
-def history(conn, store: "Store", individual: str) -> pd.DataFrame:
-    fields = store.fields
+def history(conn: sqlite3.Connection, fields: dict[str, FieldCol], individual: str) -> pd.DataFrame:
+    """One individual's events (columns ``COLUMNS``), oldest first."""
     names = list(fields)
     rows = conn.execute(
         "SELECT b.received, r.season, r.batch_id, b.file_name, r.row, b.operator, r.correction_id"

@@ -10,55 +10,65 @@ from __future__ import annotations
 
 import json
 import re
-from typing import TYPE_CHECKING
+import sqlite3
+from typing import Callable
 
 import pandas as pd
 
 from fieldslope.common.errors import SheetError
 from fieldslope.common.names import Kind
+from fieldslope.schemas.batch_plan import BatchPlan, now
+from fieldslope.schemas.effective import FieldCol
+from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import CheckReport, FlagNote, RowError, Sheet
+from fieldslope.schemas.store_queries import last_batch_id
+from fieldslope.schemas.store_rows import insert_flags, insert_records
 from fieldslope.schemas.store_supersede import supersede
 from fieldslope.schemas.store_types import RecordError, Resolution
 
-if TYPE_CHECKING:  # pragma: no cover
-    from fieldslope.schemas.store import Store
-
 _POINT_NUMBER = re.compile(r"^[+-]?\d*\.\d+$")
+
+#: ``evaluate(conn, plan, accept_valid)``: the intake's checks of a batch against the record
+#: (``store_intake.Intake.evaluate``), giving ``errors``, ``flags`` and the ``valid`` rows.
+Evaluate = Callable[..., object]
+
+
+def quarantine_rows(conn: sqlite3.Connection, protocol: Protocol, batch_id: int, report: CheckReport,
+                    errors: list[RowError], bad_rows: list[int], created: str) -> None:
+    """Keep each bad row's raw cells aside, with one ``quarantined`` flag per error."""
+    sheet, p = report.sheet, protocol
+    columns = [str(c) for c in sheet.frame.columns]
+    cells = sheet.frame.to_numpy(dtype=object)
+    pos_of = {r: i for i, r in enumerate(sheet.row_numbers)}
+    by_row: dict[int, list[RowError]] = {}
+    for e in errors:
+        by_row.setdefault(e.row, []).append(e)
+    for r in bad_rows:
+        raw = [None if v is None or (isinstance(v, float) and v != v) else str(v) for v in cells[pos_of[r]]]
+        row_cells = dict(zip(columns, raw))
+        ind = row_cells.get(p.id_col) or ""
+        season = row_cells.get(p.season_col) or ""
+        payload = json.dumps({"columns": columns, "cells": raw, "decimal": sheet.decimal, "file": sheet.name})
+        qid = conn.execute("INSERT INTO quarantine(batch_id, row, individual, season, cells, errors) "
+                           "VALUES (?,?,?,?,?,?)",
+                           (batch_id, r, ind, season, payload,
+                            json.dumps([e.__dict__ for e in by_row[r]]))).lastrowid
+        notes = [FlagNote(r, ind, season, e.column, Kind.QUARANTINED, e.value,
+                          f"row {r} was quarantined: {e.sentence()}; set the right value "
+                          "(fieldslope resolve FLAG --set VALUE) or leave the row out (--exclude)")
+                 for e in by_row[r]]
+        insert_flags(conn, batch_id, notes, {}, created, quarantine_id=qid)
 
 
 class QuarantineFix:
-    def __init__(self, store: "Store"):
-        self.store = store
+    """Resolves the flags of quarantined rows: a corrected row joins the record once it is valid."""
 
-    def quarantine_rows(self, conn, batch_id: int, report: CheckReport, errors: list[RowError],
-                        bad_rows: list[int], created: str) -> None:
-        sheet, p = report.sheet, self.store.protocol
-        columns = [str(c) for c in sheet.frame.columns]
-        cells = sheet.frame.to_numpy(dtype=object)
-        pos_of = {r: i for i, r in enumerate(sheet.row_numbers)}
-        by_row: dict[int, list[RowError]] = {}
-        for e in errors:
-            by_row.setdefault(e.row, []).append(e)
-        for r in bad_rows:
-            raw = [None if v is None or (isinstance(v, float) and v != v) else str(v) for v in cells[pos_of[r]]]
-            row_cells = dict(zip(columns, raw))
-            ind = row_cells.get(p.id_col) or ""
-            season = row_cells.get(p.season_col) or ""
-            payload = json.dumps({"columns": columns, "cells": raw, "decimal": sheet.decimal, "file": sheet.name})
-            qid = conn.execute("INSERT INTO quarantine(batch_id, row, individual, season, cells, errors) "
-                               "VALUES (?,?,?,?,?,?)",
-                               (batch_id, r, ind, season, payload,
-                                json.dumps([e.__dict__ for e in by_row[r]]))).lastrowid
-            notes = [FlagNote(r, ind, season, e.column, Kind.QUARANTINED, e.value,
-                              f"row {r} was quarantined: {e.sentence()}; set the right value "
-                              "(fieldslope resolve FLAG --set VALUE) or leave the row out (--exclude)")
-                     for e in by_row[r]]
-            self.store._insert_flags(conn, batch_id, notes, {}, created, quarantine_id=qid)
+    def __init__(self, protocol: Protocol, fields: dict[str, FieldCol], evaluate: Evaluate):
+        self.protocol, self.fields, self.evaluate = protocol, fields, evaluate
 
-    def resolve(self, conn, flag_id: int, qid: int, field: str, flagged: str, action: str, value: str | None,
-                reason: str, operator: str) -> Resolution:
-        from fieldslope.schemas.batch_plan import BatchPlan, now
-
+    def resolve(self, conn: sqlite3.Connection, flag_id: int, qid: int, field: str, flagged: str, action: str,
+                value: str | None, reason: str, operator: str) -> Resolution:
+        """Exclude the row, or set one of its cells (the row joins the record when no error is left)."""
         batch_id, row, payload, _ = conn.execute(
             "SELECT batch_id, row, cells, errors FROM quarantine WHERE id = ?", (qid,)).fetchone()
         joined = conn.execute("SELECT 1 FROM records WHERE batch_id = ? AND row = ? AND correction_id IS NOT NULL",
@@ -75,7 +85,7 @@ class QuarantineFix:
         if action == "keep":
             raise RecordError("a quarantined cell cannot be kept as it is; give the right value with --set or "
                               "leave the row out with --exclude.")
-        after = self.store.last_batch_id(conn)
+        after = last_batch_id(conn)
         insert = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
                   "VALUES (?,?,?,?,?,?,?,?)")
         if action == "exclude":
@@ -107,7 +117,7 @@ class QuarantineFix:
             plan = BatchPlan(data["file"], b"", None, self._check(sheet))
         except SheetError as exc:
             raise RecordError(f"row {row} cannot be checked with that value ({exc}); nothing was changed.") from None
-        outcome = self.store._evaluate(conn, plan, accept_valid=False)
+        outcome = self.evaluate(conn, plan, accept_valid=False)
         still = [e for e in outcome.errors if e.column == field]
         if still:
             raise RecordError(f"{value!r} for {field} is still not usable: {still[0].reason}; nothing was changed.")
@@ -118,14 +128,14 @@ class QuarantineFix:
             return Resolution(flag_id, "set", old=flagged, new=str(value).strip(), remaining=left,
                               message=f"flag {flag_id}: {field} fixed; row {row} still has "
                                       f"{len(left)} error(s): {'; '.join(left)}.")
-        record_ids = self.store._insert_records(conn, batch_id, after, outcome.valid, lambda *a: None,
-                                                correction_id=res_id)
-        supersede(conn, self.store.protocol, batch_id, outcome.valid, record_ids, now(), before=after + 1)
-        self.store._insert_flags(conn, batch_id, outcome.flags, record_ids, now())
+        record_ids = insert_records(conn, self.protocol, self.fields, batch_id, after, outcome.valid,
+                                    lambda *a: None, correction_id=res_id)
+        supersede(conn, self.protocol, batch_id, outcome.valid, record_ids, now(), before=after + 1)
+        insert_flags(conn, batch_id, outcome.flags, record_ids, now())
         return Resolution(flag_id, "set", old=flagged, new=str(value).strip(), joined=True,
                           message=f"flag {flag_id}: {field} set to {str(value).strip()}; row {row} of batch "
                                   f"{batch_id} is now valid and joined the record.")
 
     def _check(self, sheet: Sheet) -> CheckReport:
         from fieldslope.schemas.validate import check_sheet
-        return check_sheet(self.store.protocol, sheet)
+        return check_sheet(self.protocol, sheet)

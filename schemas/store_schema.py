@@ -15,7 +15,7 @@ import time
 from pathlib import Path
 from typing import Callable
 
-from fieldslope.common.errors import StoreError
+from fieldslope.common.errors import BusyError, StoreError
 
 SCHEMA_VERSION = 2
 BUSY_TIMEOUT_S = 5.0
@@ -229,17 +229,22 @@ def backup(conn: sqlite3.Connection, target: Path) -> Path:
     return target
 
 
+def is_busy(exc: sqlite3.Error) -> bool:
+    """Another connection holds the lock: SQLite's error code is SQLITE_BUSY or SQLITE_LOCKED (or an
+    extended code of either), read from ``sqlite_errorname`` rather than the message text."""
+    return (getattr(exc, "sqlite_errorname", None) or "").startswith(("SQLITE_BUSY", "SQLITE_LOCKED"))
+
+
 def retry_locked(op: Callable):
-    """Run ``op``; on 'database is locked/busy' (after SQLite's own busy timeout) wait and retry
-    along RETRY_DELAYS, then give one clear StoreError: the raw message never reaches the user."""
+    """Run ``op``; while the store is busy (after SQLite's own busy timeout) wait and retry along
+    RETRY_DELAYS, then give one clear BusyError: the raw message never reaches the user."""
     for delay in (*RETRY_DELAYS, None):
         try:
             return op()
         except sqlite3.OperationalError as exc:
-            text = str(exc).lower()
-            if "locked" not in text and "busy" not in text:
+            if not is_busy(exc):
                 raise
             if delay is None:
-                raise StoreError(BUSY_SENTENCE) from None
+                raise BusyError(BUSY_SENTENCE) from None
             time.sleep(delay)
     return None  # pragma: no cover

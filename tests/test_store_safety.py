@@ -284,3 +284,27 @@ def test_a_version_1_store_is_backed_up_and_upgraded_with_its_data(tmp_path, pro
         store.close()
     assert len(list(tmp_path.glob("v1.sqlite.v1-*.bak"))) == 1
     assert os.path.getsize(db) > 0
+
+
+def test_busy_is_read_from_the_sqlite_error_code_not_the_message(study, monkeypatch):
+    from fieldslope.common.errors import BusyError
+
+    holder = sqlite3.connect(study.db_path, isolation_level=None)
+    other = sqlite3.connect(study.db_path, isolation_level=None, timeout=0)
+    try:
+        holder.execute("BEGIN IMMEDIATE")
+        with pytest.raises(sqlite3.OperationalError) as busy:
+            other.execute("BEGIN IMMEDIATE")
+        assert busy.value.sqlite_errorname == "SQLITE_BUSY" and store_schema.is_busy(busy.value)
+        with pytest.raises(sqlite3.OperationalError) as other_error:
+            other.execute("SELECT * FROM no_such_table")
+        assert not store_schema.is_busy(other_error.value)
+        # the same text without SQLite's code (raised by hand) is not taken for a busy store
+        assert not store_schema.is_busy(sqlite3.OperationalError("database is locked"))
+        monkeypatch.setattr(store_schema, "RETRY_DELAYS", (0.01,))
+        with pytest.raises(BusyError, match="busy"):                # a StoreError the dashboard can tell apart
+            store_schema.retry_locked(lambda: other.execute("BEGIN IMMEDIATE"))
+    finally:
+        holder.execute("ROLLBACK")
+        holder.close()
+        other.close()

@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import Callable
 
 from textual import work
-from textual.app import App
+from textual.app import App, ScreenStackError
 from textual.binding import Binding
 from textual.command import DiscoveryHit, Hit, Hits, Provider
 from textual.content import Content
@@ -463,10 +463,11 @@ class FieldslopeApp(TypeAheadApp):
         from fieldslope.tui.widgets.status import StatusLine
 
         try:
-            for status in self.screen.query(StatusLine):
-                status.update_from_app()
-        except Exception:  # the screen may be closing
-            pass
+            screen = self.screen
+        except ScreenStackError:  # no screen yet, or the app is closing: nothing to update
+            return
+        for status in screen.query(StatusLine):
+            status.update_from_app()
 
     def status_content(self) -> Content:
         """The status line: screen, batches, open flags, last refresh, mode, what is running, notes."""
@@ -580,11 +581,9 @@ WRITE_GROUPS = ("intake-import", "flags-resolve", "resp-h2")
 
 def _is_busy(err: BaseException | None) -> bool:
     """A store error that means another program holds the write lock (not damage, not a full disk)."""
-    from fieldslope.common.errors import StoreError
-    from fieldslope.tui.loading import LOCKED_SENTENCE
+    from fieldslope.common.errors import BusyError
 
-    text = str(err)
-    return isinstance(err, StoreError) and (text == LOCKED_SENTENCE or "busy" in text or "locked" in text)
+    return isinstance(err, BusyError)
 
 
 def run_app(study_dir: Path | None, **kwargs) -> None:

@@ -84,13 +84,13 @@ def can_write_now(study) -> bool:
 
 def _writing(study_dir: Path):
     """Open the study for one write; refuse at once (one sentence) when another program holds the store."""
-    from fieldslope.common.errors import StoreError
+    from fieldslope.common.errors import BusyError
     from fieldslope.schemas.study import Study
 
     study = Study.open(study_dir)
     if not can_write_now(study):
         _close(study)
-        raise StoreError(LOCKED_SENTENCE)
+        raise BusyError(LOCKED_SENTENCE)
     return study
 
 
