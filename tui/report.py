@@ -107,7 +107,7 @@ def num(value, digits: int = 4) -> str:
 def p_text(value) -> str:
     if value is None or value != value:
         return ""
-    return "&lt;0.001" if value < 0.001 else f"{value:.3f}"  # HTML text: a likelihood-ratio p can be that small
+    return "<0.001" if value < 0.001 else f"{value:.3f}"
 
 
 def _f(value):
