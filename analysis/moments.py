@@ -69,11 +69,18 @@ def opp_columns(wt: np.ndarray) -> np.ndarray:
 
 
 class FeatureMatrix:
-    """The cell's feature matrix (individuals x columns) built part by part."""
+    """The cell's feature matrix (individuals x columns) built part by part.
+
+    Columns that repeat an earlier one exactly (the constant, a trait's powers shared by several
+    fitness measures) are stored once: ``matrix()`` holds the distinct columns and ``columns`` says
+    which distinct column each position is, so ``(C @ matrix())[:, columns]`` are the moment sums of
+    every position (about half the memory and work of the full matrix in a typical study)."""
 
     def __init__(self, n_rows: int):
         self.n_rows = n_rows
-        self.blocks: list[np.ndarray] = []
+        self.distinct: list[np.ndarray] = []
+        self.where: list[int] = []
+        self.seen: dict[tuple, list[int]] = {}
         self.width = 0
 
     def add(self, sample: Sample, kind: str, quadratic: bool = True) -> Part:
@@ -90,14 +97,34 @@ class FeatureMatrix:
         """Columns given for ``rows`` (zero elsewhere); returns where they sit."""
         full = np.zeros((self.n_rows, cols.shape[1]))
         full[rows] = cols
-        self.blocks.append(full)
+        for col in full.T:
+            self.where.append(self.place(np.ascontiguousarray(col)))
         self.width += cols.shape[1]
         return slice(self.width - cols.shape[1], self.width)
 
+    def place(self, col: np.ndarray) -> int:
+        """Index of the distinct column equal to ``col``, added if new."""
+        key = (float(col.sum()), col[:: max(1, len(col) // 64)].tobytes())
+        for i in self.seen.get(key, []):
+            if np.array_equal(self.distinct[i], col):
+                return i
+        self.distinct.append(col)
+        self.seen.setdefault(key, []).append(len(self.distinct) - 1)
+        return len(self.distinct) - 1
+
+    @property
+    def columns(self) -> np.ndarray:
+        return np.array(self.where, dtype=np.intp)
+
     def matrix(self) -> np.ndarray:
-        if not self.blocks:
-            return np.zeros((self.n_rows, 0))
-        return np.ascontiguousarray(np.hstack(self.blocks))
+        """The distinct columns (individuals x distinct columns); call once, as the last step (each column
+        is let go once copied, so the matrix and its columns are not held twice)."""
+        out = np.empty((self.n_rows, len(self.distinct)))
+        for i in range(len(self.distinct)):
+            out[:, i] = self.distinct[i]
+            self.distinct[i] = None
+        self.seen.clear()
+        return out
 
 
 # ----- from moment sums to estimates ---------------------------------------------------------

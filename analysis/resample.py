@@ -31,16 +31,33 @@ from fieldslope.analysis.point import stack, with_intercept
 from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_pairs, quad_terms
 from fieldslope.common.names import ALL, Q
 
-CHUNK = 200  # resamples per chunk: bounds memory to CHUNK x cell size numbers
+# resamples drawn from one random stream (``chunk_rng``): fixed, so a seed gives the same resamples at any n
+CHUNK = 200
+# bytes of counts worked on at once while resampling: a stream's resamples are split into blocks of
+# resamples so that the counts (and their copies in the logistic fits) stay near this size, whatever n is
+MEMORY_BUDGET = 128 * 2**20
 
 
-def draw_counts(rng: np.random.Generator, n: int, size: int) -> np.ndarray:
-    """How often each of ``n`` individuals is drawn in each of ``size`` resamples of n draws (size x n)."""
+def draw_counts(rng: np.random.Generator, n: int, size: int, dtype=np.float64) -> np.ndarray:
+    """How often each of ``n`` individuals is drawn in each of ``size`` resamples of n draws (size x n).
+
+    The draws are the same whatever ``dtype`` (float, or uint8 to keep a whole stream's counts small);
+    for n > 65,535 they are made a few resamples at a time (numpy's 32-bit draws continue one stream
+    across calls), so the drawn indices never take more than about MEMORY_BUDGET / 4 bytes."""
+    state = rng.bit_generator.state
+    small = n <= np.iinfo(np.uint16).max
     # small integer draws and one bincount per resample: about twice as fast as one big bincount
-    idx = rng.integers(0, n, size=(size, n), dtype=np.uint16 if n <= np.iinfo(np.uint16).max else np.uint32)
-    out = np.empty((size, n))
-    for b in range(size):
-        out[b] = np.bincount(idx[b], minlength=n)
+    step = size if small else max(1, min(size, MEMORY_BUDGET // (16 * n)))
+    out = np.empty((size, n), dtype=dtype)
+    top = np.iinfo(dtype).max if np.issubdtype(dtype, np.integer) else np.inf
+    for lo in range(0, size, step):
+        idx = rng.integers(0, n, size=(min(step, size - lo), n), dtype=np.uint16 if small else np.uint32)
+        for b, row in enumerate(idx, start=lo):
+            count = np.bincount(row, minlength=n)
+            if top < np.inf and count.max() > top:  # never seen with uint8 (a count above 255 in n draws of n): redraw as floats
+                rng.bit_generator.state = state
+                return draw_counts(rng, n, size)
+            out[b] = count
     return out
 
 
@@ -98,6 +115,7 @@ class SeasonResampler:
             self.logit_start[(site, f)] = beta
             for c in block:
                 self.add_first_step(site, f, c, beta)
+        self.expand = [fm.columns for fm in self.features]  # position -> distinct column
         self.features = [fm.matrix() for fm in self.features]
 
     def add_first_step(self, site: str, f: str, c: int, beta: np.ndarray) -> None:
@@ -128,7 +146,7 @@ class SeasonResampler:
     def boot_chunk(self, counts: list[np.ndarray]) -> dict[tuple, np.ndarray]:
         """Replicates keyed (site, fitness, quantity, term) for counts (one B x n matrix per cell)."""
         out: dict[tuple, np.ndarray] = {}
-        moments = [C @ F for C, F in zip(counts, self.features)]
+        moments = [(C @ F)[:, cols] for C, F, cols in zip(counts, self.features, self.expand)]
         for f in self.preps:
             self.boot_opp(f, moments, out)
             self.boot_single(f, moments, out)
@@ -232,16 +250,30 @@ class SeasonResampler:
             out[(site, f, Q.GRADIENT_LOGISTIC, name)] = grad[:, j]
 
 
+def block_size(n_total: int, budget: int = MEMORY_BUDGET) -> int:
+    """Resamples worked on at once for a season of ``n_total`` individuals: counts of about ``budget`` bytes."""
+    return max(1, min(CHUNK, budget // (8 * max(n_total, 1))))
+
+
 def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int, tick) -> dict[tuple, np.ndarray]:
-    """All bootstrap replicates of a season, drawn chunk by chunk; ``tick(k)`` after each chunk of k."""
+    """All bootstrap replicates of a season; ``tick(k)`` after each block of k resamples.
+
+    Resamples are drawn CHUNK at a time from one stream each (``chunk_rng``) and worked on in blocks
+    of ``block_size`` resamples; when a block is smaller than a stream, the stream's counts are kept
+    as bytes until their block's turn, so memory stays near MEMORY_BUDGET and the cost grows linearly
+    with n, while the resamples stay those of the seed."""
     pieces: dict[tuple, list[np.ndarray]] = {}
+    block = block_size(sum(resampler.n_cells))
     for i, start in enumerate(range(0, B, CHUNK)):
         size = min(CHUNK, B - start)
         rng = chunk_rng(seed, season, 0, i)
-        counts = [draw_counts(rng, n, size) for n in resampler.n_cells]
-        for key, val in resampler.boot_chunk(counts).items():
-            pieces.setdefault(key, []).append(val)
-        tick(size)
+        compact = block < size
+        counts = [draw_counts(rng, n, size, np.uint8 if compact else np.float64) for n in resampler.n_cells]
+        for lo in range(0, size, block):
+            part = [c[lo : lo + block].astype(np.float64) for c in counts] if compact else counts
+            for key, val in resampler.boot_chunk(part).items():
+                pieces.setdefault(key, []).append(val)
+            tick(len(part[0]))
     return {k: np.concatenate(v) for k, v in pieces.items()}
 
 
