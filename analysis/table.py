@@ -164,6 +164,7 @@ def estimate_table(
     fitness: Sequence[str] | None = None,
     genetics: "Genetics | None" = None,
     random_effects: str = "dl",
+    only_seasons: Sequence[str] | None = None,
 ) -> Estimates:
     """All estimates for the effective data ``frame`` under ``design``.
 
@@ -174,7 +175,9 @@ def estimate_table(
     heritabilities per trait as (value, se or None, source); estimated ones
     from parent-offspring data take precedence. ``genetic_correlations`` maps
     trait pairs to r_g (default: the phenotypic correlations, said in a note).
-    ``fitness`` picks the fitness measures (default all, totals included).
+    ``fitness`` picks the fitness measures (default all, totals included);
+    ``only_seasons`` the seasons to estimate (default all; heritability still
+    uses every season's records, and across-season rows need two or more).
     ``progress(done, total, label)`` is called during resampling. ``genetics``
     (from ``analysis.genetics.pedigree_estimates``, fitted separately because it
     is slow) adds the animal-model rows; its heritabilities and genetic
@@ -188,6 +191,8 @@ def estimate_table(
     with np.errstate(all="ignore"), threadpool_limits(limits=BLAS_THREADS, user_api="blas"):
         data = add_totals(frame, design)
         seasons = split_cells(data, design, fitness_names)
+        if only_seasons is not None:  # work only for what was asked
+            seasons = {k: v for k, v in seasons.items() if k in set(only_seasons)}
         h_rows, h_notes, used_h2 = heritabilities(data, design, h2)
         if genetics is not None:
             from fieldslope.analysis.genetics import use_pedigree  # its module loads scipy: only when given

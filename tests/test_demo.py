@@ -232,3 +232,16 @@ def test_same_seed_gives_the_numbers_of_the_reference_commit(estimates):
         assert (np.isnan(a) == np.isnan(b)).all(), col
         ok = np.isnan(a) | (np.abs(a - b) <= 1e-7 * np.maximum(1.0, np.abs(a)))
         assert ok.all(), both.loc[keep].loc[~ok, key + [f"{col}_ref", col]].head()
+
+
+def test_asking_for_one_season_computes_only_it_and_gives_the_same_numbers(demo_study, estimates):
+    from fieldslope.schemas.study import Study
+    from fieldslope.tui.bridge import estimates_for_frame
+
+    with Study.open(demo_study[0]) as study:
+        frame = study.store.effective_frame()
+        protocol = study.protocol
+    one = estimates_for_frame(frame, protocol, bootstrap=BOOTSTRAP, seed=SEED, season="2024").table
+    assert set(one.season) == {"2024", "all"} and set(one[one.season == "all"].quantity) == {"heritability"}
+    full = estimates[estimates.season == "2024"].reset_index(drop=True)
+    pd.testing.assert_frame_equal(one[one.season == "2024"].reset_index(drop=True), full)

@@ -39,17 +39,20 @@ def estimates_for_frame(
     progress: Callable[[int, int, str], None] | None = None,
     pedigree: bool = False,
     genetics=None,
+    season: str | None = None,
 ):
     """Estimates for an effective-data frame (see DEVELOPERS.md for its columns).
 
-    ``pedigree`` fits the animal models first (slow: the command line does, the
-    dashboard's live refresh does not); ``genetics`` passes a fit already made.
+    ``season`` restricts the work to one season. ``pedigree`` fits the animal
+    models first (slow: the command line does, the dashboard's live refresh does not); ``genetics`` passes a fit already made.
     """
     from fieldslope.analysis.table import estimate_table  # heavy: imported on first use
 
     if pedigree and genetics is None:
         genetics = pedigree_genetics(frame, protocol, progress=progress)
     kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2, "genetics": genetics}
+    if season is not None:
+        kwargs["only_seasons"] = [season]
     if seed is not None:
         kwargs["seed"] = seed
     return estimate_table(frame, design_from_protocol(protocol), **kwargs)

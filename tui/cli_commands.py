@@ -143,7 +143,10 @@ def estimate(args) -> int:
     progress = fmt.Progress("estimating")
     try:
         est = estimates_for_frame(frame, protocol, bootstrap=args.bootstrap, seed=args.seed, h2=h2 or None,
-                                  progress=progress, pedigree=not args.skip_pedigree)
+                                  progress=progress, pedigree=not args.skip_pedigree,
+                                  season=args.season)
+        # --season restricts the work (same numbers); --fitness and --site filter afterwards: the pooled
+        # block needs every site, and the permutation p-values depend on the set of fitness measures
     finally:
         progress.done()
     table = est.table
