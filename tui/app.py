@@ -408,22 +408,33 @@ class FieldslopeApp(TypeAheadApp):
 
     # -- failures ----------------------------------------------------------
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
-        """The one place where a failed worker becomes a visible message."""
-        worker = event.worker
-        if event.state != WorkerState.ERROR:
-            return
+        """Failures of the app's own workers (a screen's workers report through ``WorkerFailures``)."""
+        if event.state == WorkerState.ERROR:
+            self.worker_failure(event.worker, self.screen)
+
+    def worker_failure(self, worker: Worker, screen) -> None:
+        """The one place where a failed worker becomes a visible sentence.
+
+        ``screen`` (the screen that ran the worker, or the current one for the app's workers) gets
+        ``worker_failed(group, text)`` first; when that returns True it has shown the sentence itself (in
+        an open form, say), else the sentence is a notification and stays on the status line.
+        """
         from fieldslope.common.errors import FieldslopeError
 
         err = worker.error
-        text = str(err) if isinstance(err, FieldslopeError) else f"{worker.name or 'background task'} failed: {err}"
+        if isinstance(err, FieldslopeError):
+            text = str(err)
+        else:        # a bug, still one sentence: what was running, what went wrong
+            what = WORKER_TASKS.get(worker.group, worker.name or "a background task")
+            text = f"{what} failed ({type(err).__name__}: {err}); nothing more was changed. Please report it."
+        shown = screen.worker_failed(worker.group, text) if hasattr(screen, "worker_failed") else False
         if worker.group in WRITE_GROUPS and _is_busy(err):
             # a write found the store held by another program: read-only until the poller sees it free
             self.set_locked(True)
-            if hasattr(self.screen, "worker_failed"):
-                self.screen.worker_failed(worker.group, text)
             return
-        self.error = text
-        self.notify(text, severity="error", timeout=10)
+        if not shown:
+            self.error = text
+            self.notify(text, severity="error", timeout=10)
         group = worker.group
         if group == "open":
             self.note = ""
@@ -440,8 +451,6 @@ class FieldslopeApp(TypeAheadApp):
             self._poller = None
             self._poll_failed = True
             self.schedule_poll(2.0)
-        if hasattr(self.screen, "worker_failed"):
-            self.screen.worker_failed(group, text)
         self.refresh_status()
 
     # -- showing -----------------------------------------------------------
@@ -577,6 +586,13 @@ class FieldslopeApp(TypeAheadApp):
 
 
 WRITE_GROUPS = ("intake-import", "flags-resolve", "resp-h2")
+WORKER_TASKS = {      # what a worker group was doing, for the sentence when it fails with a bug
+    "open": "Opening the study", "poll": "Looking for changes", "points": "Computing the estimates",
+    "intervals": "Computing the intervals", "demo": "The demo feed", "create": "Creating the study",
+    "intake-list": "Listing the drop folder", "intake-check": "Checking the file",
+    "intake-import": "Taking the file in", "flags-resolve": "Recording the decision",
+    "resp-h2": "Keeping the heritability", "seasons-trend": "Computing β after each batch",
+}
 
 
 def _is_busy(err: BaseException | None) -> bool:

@@ -5,12 +5,30 @@ from __future__ import annotations
 from textual.app import ComposeResult
 from textual.screen import Screen
 from textual.widgets import Footer
+from textual.worker import Worker, WorkerState
 
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.status import StatusLine
 
 
-class StudyScreen(Screen):
+class WorkerFailures:
+    """For a screen that runs workers: their failures reach the app's one handler.
+
+    ``Worker.StateChanged`` does not bubble from a screen to the app, so without this a screen's failed
+    worker would vanish without a word.
+    """
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        event.stop()
+        if event.state == WorkerState.ERROR:
+            self.app.worker_failure(event.worker, self)
+
+    def worker_failed(self, group: str, text: str) -> bool:
+        """Show a failure of this screen's worker here; True when shown (the app then does not notify)."""
+        return False
+
+
+class StudyScreen(WorkerFailures, Screen):
     """A screen that renders from the app's current :class:`Snapshot`.
 
     Subclasses implement :meth:`body` and :meth:`show`; ``show`` runs on the

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Callable
+
 from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -100,17 +102,27 @@ class ConfirmScreen(ModalScreen[bool]):
 
 
 class FormScreen(ModalScreen[dict | None]):
-    """A few labelled text fields; fields named in ``required`` must be filled before OK."""
+    """A few labelled text fields; fields named in ``required`` must be filled before OK.
+
+    ``check(values)`` returns "" or the sentence saying what is wrong; the form then stays open with what
+    was typed. With ``submit(values)`` the form also stays open while the owner stores the values (in a
+    worker): the owner calls :meth:`succeeded` (the form closes) or :meth:`failed` with the sentence (the
+    form stays open, the fields as typed, the sentence shown). Without ``submit`` the form closes on OK
+    and hands the values to the ``push_screen`` callback.
+    """
 
     BINDINGS = [
         Binding("escape", "cancel", "Cancel", id="form_cancel"),
         Binding("ctrl+s", "submit", "OK", id="form_ok"),
     ]
 
-    def __init__(self, title: str, text: str, fields: list[tuple[str, str, str]], required: tuple[str, ...]):
+    def __init__(self, title: str, text: str, fields: list[tuple[str, str, str]], required: tuple[str, ...],
+                 check: Callable[[dict], str] | None = None, submit: Callable[[dict], None] | None = None):
         """``fields``: (name, label, initial value)."""
         super().__init__()
         self.title_text, self.text, self.fields, self.required = title, text, fields, required
+        self.check, self.submit = check, submit
+        self.busy = False
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
@@ -131,12 +143,31 @@ class FormScreen(ModalScreen[dict | None]):
     @on(Button.Pressed, "#form-ok")
     @on(Input.Submitted)
     def action_submit(self) -> None:
+        if self.busy:
+            return
         vals = self.values()
         missing = [label for name, label, _ in self.fields if name in self.required and not vals[name]]
-        if missing:
-            self.query_one("#form-message", Static).update(f"{missing[0]} is required; fill it in, then OK.")
+        problem = f"{missing[0]} is required; fill it in, then OK." if missing else (
+            self.check(vals) if self.check else "")
+        if problem:
+            self.failed(problem)
             return
-        self.dismiss(vals)
+        if self.submit is None:
+            self.dismiss(vals)
+            return
+        self.busy = True
+        self.query_one("#form-message", Static).update(literal("Storing …"))
+        self.submit(vals)
+
+    def failed(self, text: str) -> None:
+        """Say what is wrong; the form stays open with what was typed."""
+        self.busy = False
+        self.query_one("#form-message", Static).update(literal(text))
+
+    def succeeded(self) -> None:
+        self.busy = False
+        if self.is_attached:
+            self.dismiss(None)
 
     @on(Button.Pressed, "#form-cancel")
     def action_cancel(self) -> None:

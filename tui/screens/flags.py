@@ -16,6 +16,7 @@ from textual.widgets import DataTable, Static
 from fieldslope.common.names import flag_label
 from fieldslope.schemas.store_types import StoredFlag
 from fieldslope.tui.messages import StoreWritten
+from fieldslope.tui.safe_text import escape_controls
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import FormScreen
 from fieldslope.tui.screens.intake import operator_name
@@ -43,6 +44,7 @@ class FlagsScreen(StudyScreen):
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
         self.history = False
+        self.form: FormScreen | None = None     # the open decision form, until the store answers
         self.rows: list[StoredFlag] = []        # the table's rows, in order
         self.sites: dict[int, str] = {}          # flag id -> the site of its record
         self._index_key: int | None = None
@@ -168,16 +170,15 @@ class FlagsScreen(StudyScreen):
             return
         what = f"{flag.individual} {flag.field or 'record'} = {flag.value!s} ({flag_label(flag.kind)})"
         fields = [("reason", "Reason", "")]
-        if action == "set":
-            fields.insert(0, ("value", "New value", str(flag.value or "")))
+        if action == "set":   # shown as it will be read: control characters in the old value written out
+            fields.insert(0, ("value", "New value", escape_controls(flag.value or "")))
         required = ("reason", "value") if action == "set" else ("reason",)
 
-        def done(values: dict | None) -> None:
-            if values:
-                self._resolve_worker(self.app.study_dir, [flag.id], action, values.get("value"),
-                                     values["reason"])
+        def submit(values: dict) -> None:
+            self._resolve_worker(self.app.study_dir, [flag.id], action, values.get("value"), values["reason"])
 
-        self.app.push_screen(FormScreen(f"{self.VERBS[action]}: {what}", self.TEXTS[action], fields, required), done)
+        self._open_form(FormScreen(f"{self.VERBS[action]}: {what}", self.TEXTS[action], fields, required,
+                                   submit=submit))
 
     def action_resolve_group(self, action: str) -> None:
         """Keep or exclude every open flag of the highlighted group (same kind, site and batch)."""
@@ -189,12 +190,25 @@ class FlagsScreen(StudyScreen):
         title = (f"{self.VERBS[action]} all {len(ids)} {group[0]} flags of batch {group[2]}"
                  + (f" at {group[1]}" if group[1] else ""))
 
-        def done(values: dict | None) -> None:
-            if values:
-                self._resolve_worker(self.app.study_dir, ids, action, None, values["reason"])
+        def submit(values: dict) -> None:
+            self._resolve_worker(self.app.study_dir, ids, action, None, values["reason"])
 
-        self.app.push_screen(FormScreen(title, self.TEXTS[action] + " One reason is recorded for each flag.",
-                                        [("reason", "Reason", "")], ("reason",)), done)
+        self._open_form(FormScreen(title, self.TEXTS[action] + " One reason is recorded for each flag.",
+                                   [("reason", "Reason", "")], ("reason",), submit=submit))
+
+    def _open_form(self, form: FormScreen) -> None:
+        """The form stays open until the store took the decision, or says why it did not."""
+        self.form = form
+        self.app.push_screen(form)
+
+    def worker_failed(self, group: str, text: str) -> bool:
+        if group != "flags-resolve":
+            return False
+        form = self.form
+        if form is not None and form.is_attached:
+            form.failed(text)      # the form stays open with what was typed
+            return True
+        return False
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="flags-resolve")
     def _resolve_worker(self, study_dir: Path, flag_ids: list[int], action: str, value: str | None,
@@ -207,6 +221,9 @@ class FlagsScreen(StudyScreen):
         self.post_message(self.Resolved(msg or f"{action} recorded."))
 
     def on_flags_screen_resolved(self, msg: Resolved) -> None:
+        form, self.form = self.form, None
+        if form is not None:
+            form.succeeded()
         self.app.notify(msg.text, timeout=4)
         self.post_message(StoreWritten(msg.text))
 

@@ -292,9 +292,10 @@ class IntakeScreen(StudyScreen):
     def _row_chosen(self) -> None:
         self.action_check()
 
-    def worker_failed(self, group: str, text: str) -> None:
+    def worker_failed(self, group: str, text: str) -> bool:
         if group.startswith("intake"):
             self.query_one("#intake-summary", Static).update(assemble((text, "$error")))
+        return False      # also a notification: the summary line may be scrolled past
 
 
 def _bad_rows(r) -> set[int]:

@@ -57,6 +57,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
 
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
+        self.form: FormScreen | None = None     # the open h² form, until the store answers
         self.choices = Choices()
         self._genetics = None
         self._genetics_version: int | None = None
@@ -234,19 +235,20 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         fields = [("value", "h² (0 to 1)", ""), ("se", "its standard error (optional)", ""),
                   ("source", "Source (study, population, year)", "")]
 
-        def done(values: dict | None) -> None:
-            if not values:
-                return
+        def numbers(values: dict) -> tuple[float, float | None]:
+            return float(values["value"]), float(values["se"]) if values["se"] else None
+
+        def check(values: dict) -> str:
             try:
-                value = float(values["value"])
-                se = float(values["se"]) if values["se"] else None
+                value, se = numbers(values)
             except ValueError:
-                self.app.notify("h² and its se must be numbers, e.g. 0.35; nothing was stored.", severity="error")
-                return
-            if not 0 <= value <= 1 or (se is not None and se < 0):
-                self.app.notify("h² must lie between 0 and 1 and its se be positive; nothing was stored.",
-                                severity="error")
-                return
+                return "h² and its se must be numbers, e.g. 0.35; correct them, then OK."
+            if not 0 <= value <= 1 or (se is not None and not se > 0):
+                return "h² must lie between 0 and 1 and its se be positive; correct them, then OK."
+            return ""
+
+        def submit(values: dict) -> None:
+            value, se = numbers(values)
             self._h2_worker(self.app.study_dir, trait, value, se, values["source"])
 
         h2, source = self.h2_of(snap, trait)
@@ -254,7 +256,9 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         if h2 is not None and source == "parent–offspring":
             text = (f"This study estimates h² of {trait} from parents and offspring ({fmt(h2['estimate'])}); "
                     "that estimate stays in use. An entered value is kept with its source for reference.")
-        self.app.push_screen(FormScreen(f"Heritability of {trait}", text, fields, ("value", "source")), done)
+        self.form = FormScreen(f"Heritability of {trait}", text, fields, ("value", "source"), check=check,
+                               submit=submit)
+        self.app.push_screen(self.form)
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="resp-h2")
     def _h2_worker(self, study_dir: Path, trait: str, value: float, se: float | None, source: str) -> None:
@@ -263,7 +267,19 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         set_heritability(study_dir, trait, value, se, source, operator_name())
         self.post_message(self.H2Saved(f"h² of {trait} = {value:g} kept ({source})."))
 
+    def worker_failed(self, group: str, text: str) -> bool:
+        if group != "resp-h2":
+            return False
+        form = self.form
+        if form is not None and form.is_attached:
+            form.failed(text)      # the form stays open with what was typed
+            return True
+        return False
+
     def on_response_screen_h2_saved(self, msg: H2Saved) -> None:
+        form, self.form = self.form, None
+        if form is not None:
+            form.succeeded()
         self.app.notify(msg.text, timeout=4)
         self.post_message(StoreWritten(msg.text))
 

@@ -13,6 +13,7 @@ from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import Button, Footer, Input, Label, Static
 
+from fieldslope.tui.screens.base import WorkerFailures
 from fieldslope.tui.widgets.literal import literal
 from fieldslope.tui.widgets.status import StatusLine
 
@@ -20,7 +21,7 @@ WELCOME = ("No study is open. A study is a folder with a protocol.toml (what is 
            "an intake/ drop folder for batch files, and one record store.")
 
 
-class StartScreen(Screen):
+class StartScreen(WorkerFailures, Screen):
     """Shown when there is no study: one form to create or open one."""
 
     # ctrl keys, because a text field has the focus here and takes plain letters
@@ -103,5 +104,6 @@ class StartScreen(Screen):
         self.app.demo_feed = feed
         self.app.open_study(folder)
 
-    def worker_failed(self, group: str, text: str) -> None:
+    def worker_failed(self, group: str, text: str) -> bool:
         self.say(text, error=True)
+        return group == "create"
