@@ -356,8 +356,10 @@ async def test_response_uses_an_entered_heritability(filled, size):
         await pilot.pause()
         app.screen.query_one("#form-value").value = "0.4"
         app.screen.query_one("#form-source").value = "sister population, 2019 breeding design"
+        form = app.screen                                # open until the store took the value
         await pilot.press("ctrl+s")
-        await wait_for(app, pilot, lambda: bool(app.snapshot.heritability) and ready(app), what="h² stored")
+        await wait_for(app, pilot, lambda: bool(app.snapshot.heritability) and ready(app) and app.screen is not form,
+                       what="h² stored")
         snap = app.snapshot
         screen = app.screen
         row = screen.query_one("#resp-table").get_row("wing")
@@ -512,7 +514,7 @@ async def test_intake_names_an_unreadable_file_in_one_sentence(filled, tmp_path)
         await pilot.press("enter")
         await wait_for(app, pilot, lambda: app.screen.checked is not None or bool(app.error), what="the check")
         text = screen_text(app)
-        assert "photo.csv" in text and "Traceback" not in text
+        assert "photo.csv" in text and "Traceback" not in text, (app.error, app.screen.checked)
         result = app.screen.checked
         assert result is not None and result.outcome == "refused" and result.message
         await pilot.press("i")

@@ -276,7 +276,8 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             return True
         return False
 
-    def on_response_screen_h2_saved(self, msg: H2Saved) -> None:
+    @on(H2Saved)     # (by name the handler would be on_response_screen_h2saved: easy to get wrong)
+    def _h2_saved(self, msg: H2Saved) -> None:
         form, self.form = self.form, None
         if form is not None:
             form.succeeded()
