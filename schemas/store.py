@@ -65,6 +65,9 @@ class Store:
         if not self.path.exists():
             raise StoreError(f"{self.path}: no record store here; create the study with fieldslope init.")
         unclean = health.needs_check(self.path)
+        broken = health.file_problems(self.path)
+        if broken:                      # never build a new store over an empty or cut-short one
+            raise StoreError(health.damaged_sentence(self.path, broken, opened=False))
         with self._errors():
             conn = self._conn()
             if unclean:
@@ -80,6 +83,13 @@ class Store:
                 schema.migrate(conn, self.path)
                 self._ensure_fields(conn)
             self._set_fields(self._load_fields(conn))
+            gone = schema.missing_triggers(conn)
+            if gone:                    # someone changed the store outside fieldslope: write nothing more
+                self.damaged = health.damaged_sentence(self.path, [
+                    f"its append-only guards are missing ({', '.join(gone[:3])}{' …' if len(gone) > 3 else ''})"])
+                health.remember(self.path, self.damaged)
+                self.close()
+                self.readonly = True
 
     def _set_fields(self, fields: dict[str, eff.FieldCol]) -> None:
         """The field columns, and the parts that work with them."""
@@ -144,10 +154,11 @@ class Store:
             yield
         except sqlite3.OperationalError as exc:
             code = getattr(exc, "sqlite_errorname", None) or ""     # SQLite's own error code, not the text
+            if self.damaged:
+                raise StoreError(self.damaged) from None
             if code == "SQLITE_FULL" or code.startswith("SQLITE_IOERR"):
                 self._drop_conn()
-                raise StoreError(f"the disk is full or cannot be written ({self.path.parent}); nothing of this "
-                                 "change was stored: free some space and try again.") from None
+                raise StoreError(health.write_failure_sentence(self.path, full=code == "SQLITE_FULL")) from None
             if schema.is_busy(exc):
                 raise BusyError(schema.BUSY_SENTENCE) from None
             if code.startswith("SQLITE_READONLY"):

@@ -42,6 +42,31 @@ def remember(path: Path, sentence: str | None) -> None:
         pass
 
 
+def file_problems(path: Path) -> list[str]:
+    """What is wrong with the database file itself, from its size and 100-byte header (no SQLite needed).
+
+    SQLite would open a zero-length file as a new, empty database (and fieldslope would then build an
+    empty store over the lost one); a file cut short keeps a header that claims more pages than it has.
+    """
+    try:
+        size = path.stat().st_size
+        with open(path, "rb") as fh:
+            head = fh.read(100)
+    except OSError as exc:
+        return [f"it cannot be read ({exc.strerror})"]
+    if size == 0:
+        return ["the file is empty (0 bytes)"]
+    if len(head) < 100 or not head.startswith(b"SQLite format 3\x00"):
+        return [f"the file ({size} bytes) does not start like an SQLite database"]
+    page_size = int.from_bytes(head[16:18], "big")
+    page_size = 65536 if page_size == 1 else page_size
+    pages = int.from_bytes(head[28:32], "big")
+    counter_valid = head[24:28] == head[92:96]      # the page count is only meaningful when these match
+    if counter_valid and pages and size < pages * page_size:
+        return [f"the file is cut short ({size} bytes, its header says {pages * page_size})"]
+    return []
+
+
 def problems(conn: sqlite3.Connection, limit: int = 3) -> list[str]:
     """What ``quick_check`` and ``foreign_key_check`` find wrong (empty when the store is whole)."""
     try:
@@ -52,6 +77,16 @@ def problems(conn: sqlite3.Connection, limit: int = 3) -> list[str]:
     except sqlite3.DatabaseError as exc:
         found = [str(exc)]
     return found
+
+
+def write_failure_sentence(path: Path, full: bool) -> str:
+    """Why a write failed with SQLite's 'disk is full' or 'disk I/O error', said as what happened."""
+    if not full and not Path(f"{path}-wal").exists():
+        return (f"{path.name}-wal, the store's write-ahead log, was deleted while fieldslope had the study "
+                f"open, so nothing of this change was stored; close every fieldslope using {path.parent}, "
+                "open it again, and check with fieldslope batches that the last batches are there.")
+    return (f"the disk is full or cannot be written ({path.parent}); nothing of this change was stored: free "
+            "some space and try again.")
 
 
 def last_backup(path: Path) -> Path | None:

@@ -17,7 +17,7 @@ from typing import Callable
 
 from fieldslope.common.errors import BusyError, StoreError
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 BUSY_TIMEOUT_S = 5.0
 RETRY_DELAYS = (0.05, 0.1, 0.2, 0.4, 0.8, 1.0, 1.0)   # then give up (about 45 s with the busy timeouts)
 BUSY_SENTENCE = ("the record store is busy: another fieldslope is taking in a batch; try again in a moment "
@@ -137,8 +137,37 @@ CREATE TABLE supersessions(
 CREATE INDEX supersessions_flag ON supersessions(flag_id);
 """ + _append_only(("supersessions",))
 
+# v3: INSERT OR REPLACE / REPLACE INTO would delete the row it replaces without running the delete trigger
+# (SQLite runs delete triggers for REPLACE only with recursive_triggers on, which another program's
+# connection does not set), so a BEFORE INSERT trigger refuses an insert that would replace a row.
+_KEYS = {"batches": "id = NEW.id OR (sha256 = NEW.sha256 AND outcome <> 'refused' AND NEW.outcome <> 'refused')",
+         "fields": "name = NEW.name OR col = NEW.col"}
+
+
+def _no_replace(tables) -> str:
+    return "".join(
+        f"""
+CREATE TRIGGER {t}_no_replace BEFORE INSERT ON {t} WHEN EXISTS (SELECT 1 FROM {t} WHERE {_KEYS.get(t, "id = NEW.id")})
+BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot be replaced'); END;
+"""
+        for t in tables)
+
+
+_GUARDED = (*_APPEND_ONLY, "supersessions")
+_V3 = _no_replace(_GUARDED)
+
 # MIGRATIONS[v] brings a database from version v to v + 1.
-MIGRATIONS: dict[int, str] = {0: _V1, 1: _V2}
+MIGRATIONS: dict[int, str] = {0: _V1, 1: _V2, 2: _V3}
+
+
+def expected_triggers() -> set[str]:
+    """The names of the triggers that keep raw and audit rows append-only (checked on every open)."""
+    return {f"{t}_{what}" for t in _GUARDED for what in ("no_update", "no_delete", "no_replace")}
+
+
+def missing_triggers(conn: sqlite3.Connection) -> list[str]:
+    have = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'trigger'")}
+    return sorted(expected_triggers() - have)
 
 
 def connect(path: Path, readonly: bool = False) -> sqlite3.Connection:
@@ -151,6 +180,7 @@ def connect(path: Path, readonly: bool = False) -> sqlite3.Connection:
                                check_same_thread=False)
     conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
     conn.execute("PRAGMA foreign_keys = ON")
+    conn.execute("PRAGMA recursive_triggers = ON")   # a REPLACE runs the delete triggers too
     if not readonly:
         mode = conn.execute("PRAGMA journal_mode").fetchone()[0]
         if mode != "wal":
