@@ -25,7 +25,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from fieldslope.common.errors import BusyError, RecordError, SheetError, StoreError
+from fieldslope.common.errors import BusyError, RecordError, StoreError
 from fieldslope.common.names import Outcome
 from fieldslope.schemas import effective as eff
 from fieldslope.schemas import store_health as health
@@ -34,6 +34,7 @@ from fieldslope.schemas import store_queries as queries
 from fieldslope.schemas import store_schema as schema
 from fieldslope.schemas.batch_plan import BatchPlan, Progress
 from fieldslope.schemas.protocol import Protocol
+from fieldslope.schemas.batch_file import read_batch_file
 from fieldslope.schemas.records import RowError
 from fieldslope.schemas.store_history import history
 from fieldslope.schemas.store_intake import OPTIONAL_TEXT, Evaluation, Intake, duplicate_message
@@ -264,8 +265,12 @@ class Store:
     # -- taking batches in (store_intake) -------------------------------------------
     def import_file(self, path: str | Path, operator: str | None = None, accept_valid: bool = False,
                     progress: Progress | None = None) -> ImportResult:
-        path = Path(path)
-        return self.import_bytes(path.name, _read_file(path), operator=operator, accept_valid=accept_valid,
+        data = read_batch_file(Path(path))
+        if isinstance(data, BatchPlan):     # over the size cap: only the record of its refusal is stored
+            operator = operator or default_operator()
+            return self._write(lambda conn: self.intake.store(conn, data, operator, accept_valid,
+                                                              progress or (lambda *a: None)))
+        return self.import_bytes(Path(path).name, data, operator=operator, accept_valid=accept_valid,
                                  progress=progress)
 
     def import_bytes(self, name: str, data: bytes, operator: str | None = None, accept_valid: bool = False,
@@ -299,8 +304,10 @@ class Store:
         return result
 
     def check_file(self, path: str | Path, accept_valid: bool = False, recheck: bool = False) -> ImportResult:
-        path = Path(path)
-        return self.check_bytes(path.name, _read_file(path), accept_valid=accept_valid, recheck=recheck)
+        data = read_batch_file(Path(path))
+        if isinstance(data, BatchPlan):
+            return Evaluation(data, Outcome.REFUSED, message=data.refusal).result(None, checked_only=True)
+        return self.check_bytes(Path(path).name, data, accept_valid=accept_valid, recheck=recheck)
 
     # -- reading the record (store_queries, effective) --------------------------------
     def batches(self) -> list[BatchInfo]:
@@ -366,12 +373,3 @@ class Store:
         return h2.latest(self._read(h2.rows))
 
 
-def _read_file(path: Path) -> bytes:
-    try:
-        return path.read_bytes()
-    except FileNotFoundError:
-        raise SheetError(f"{path}: no such file; check the name and folder.") from None
-    except IsADirectoryError:
-        raise SheetError(f"{path}: is a folder, not a batch file.") from None
-    except OSError as exc:
-        raise SheetError(f"{path}: cannot be read ({exc.strerror}).") from None

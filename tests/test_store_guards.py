@@ -77,3 +77,40 @@ def test_a_deleted_write_ahead_log_is_named_not_called_a_full_disk(stored, tmp_p
         wal.unlink()
     sentence = store_health.write_failure_sentence(db, full=False)
     assert "write-ahead log" in sentence and "deleted" in sentence and "full" not in sentence
+
+
+def test_a_huge_file_is_refused_from_its_size_and_only_its_head_is_kept(study, tmp_path):
+    import hashlib
+    import tracemalloc
+
+    big = tmp_path / "scan.csv"
+    with open(big, "wb") as fh:                   # 1.2 GB, sparse: costs no disk
+        fh.write(b"tag,season,site\n")
+        fh.truncate(1_200_000_000)
+    tracemalloc.start()
+    result = study.store.import_file(big, operator="t")
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert result.outcome == "refused" and "over the 50 MB limit" in result.message
+    assert peak < 32 * 2**20, peak                 # read in chunks, never whole
+    batch = study.store.batches()[-1]
+    assert batch.outcome == "refused"
+    raw = study.store.batch_bytes(result.batch_id)
+    assert len(raw) == 4096 and raw.startswith(b"tag,season,site\n")
+    sha = study.store._read(lambda c: c.execute("SELECT sha256 FROM batches WHERE id = ?",
+                                                (result.batch_id,)).fetchone()[0])
+    assert sha != hashlib.sha256(raw).hexdigest() and len(sha) == 64
+    assert "damaged" not in result.message
+    checked = study.store.check_file(big)
+    assert checked.outcome == "refused" and len(study.store.batches()) == 1
+
+
+def test_a_pipe_is_refused_with_a_sentence_not_read(study, tmp_path):
+    import os
+
+    from fieldslope.common.errors import SheetError
+
+    pipe = tmp_path / "batch.csv"
+    os.mkfifo(pipe)
+    with pytest.raises(SheetError, match="not a regular file"):
+        study.store.import_file(pipe)
