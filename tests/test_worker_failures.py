@@ -24,7 +24,7 @@ async def test_a_refused_correction_keeps_the_form_open_with_the_typed_value(stu
         await pilot.press("2")
         await pilot.pause()
         screen = app.screen
-        screen.query_one("#flags-table").move_cursor(row=[r["id"] for r in screen.rows].index(flag.id))
+        screen.query_one("#flags-table").move_cursor(row=[r.id for r in screen.rows].index(flag.id))
         await pilot.press("c")
         await pilot.pause()
         form = app.screen
