@@ -79,7 +79,7 @@ FLAG_LABELS: Final = {
     Kind.DUPLICATE_ID: "duplicate ID",
     Kind.MANGLED_ID: "mangled ID",
     Kind.QUARANTINED: "quarantined",
-    Kind.UNKNOWN_PARENT: "parent?",
+    Kind.UNKNOWN_PARENT: "unknown parent",
 }
 
 

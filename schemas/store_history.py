@@ -7,6 +7,7 @@ import sqlite3
 
 import pandas as pd
 
+from fieldslope.common.names import flag_label
 from fieldslope.schemas.effective import FieldCol
 from fieldslope.schemas.store_checks import show
 
@@ -32,7 +33,7 @@ def history(conn: sqlite3.Connection, fields: dict[str, FieldCol], individual: s
     for when, season, field, kind, value, message, batch, file, row in conn.execute(
             "SELECT f.created, f.season, f.field, f.kind, f.value, f.message, f.batch_id, b.file_name, f.row "
             "FROM flags f JOIN batches b ON b.id = f.batch_id WHERE f.individual = ? ORDER BY f.id", (individual,)):
-        events.append((when, 1, season, field, f"flagged {kind}", value, "", batch, file, row, "", message))
+        events.append((when, 1, season, field, f"flagged {flag_label(kind)}", value, "", batch, file, row, "", message))
     for when, season, field, action, old, new, operator, reason, flag_id in conn.execute(
             "SELECT r.created, f.season, f.field, r.action, r.old, r.new, r.operator, r.reason, f.id "
             "FROM resolutions r JOIN flags f ON f.id = r.flag_id WHERE f.individual = ? ORDER BY r.id",
@@ -44,7 +45,7 @@ def history(conn: sqlite3.Connection, fields: dict[str, FieldCol], individual: s
             "FROM supersessions s JOIN flags f ON f.id = s.flag_id JOIN batches b ON b.id = s.batch_id "
             "WHERE f.individual = ? ORDER BY s.id", (individual,)):
         events.append((when, 3, season, field, "flag superseded", value, "", batch, file, None, "",
-                       f"flag {flag_id} ({kind}): a later batch gave a new value"))
+                       f"flag {flag_id} ({flag_label(kind)}): a later batch gave a new value"))
     frame = pd.DataFrame(events, columns=["time", "_order", *COLUMNS[1:]])
     frame = frame.sort_values(["time", "_order"], kind="stable").drop(columns="_order").reset_index(drop=True)
     frame["batch"] = frame["batch"].astype("Int64")

@@ -11,6 +11,7 @@ import sqlite3
 
 import pandas as pd
 
+from fieldslope.common.words import plural
 from fieldslope.common.names import Outcome
 from fieldslope.schemas import effective as eff
 from fieldslope.schemas import store_checks as checks
@@ -75,7 +76,8 @@ class Intake:
         bad_rows = sorted({e.row for e in errors})
         n = report.n_rows
         if errors and not accept_valid:
-            msg = (f"{plan.name}: {len(bad_rows)} of {n} rows have errors, so nothing was stored; fix them and "
+            msg = (f"{plan.name}: {len(bad_rows)} of {plural(n, 'row')} {'has' if len(bad_rows) == 1 else 'have'} "
+                   "errors, so nothing was stored; fix them and "
                    "import again, or import with --accept-valid to store the valid rows and quarantine the others.")
             return Evaluation(plan, Outcome.REFUSED, errors=errors, message=msg)
         bad = set(bad_rows)
@@ -89,7 +91,7 @@ class Intake:
         flags.sort(key=lambda f: f.row)
         outcome = Outcome.PARTIAL if errors else Outcome.STORED
         stored = len(valid)
-        msg = f"{plan.name}: {stored} of {n} rows stored" + (
+        msg = f"{plan.name}: {stored} of {plural(n, 'row')} stored" + (
             f", {len(bad_rows)} quarantined (fix them with fieldslope resolve)" if bad_rows else "") + "."
         return Evaluation(plan, outcome, errors=errors, flags=flags, valid=valid, bad_rows=bad_rows, message=msg)
 

@@ -186,10 +186,19 @@ def _is_number(text: str) -> bool:
 
 # -- numbers ---------------------------------------------------------------------
 
-def _to_numbers(text: pd.Series, decimal: str, codes: list[str]) -> tuple[pd.Series, list[tuple[pd.Series, str]]]:
-    """(floats, [(mask of filled cells that are not numbers, reason for those), ...])."""
+# What a fitness cell of these kinds holds (a decimal point is no help there).
+WHAT_TO_WRITE = {"binary": ("0 or 1 (binary fitness)", "0 or 1"), "count": ("a count", "a whole number (0, 1, 2, …)")}
+
+def _to_numbers(text: pd.Series, decimal: str, codes: list[str],
+                kind: str = "") -> tuple[pd.Series, list[tuple[pd.Series, str]]]:
+    """(floats, [(mask of filled cells that are not numbers, reason for those), ...]); ``kind`` is the fitness
+    kind of the column (binary, count), which the reason names instead of asking for a decimal number."""
     present = text.notna()
     blank = "leave the cell blank" + (f" or write {' or '.join(codes)}" if codes else "") + " when there is no value"
+    if kind in WHAT_TO_WRITE:
+        numbers = pd.to_numeric(text, errors="coerce").astype("float64")
+        what, write = WHAT_TO_WRITE[kind]
+        return numbers, [(present & numbers.isna(), f"is not {what}; write {write}, or {blank}")]
     if decimal == ",":
         ambiguous = present & text.str.contains(".", regex=False).fillna(False).astype(bool)
         numbers = pd.to_numeric(text.str.replace(",", ".", regex=False).where(~ambiguous), errors="coerce")
@@ -242,7 +251,8 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
     for col in roles.text:
         typed[col] = text[col]
     for col in roles.numeric:
-        numbers, problems = _to_numbers(text[col], sheet.decimal, codes)
+        spec = protocol.fitness.get(col)
+        numbers, problems = _to_numbers(text[col], sheet.decimal, codes, spec.kind if spec is not None else "")
         typed[col] = numbers
         for bad, reason in problems:
             for pos in np.flatnonzero(bad.to_numpy()):

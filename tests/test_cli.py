@@ -124,7 +124,7 @@ def test_correction_changes_the_estimates(folder, protocol_file, capsys):
     (folder / "again.csv").write_text("tag,season,wing\nH03,2024,4.15\n")
     assert call(capsys, "import", str(folder / "again.csv"), "--study", study)[0] == 0
     code, out, _ = call(capsys, "flags", "--study", study)
-    flag_id = next(line.split()[0].lstrip("#") for line in out.splitlines() if "differs_from_record" in line)
+    flag_id = next(line.split()[0].lstrip("#") for line in out.splitlines() if "differs" in line)
     code, out, _ = call(capsys, "resolve", flag_id, "--set", "4.9", "--reason", "misread caliper",
                         "--study", study)
     assert code == 0 and "from 4.15 to 4.9" in out
@@ -282,10 +282,10 @@ def test_flags_all_shows_a_superseded_flag_with_its_batch(folder, protocol_file,
     (folder / "again.csv").write_text("tag,season,wing\nH03,2024,4.15\n")
     (folder / "third.csv").write_text("tag,season,wing\nH03,2024,4.12\n")
     call(capsys, "import", str(folder / "again.csv"), "--study", study)
-    assert "differs_from_record" in call(capsys, "flags", "--study", study)[1]
+    assert "differs" in call(capsys, "flags", "--study", study)[1]
     call(capsys, "import", str(folder / "third.csv"), "--study", study)
     code, out, _ = call(capsys, "flags", "--all", "--study", study)
-    first = next(line for line in out.splitlines() if "differs_from_record" in line and "4.15" in line)
+    first = next(line for line in out.splitlines() if "differs" in line and "4.15" in line)
     assert code == 0 and first.endswith("[superseded by batch 3]") and len(first) <= 80
     assert "a later batch gave a new value" in out
     open_now = call(capsys, "flags", "--study", study)[1]
@@ -339,3 +339,41 @@ def test_history_shows_every_value_whole(folder, protocol_file, capsys):
     assert f"dam recorded: {dam}" in out and "wing recorded: 4.523456789" in out
     assert "long.csv, row 2, batch 1, by ana" in out
     assert all(len(line) <= 80 for line in out.splitlines())
+
+
+def test_one_name_per_flag_kind_and_counted_nouns(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    (folder / "slip.csv").write_text("tag,season,site,wing,tibia,survived,clutch\nH01,2024,Gull Flat,45,1.5,1,3\n")
+    code, out, _ = call(capsys, "check", str(folder / "slip.csv"), "--study", study)
+    assert code == 0 and "would store 1 of 1 row." in out
+    # a check stores nothing, so it does not send the user to the flags list
+    assert "flags it would open: 1 out of range (nothing is stored by a check)" in out
+    assert "fieldslope flags" not in out
+    code, out, _ = call(capsys, "import", str(folder / "slip.csv"), "--study", study)
+    assert "1 of 1 row stored." in out and "flags: 1 out of range (list them with fieldslope flags)" in out
+    out = call(capsys, "flags", "--study", study)[1]
+    assert " out of range " in out and "out_of_range" not in out
+    out = call(capsys, "history", "H01", "--study", study)[1]
+    assert "wing flagged out of range: 45" in out and "out_of_range" not in out
+    assert "H01: 6 events" in out
+
+
+def test_init_names_the_study_folder_in_its_hint_when_it_is_not_the_default(folder, protocol_file, capsys,
+                                                                              monkeypatch):
+    monkeypatch.delenv("FIELDSLOPE_STUDY", raising=False)
+    code, out, _ = call(capsys, "init", str(folder / "st"), "--protocol", str(protocol_file))
+    assert code == 0 and f"fieldslope import FILE --study {folder / 'st'}" in out
+    monkeypatch.setenv("FIELDSLOPE_STUDY", str(folder / "st2"))
+    code, out, _ = call(capsys, "init", str(folder / "st2"), "--protocol", str(protocol_file))
+    assert code == 0 and out.rstrip().endswith("fieldslope import FILE") and "--study" not in out
+
+
+def test_a_binary_cell_that_is_not_0_or_1_is_not_asked_for_a_decimal_point(folder, protocol_file, capsys):
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    (folder / "yes.csv").write_text("tag,season,site,wing,tibia,survived,clutch\nH01,2024,Gull Flat,4.5,1.5,yes,two\n")
+    code, out, _ = call(capsys, "check", str(folder / "yes.csv"), "--study", study)
+    assert code == 1 and "decimal point" not in out
+    assert "row 2, column survived: 'yes' is not 0 or 1 (binary fitness); write 0 or 1, or leave the cell blank" in out
+    assert "row 2, column clutch: 'two' is not a count; write a whole number (0, 1, 2, …), or leave" in out

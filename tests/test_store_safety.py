@@ -184,7 +184,7 @@ def test_a_later_value_supersedes_open_flags_on_the_old_one(study):
     assert {"7.5", "4.7"} <= set(hist.loc[hist.event == "recorded", "value"])   # both values stay on record
     gone = hist[hist.event == "flag superseded"]
     assert list(zip(gone.field, gone.value, gone.batch)) == [("wing", "7.5", 3)]
-    assert f"flag {wing.id} (out_of_range)" in gone.detail.item()
+    assert f"flag {wing.id} (out of range)" in gone.detail.item()
     differs = next(f for f in store.flags() if f.kind == "differs_from_record" and f.batch_id == 3)
     store.import_bytes("b4.csv", b"tag,season,wing\nH03,2024,4.75\n")
     assert store.flag(differs.id).status == "superseded"

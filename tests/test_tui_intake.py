@@ -50,3 +50,13 @@ async def test_a_file_taken_in_before_names_its_batch_once(filled, tmp_path):
         await pilot.press("enter")
         await wait_for(app, pilot, lambda: app.screen.checked is not None, what="the check")
         assert "2024-1.csv: already taken in as batch 2; nothing to do." in screen_text(app)
+
+
+async def test_the_status_line_counts_one_batch_in_the_singular(study, write_batch, hopper_rows):
+    rows = hopper_rows("2024", "Gull Flat", n=12, seed=3)
+    rows[4]["wing"] = "45"                               # one value outside 3-6 mm
+    assert study.store.import_file(write_batch(rows), operator="test").outcome == "stored"
+    app = make_app(study.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        assert "│ 1 batch │ 2 flags │" in screen_text(app)   # the slip is out of range and an outlier

@@ -536,7 +536,7 @@ async def test_flags_keep_a_whole_group_with_one_reason(study, write_batch, hopp
         await pilot.pause()
         await pilot.press("K")
         await pilot.pause()
-        assert "Keep all 3 out_of_range flags of batch 1 at Gull Flat" in screen_text(app)
+        assert "Keep all 3 out of range flags of batch 1 at Gull Flat" in screen_text(app)
         app.screen.query_one("#form-reason").value = "checked: large animals this week"
         await pilot.press("ctrl+s")
         await wait_for(app, pilot, lambda: not any(f.status == "open" and f.kind == "out_of_range"

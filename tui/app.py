@@ -31,6 +31,7 @@ from textual.command import DiscoveryHit, Hit, Hits, Provider
 from textual.content import Content
 from textual.worker import Worker, WorkerState, get_current_worker
 
+from fieldslope.common.words import plural
 from fieldslope.tui.messages import (
     DemoNote,
     IntervalsProgress,
@@ -490,7 +491,7 @@ class FieldslopeApp(TypeAheadApp):
             parts.append((title, "bold $accent"))
         snap = self.snapshot
         if snap is not None:
-            parts.append(f" │ {snap.n_batches} batches │ {snap.flags_open} flags │ {snap.refreshed_at}")
+            parts.append(f" │ {plural(snap.n_batches, 'batch')} │ {plural(snap.flags_open, 'flag')} │ {snap.refreshed_at}")
             if snap.outliers_left_out:
                 parts.append((" │ outliers out", "bold $warning"))
             if self.readonly:

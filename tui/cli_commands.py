@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import json
+import shlex
 import os
 import sys
 from dataclasses import replace
 from pathlib import Path
 
+from fieldslope.common.words import plural
 from fieldslope.common.errors import FieldslopeError, SheetError
 from fieldslope.common.names import ALL, Outcome
 from fieldslope.schemas.study import Study, resolve_study_dir
@@ -33,8 +35,11 @@ def _open(args, readonly: bool = False) -> Study:
 def init(args) -> int:
     study = Study.create(args.dir, args.protocol)
     study.close()
+    # the hint names the folder unless commands find this study without it (the default or $FIELDSLOPE_STUDY)
+    found = Path(study.root).resolve() == resolve_study_dir(None).resolve()
+    here = "" if found else f" --study {shlex.quote(str(study.root))}"
     fmt.say(f"created a study in {study.root}: drop batch files into {study.intake_dir} or use "
-            "fieldslope import FILE")
+            f"fieldslope import FILE{here}")
     return 0
 
 
@@ -49,7 +54,7 @@ def _report(result) -> None:
         return
     fmt.say(result.message, file=out)
     if result.outcome != Outcome.DUPLICATE:
-        print(fmt.flag_summary(result.flags), file=out)
+        print(fmt.flag_summary(result.flags, stored=not result.checked_only), file=out)
 
 
 def _each_file(names, work):
@@ -74,7 +79,7 @@ def check(args) -> int:
             if result.outcome in (Outcome.STORED, Outcome.PARTIAL):
                 verb = "would store" if result.outcome == Outcome.STORED else "would store (quarantining the rest)"
                 result = replace(result, message=f"{result.file_name}: {verb} {result.n_stored} of "
-                                                 f"{result.n_rows} rows.")
+                                                 f"{plural(result.n_rows, 'row')}.")
             return result
         return _each_file(args.files, one)
 

@@ -12,6 +12,8 @@ import textwrap
 from collections import Counter
 from typing import TYPE_CHECKING, Iterable, TextIO
 
+from fieldslope.common.names import flag_label
+from fieldslope.common.words import plural
 from fieldslope.tui.safe_text import escape_controls
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -64,15 +66,18 @@ def error_lines(errors: Iterable, limit: int = MAX_LISTED) -> list[str]:
     errors = list(errors)
     lines = [escape_controls(e.sentence()) for e in errors[:limit]]
     if len(errors) > limit:
-        lines.append(f"… and {len(errors) - limit} more errors (the first {limit} are shown)")
+        lines.append(f"… and {plural(len(errors) - limit, 'more error', 'more errors')} (the first {limit} are shown)")
     return lines
 
 
-def flag_summary(flags: Iterable) -> str:
+def flag_summary(flags: Iterable, stored: bool = True) -> str:
+    """The flags a batch opened (or, for a check, would open), counted by kind in the dashboard's words."""
     counts = Counter(f.kind for f in flags)
     if not counts:
-        return "no flags"
-    parts = ", ".join(f"{n} {kind}" for kind, n in sorted(counts.items()))
+        return "no flags" if stored else "no flags would be opened"
+    parts = ", ".join(f"{n} {flag_label(kind)}" for kind, n in sorted(counts.items()))
+    if not stored:
+        return f"flags it would open: {parts} (nothing is stored by a check)"
     return f"flags: {parts} (list them with fieldslope flags)"
 
 
@@ -84,7 +89,7 @@ def print_flags(flags, out: TextIO | None = None) -> None:
     for f in flags:
         what = f"{f.field} = {f.value}" if f.field and f.value else (f.field or f.value or "record")
         status = f.status if f.status == "open" else f"{f.status} by {f.resolved_by}"
-        head = f"#{f.id:<5} {f.kind:<20} {f.individual} {f.season} {what}"
+        head = f"#{f.id:<5} {flag_label(f.kind):<14} {f.individual} {f.season} {what}"
         print(cut(head, WIDTH - 25) + f"  [{cut(status, 21)}]", file=out)   # "superseded by batch 12"
         print(wrap(f"{f.message} ({f.file_name}, row {f.row})"), file=out)
         if f.status != "open" and f.reason:
@@ -115,7 +120,7 @@ def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = Non
     """Every event on one line with its value whole (wrapped, never cut); where it came from (file, row,
     batch, operator) on an indented line whenever that changes."""
     out = out or sys.stdout
-    print(f"{escape_controls(individual)}: {len(frame)} events (times in UTC)", file=out)
+    print(f"{escape_controls(individual)}: {plural(len(frame), 'event')} (times in UTC)", file=out)
     source = None
     for r in frame.itertuples(index=False):
         when = str(r.time).replace("T", " ")[:16]

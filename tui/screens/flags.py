@@ -14,6 +14,7 @@ from textual.message import Message
 from textual.widgets import DataTable, Static
 
 from fieldslope.common.names import flag_label
+from fieldslope.common.words import plural
 from fieldslope.schemas.store_types import StoredFlag
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.safe_text import escape_controls
@@ -187,7 +188,7 @@ class FlagsScreen(StudyScreen):
             return
         group = self.group_of(flag)
         ids = [f.id for f in self.rows if self.group_of(f) == group]
-        title = (f"{self.VERBS[action]} all {len(ids)} {group[0]} flags of batch {group[2]}"
+        title = (f"{self.VERBS[action]} all {len(ids)} {flag_label(group[0])} flags of batch {group[2]}"
                  + (f" at {group[1]}" if group[1] else ""))
 
         def submit(values: dict) -> None:
@@ -217,7 +218,7 @@ class FlagsScreen(StudyScreen):
 
         results = resolve_flags(study_dir, flag_ids, action, value, reason, operator_name())
         msg = (getattr(results[0], "message", "") if len(results) == 1 else
-               f"{len(results)} flags: {action} recorded with the reason given.")
+               f"{plural(len(results), 'flag')}: {action} recorded with the reason given.")
         self.post_message(self.Resolved(msg or f"{action} recorded."))
 
     def on_flags_screen_resolved(self, msg: Resolved) -> None:

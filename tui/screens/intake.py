@@ -15,6 +15,7 @@ from textual.message import Message
 from textual.widgets import DataTable, Input, Static, TabbedContent, TabPane
 
 from fieldslope.common.names import Outcome, flag_label
+from fieldslope.common.words import plural
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.safe_text import escape_controls
 from fieldslope.tui.screens.base import StudyScreen
@@ -217,7 +218,7 @@ class IntakeScreen(StudyScreen):
             return
         bad = len(_bad_rows(r))
         if r.errors and not accept_valid:
-            self.app.notify(f"{bad} rows have errors: fix the file, or press a to take in only the valid rows.",
+            self.app.notify(f"{plural(bad, 'row')} {'has' if bad == 1 else 'have'} errors: fix the file, or press a to take in only the valid rows.",
                             severity="warning")
             return
         n_store = r.n_rows - (bad if accept_valid else 0)
@@ -313,9 +314,9 @@ def _summary_line(name: str, r) -> Content:
     if r.outcome == Outcome.REFUSED and not r.errors:
         return assemble((f"{name}: ", "bold"), (r.message or "refused", "$error"))
     bad = len(_bad_rows(r))
-    parts = [(f"{name}: ", "bold"), f"{r.n_rows} rows, "]
+    parts = [(f"{name}: ", "bold"), f"{plural(r.n_rows, 'row')}, "]
     parts.append((f"{bad} with errors", "bold $error") if bad else ("no errors", "$success"))
-    parts.append(f", {len(r.flags)} flags. ")
+    parts.append(f", {plural(len(r.flags), 'flag')}. ")
     parts.append(("i take in" if not bad else "a take in the valid rows", "$accent"))
     return assemble(*parts)
 
@@ -326,4 +327,5 @@ def _outcome_line(r) -> str:
     if r.outcome == Outcome.REFUSED:
         return f"{r.file_name} refused: {r.message}"
     extra = f", {r.n_quarantined} quarantined" if r.n_quarantined else ""
-    return f"{r.file_name}: {r.n_stored} rows stored{extra}, {len(r.flags)} flags (batch {r.batch_id})."
+    return (f"{r.file_name}: {plural(r.n_stored, 'row')} stored{extra}, {plural(len(r.flags), 'flag')} "
+            f"(batch {r.batch_id}).")
