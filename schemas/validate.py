@@ -156,7 +156,8 @@ def _schema(key: tuple) -> tuple[pa.DataFrameSchema, dict[tuple[str, int], str]]
 
     add(id_col, required=True, numeric=False, rules=[])
     add(season_col, required=True, numeric=False,
-        rules=[(pa.Check.str_matches(r"^\d{4}$"), "is not a year; write the season as four digits, e.g. 2025")])
+        rules=[(pa.Check.str_matches(r"^[0-9]{4}$"),
+               "is not a year; write the season as four digits 0-9, e.g. 2025")])
     for name in (*groups, *parents):
         add(name, required=False, numeric=False, rules=[])
     finite = (pa.Check(_finite), "is not a finite number")

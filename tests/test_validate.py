@@ -115,6 +115,18 @@ def test_optional_columns_any_case():
     assert list(report.valid.columns) == ["ring", "year", "elytra", "date", "observer", "notes", "_row"]
 
 
+def test_a_season_in_other_scripts_digits_is_refused():
+    # Python's \d also matches fullwidth and Arabic-Indic digits; a season must be plain 0-9,
+    # as the store, the filters and the command line compare seasons as text.
+    lines = [GOOD[0],
+             "R020,\uff12\uff10\uff12\uff15,Cinder Flat,5,1,1,4,0,,",   # fullwidth 2025
+             "R021,\u0662\u0660\u0662\u0665,Cinder Flat,5,1,1,4,0,,"]   # Arabic-Indic 2025
+    report = check(lines)
+    assert [(e.row, e.column) for e in report.errors] == [(3, "year"), (4, "year")]
+    assert all("four digits 0-9" in e.reason for e in report.errors)
+    assert list(report.valid["_row"]) == [2]
+
+
 # -- good rows, typed --------------------------------------------------------------------
 
 def test_good_rows_are_typed():
