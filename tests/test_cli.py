@@ -161,6 +161,11 @@ def test_estimate_table_fits_80_columns_and_json_has_nulls(folder, protocol_file
     ["resolve", "three", "--keep", "--reason", "x"],
     ["estimate", "--format", "xml"],
     ["estimate", "--bootstrap", "-1"],
+    ["estimate", "--seed", "-1"],         # numpy's generators take no negative seed
+    ["import", "a.csv", "--operator", "  "],   # a blank name would record nobody
+    ["resolve", "3", "--keep", "--reason", "x", "--operator", ""],
+    ["summary", "--seed", "-1"],
+    ["report", "--output", "r.html", "--seed", "-1"],
     ["import"],
 ])
 def test_usage_errors_exit_2_with_one_line(capsys, args):

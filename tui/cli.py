@@ -67,7 +67,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("files", metavar="FILE", nargs="+")
     p.add_argument("--accept-valid", action="store_true",
                    help="store the valid rows and quarantine rows with errors (default: refuse the whole batch)")
-    p.add_argument("--operator", metavar="NAME", help="who takes the batch in (default: your login name)")
+    p.add_argument("--operator", metavar="NAME", type=_name, help="who takes the batch in (default: your login name)")
 
     p = command("flags", "list open flags")
     p.add_argument("--all", action="store_true", help="resolved flags too")
@@ -79,7 +79,7 @@ def build_parser() -> argparse.ArgumentParser:
     how.add_argument("--exclude", action="store_true", help="leave the value (or row) out of the estimates")
     how.add_argument("--set", metavar="VALUE", help="replace the value (the old one stays on record)")
     p.add_argument("--reason", metavar="TEXT", required=True, help="why (kept with the change)")
-    p.add_argument("--operator", metavar="NAME", help="who resolves it (default: your login name)")
+    p.add_argument("--operator", metavar="NAME", type=_name, help="who resolves it (default: your login name)")
 
     p = command("batches", "list the batches received: outcome, rows, operator, time and file")
     p.add_argument("--day", metavar="DAY", type=_day, help="only those received that day: today, yesterday or "
@@ -92,7 +92,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=("table", "csv", "json"), default="table")
     p.add_argument("--bootstrap", metavar="N", type=_count, default=2000,
                    help="bootstrap resamples and permutations (0 = point estimates only; default 2000)")
-    p.add_argument("--seed", metavar="N", type=int, default=None, help="random seed (default: fixed)")
+    p.add_argument("--seed", metavar="N", type=_count, default=None, help="random seed, 0 or more (default: fixed)")
     p.add_argument("--season", metavar="S", help="only this season's rows")
     p.add_argument("--site", metavar="S", help="only this site's rows (or 'all' for pooled rows)")
     p.add_argument("--fitness", metavar="NAME", help="only this fitness component or total")
@@ -106,7 +106,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=("text", "json"), default="text")
     p.add_argument("--fitness", metavar="NAME", help="fitness measure of the gradients (default: the first total)")
     p.add_argument("--bootstrap", metavar="N", type=_count, default=2000, help="resamples (default 2000)")
-    p.add_argument("--seed", metavar="N", type=int, default=None, help="random seed (default: fixed)")
+    p.add_argument("--seed", metavar="N", type=_count, default=None, help="random seed, 0 or more (default: fixed)")
 
     p = command("changes", "what changed since a moment or a batch: batches, flags, corrections, estimates")
     p.add_argument("--since", metavar="WHEN", help="a date, a time or a batch number (default: your last run)")
@@ -119,7 +119,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--since", metavar="WHEN", help="add what changed since a date, a time or a batch number")
     p.add_argument("--fitness", metavar="NAME", help="fitness measure (default: the first total)")
     p.add_argument("--bootstrap", metavar="N", type=_count, default=2000, help="resamples (default 2000)")
-    p.add_argument("--seed", metavar="N", type=int, default=None, help="random seed (default: fixed)")
+    p.add_argument("--seed", metavar="N", type=_count, default=None, help="random seed, 0 or more (default: fixed)")
     p.add_argument("--figures", metavar="DIR", help="also write each picture as SVG and PNG into DIR")
 
     p = command("demo", "the demo season (an invented study)")
@@ -144,6 +144,13 @@ def _day(text: str):
         return parse_day(text)
     except ValueError as exc:
         raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def _name(text: str) -> str:
+    """A person's name as typed: refused when it is blank (the record must say who)."""
+    if not text.strip():
+        raise argparse.ArgumentTypeError("is blank; give your name, or leave the option out to record your login name")
+    return text
 
 
 def _count(text: str) -> int:
