@@ -13,7 +13,6 @@ with point estimates and OLS standard errors (bootstrap 0, as in the dashboard's
 from __future__ import annotations
 
 import json
-import math
 import os
 import re
 from dataclasses import dataclass
@@ -22,7 +21,7 @@ from pathlib import Path
 
 from fieldslope.common.errors import FieldslopeError
 from fieldslope.tui import cli_format as fmt
-from fieldslope.tui.summary import shown
+from fieldslope.tui.summary import finite_or_none, shown
 
 WIDTH = fmt.WIDTH
 MAX_LISTED = 25
@@ -203,23 +202,15 @@ def moved_estimates(study, then_batch: int) -> list[dict]:
     both = then.merge(now, on=key, suffixes=("_then", "_now"))
     out = []
     for r in both.itertuples(index=False):
-        old, new, se = _num(r.estimate_then), _num(r.estimate_now), _num(r.se_then)
+        old, new, se = finite_or_none(r.estimate_then), finite_or_none(r.estimate_now), finite_or_none(r.se_then)
         if old is None or new is None or se is None or se <= MOVED_MIN_SE:
             continue
         if abs(new - old) > se:
             out.append({"season": r.season, "site": r.site, "fitness": r.fitness, "quantity": r.quantity,
-                        "term": r.term, "then": old, "now": new, "se_then": se, "se_now": _num(r.se_now),
+                        "term": r.term, "then": old, "now": new, "se_then": se, "se_now": finite_or_none(r.se_now),
                         "moved_se": abs(new - old) / se})
     out.sort(key=lambda d: -d["moved_se"])
     return out
-
-
-def _num(v):
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return None
-    return f if math.isfinite(f) else None
 
 
 def text(info: dict) -> str:

@@ -103,9 +103,9 @@ def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: in
               & (t["site"] == (sites[0] if len(sites) == 1 else ALL))]
     rows = []
     for r in t.itertuples(index=False):
-        lo, hi = _num(r.ci_low), _num(r.ci_high)
-        rows.append({"trait": r.term, "estimate": _num(r.estimate), "se": _num(r.se), "ci_low": lo,
-                     "ci_high": hi, "p_value": _num(r.p_value), "n": None if r.n is None or r.n != r.n else int(r.n),
+        lo, hi = finite_or_none(r.ci_low), finite_or_none(r.ci_high)
+        rows.append({"trait": r.term, "estimate": finite_or_none(r.estimate), "se": finite_or_none(r.se), "ci_low": lo,
+                     "ci_high": hi, "p_value": finite_or_none(r.p_value), "n": None if r.n is None or r.n != r.n else int(r.n),
                      "excludes_zero": bool(lo is not None and hi is not None and (lo > 0 or hi < 0))})
     notes = [n.message for n in est.notes if n.season in (latest, ALL, "") and n.fitness in (fitness, "")
              and n.site in (ALL, "") and n.quantity in ("gradient", "")]
@@ -114,7 +114,8 @@ def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: in
     return out
 
 
-def _num(v):
+def finite_or_none(v):
+    """A number for JSON: the value as a float, or None when it is missing or not finite."""
     try:
         f = float(v)
     except (TypeError, ValueError):

@@ -23,8 +23,18 @@ class WorkerFailures:
         if event.state == WorkerState.ERROR:
             self.app.worker_failure(event.worker, self)
 
+    FORM_GROUP = ""      # the worker group that stores what ``self.form`` holds (see worker_failed)
+    form = None          # an open FormScreen waiting for the store's answer, if any
+
     def worker_failed(self, group: str, text: str) -> bool:
-        """Show a failure of this screen's worker here; True when shown (the app then does not notify)."""
+        """Show a failure of this screen's worker here; True when shown (the app then does not notify).
+
+        A failure of the ``FORM_GROUP`` worker goes to the open form, which stays open with what
+        was typed and says what is wrong."""
+        form = self.form
+        if group == self.FORM_GROUP and form is not None and form.is_attached:
+            form.failed(text)
+            return True
         return False
 
 

@@ -28,6 +28,7 @@ from fieldslope.tui.widgets.pictures import histogram_strip
 
 class FlagsScreen(StudyScreen):
     TITLE_TEXT = "Flags"
+    FORM_GROUP = "flags-resolve"
     BINDINGS = [
         Binding("k", "resolve('keep')", "Keep", id="flag_keep"),
         Binding("e", "resolve('exclude')", "Exclude", id="flag_exclude"),
@@ -201,15 +202,6 @@ class FlagsScreen(StudyScreen):
         """The form stays open until the store took the decision, or says why it did not."""
         self.form = form
         self.app.push_screen(form)
-
-    def worker_failed(self, group: str, text: str) -> bool:
-        if group != "flags-resolve":
-            return False
-        form = self.form
-        if form is not None and form.is_attached:
-            form.failed(text)      # the form stays open with what was typed
-            return True
-        return False
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="flags-resolve")
     def _resolve_worker(self, study_dir: Path, flag_ids: list[int], action: str, value: str | None,

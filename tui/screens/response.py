@@ -33,6 +33,7 @@ from fieldslope.tui.widgets.pictures import fmt
 
 class ResponseScreen(ChoiceKeys, StudyScreen):
     TITLE_TEXT = "Response"
+    FORM_GROUP = "resp-h2"
     BINDINGS = [
         Binding("s", "next_season", "Season", id="resp_season"),
         Binding("t", "next_site", "Site", id="resp_site"),
@@ -266,15 +267,6 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
 
         set_heritability(study_dir, trait, value, se, source, operator_name())
         self.post_message(self.H2Saved(f"h² of {trait} = {value:g} kept ({source})."))
-
-    def worker_failed(self, group: str, text: str) -> bool:
-        if group != "resp-h2":
-            return False
-        form = self.form
-        if form is not None and form.is_attached:
-            form.failed(text)      # the form stays open with what was typed
-            return True
-        return False
 
     @on(H2Saved)     # (by name the handler would be on_response_screen_h2saved: easy to get wrong)
     def _h2_saved(self, msg: H2Saved) -> None:
