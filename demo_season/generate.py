@@ -36,6 +36,11 @@ SITES = {"UR": "Upper Ridge", "BS": "Birch Saddle", "MS": "Mosskettle Scree"}
 SEASONS = ("2023", "2024", "2025")
 N_PER_CELL = 600          # beetles marked per site and season
 PAIRS_PER_CELL = 100      # pairs from last season whose offspring are marked this season
+SIRES_PER_CELL = 70       # males mated at the station: 30 of them with a second female
+# one genuinely light beetle, UR25-0210 at 34.1 mg (4.2 sd below the mean): a season of this size
+# draws such a beetle only now and then, so it is placed here; its value is right and it lives or dies by
+# the same model as every other beetle
+GENUINE_EXTREME = ("2025", "UR", 209, 2, 34.1)
 
 TRAITS = ("elytron", "mandible", "mass")
 MEAN = np.array([8.00, 1.40, 72.0])          # mm, mm, mg
@@ -45,9 +50,12 @@ CORR = np.array([[1.00, 0.30, 0.55],          # phenotypic correlations
                  [0.30, 1.00, 0.25],
                  [0.55, 0.25, 1.00]])
 H2 = np.array([0.55, 0.35, 0.30])              # narrow-sense heritabilities
+GEN_CORR = np.array([[1.00, 0.45, 0.70],      # additive genetic correlations (not the phenotypic ones)
+                     [0.45, 1.00, 0.05],
+                     [0.70, 0.05, 1.00]])
 P = CORR * np.outer(SD, SD)
-_H = np.diag(np.sqrt(H2))
-G = _H @ P @ _H                                # additive genetic (co)variances, same correlations
+_SD_A = np.sqrt(H2) * SD
+G = GEN_CORR * np.outer(_SD_A, _SD_A)          # additive genetic (co)variances
 E = P - G                                      # environmental part (positive definite)
 
 
@@ -103,6 +111,18 @@ def draw_offspring(rng: np.random.Generator, a_dam: np.ndarray, a_sire: np.ndarr
     return a, MEAN + a + e
 
 
+def mate(rng: np.random.Generator, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs mated at the station after the spring measurements: each beetle is sexed (half are female),
+    PAIRS_PER_CELL females are taken at random as dams, SIRES_PER_CELL males as sires; every sire gets one
+    dam and the remaining dams a second mate among those sires (so some families are paternal half-sibs).
+    Returns the dam and sire of each pair, as indices into last season's beetles of the site."""
+    female = rng.random(n) < 0.5
+    dams = rng.choice(np.flatnonzero(female), PAIRS_PER_CELL, replace=False)
+    males = rng.choice(np.flatnonzero(~female), SIRES_PER_CELL, replace=False)
+    sires = np.concatenate([males, rng.choice(males, PAIRS_PER_CELL - SIRES_PER_CELL)])
+    return dams, sires
+
+
 # --- the demo season's records ------------------------------------------------------------
 def simulate(rng: np.random.Generator) -> dict[tuple[str, str], dict]:
     """Every beetle of every cell: IDs, traits, parents, fitness (before any mistake)."""
@@ -115,15 +135,16 @@ def simulate(rng: np.random.Generator) -> dict[tuple[str, str], dict]:
             sire = np.full(n, "", dtype=object)
             if si > 0:
                 prev = cells[(SEASONS[si - 1], code)]
-                # pairs mated at the station after last spring's measurements, chosen at random
-                pick = np.array([rng.choice(len(prev["ids"]), 2, replace=False) for _ in range(PAIRS_PER_CELL)])
+                dams, sires = mate(rng, len(prev["ids"]))
                 n_young = 1 + rng.binomial(2, 0.3, size=PAIRS_PER_CELL)
                 fam = np.repeat(np.arange(PAIRS_PER_CELL), n_young)
                 slots = rng.choice(n, size=len(fam), replace=False)
-                a_o, z_o = draw_offspring(rng, prev["a"][pick[fam, 0]], prev["a"][pick[fam, 1]])
+                a_o, z_o = draw_offspring(rng, prev["a"][dams[fam]], prev["a"][sires[fam]])
                 a[slots], z[slots] = a_o, z_o
-                dam[slots] = prev["ids"][pick[fam, 0]]
-                sire[slots] = prev["ids"][pick[fam, 1]]
+                dam[slots] = prev["ids"][dams[fam]]
+                sire[slots] = prev["ids"][sires[fam]]
+            if (season, code) == GENUINE_EXTREME[:2]:
+                z[GENUINE_EXTREME[2], GENUINE_EXTREME[3]] = GENUINE_EXTREME[4]
             z = np.column_stack([np.round(z[:, k], DECIMALS[k]) for k in range(3)])
             survived, brood = draw_fitness(rng, z, season, code)
             ids = np.array([f"{code}{season[2:]}-{i:04d}" for i in range(1, n + 1)], dtype=object)
@@ -338,10 +359,11 @@ def truth(n_per_season: int = TRUTH_N, seed: int = TRUTH_SEED) -> list[dict]:
     rng = np.random.default_rng(seed)
     out: list[dict] = []
     per_site = n_per_season // len(SITES)
+    cov_aw: dict[tuple[str, str], list] = {}  # (season, fitness) -> per cell, breeding value x relative fitness
     for season in SEASONS:
         pooled: dict[str, list] = {}
         for code, site in SITES.items():
-            _, z = draw_individuals(rng, per_site)
+            a, z = draw_individuals(rng, per_site)
             survived, brood = draw_fitness(rng, z, season, code)
             total = np.where(survived == 1, brood, 0.0)
             for fit, W in (("survived", survived), ("brood", brood), ("total", total)):
@@ -350,12 +372,39 @@ def truth(n_per_season: int = TRUTH_N, seed: int = TRUTH_SEED) -> list[dict]:
                 x = _standardize(z[keep])
                 pooled.setdefault(fit, []).append((w, x))
                 out += _cell_truth(season, site, fit, w, x)
+                if fit != "brood":
+                    cov_aw.setdefault((season, fit), []).append((a - a.mean(axis=0)) * (w - 1.0)[:, None])
         for fit, parts in pooled.items():
             w = np.concatenate([p[0] for p in parts])
             x = np.vstack([p[1] for p in parts])
             out += _cell_truth(season, "all", fit, w, x)
     out += heritability_truth(rng, n_per_season)
+    out += pedigree_truth(cov_aw)
     return out
+
+
+def pedigree_truth(cov_aw: dict[tuple[str, str], list]) -> list[dict]:
+    """What the animal model estimates. V_A, h² and the genetic correlations (season and site ``all``) are the
+    generating model's own: parents were taken at random, so the base population's G holds in every season
+    (exact, no Monte Carlo error). The Robertson-Price response, cov_A(trait, relative fitness) with fitness
+    relative within its site and season, differs between seasons as selection does: it is given per season,
+    pooled over the sites, from the large sample. (The animal model pools the seasons, weighting each by the
+    relatives it links, so its one estimate lies among these.) Brood has none: only survivors have a brood
+    value, a selected sample."""
+    def row(season, quantity, term, value, mc_se=np.nan, fitness="", n=""):
+        return dict(season=season, site="all", fitness=fitness, quantity=quantity, term=term, value=value,
+                    mc_se=mc_se, n=n)
+
+    rows = [row("all", "additive_variance", t, G[j, j]) for j, t in enumerate(TRAITS)]
+    rows += [row("all", "heritability_pedigree", t, H2[j]) for j, t in enumerate(TRAITS)]
+    rows += [row("all", "genetic_correlation", f"{TRAITS[j]}:{TRAITS[k]}", GEN_CORR[j, k])
+             for j in range(3) for k in range(j + 1, 3)]
+    for (season, fit), parts in cov_aw.items():
+        prod = np.vstack(parts)
+        for j, t in enumerate(TRAITS):
+            rows.append(row(season, "response_price", t, prod[:, j].mean(),
+                            prod[:, j].std(ddof=1) / np.sqrt(len(prod)), fit, len(prod)))
+    return rows
 
 
 def _cell_truth(season: str, site: str, fit: str, w: np.ndarray, x: np.ndarray) -> list[dict]:
@@ -404,8 +453,10 @@ def write_truth(path: Path, rows: list[dict]) -> None:
                                 lineterminator="\n")
         writer.writeheader()
         for r in rows:
-            mc = "" if np.isnan(r["mc_se"]) else f"{r['mc_se']:.4f}"
-            writer.writerow({**r, "value": f"{r['value']:.4f}", "mc_se": mc})
+            small = r["quantity"] in ("additive_variance", "response_price")  # in trait units: keep 4 figures
+            value = f"{r['value']:.4g}" if small else f"{r['value']:.4f}"
+            mc = "" if np.isnan(r["mc_se"]) else f"{r['mc_se']:.2g}" if small else f"{r['mc_se']:.4f}"
+            writer.writerow({**r, "value": value, "mc_se": mc})
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -420,8 +471,10 @@ def main(argv: list[str] | None = None) -> int:
         rows = truth(args.truth_n)
         write_truth(HERE / "true_values.csv", rows)
         for r in rows:
-            if r["site"] == "all" and r["quantity"] in ("gradient", "correlational", "heritability"):
-                print(f"{r['season']:>5} {r['fitness']:>9} {r['quantity']:>14} {r['term']:>15} {r['value']:+.4f} ± {r['mc_se']:.4f}")
+            if r["site"] == "all" and r["quantity"] not in ("differential_std", "quadratic", "opportunity",
+                                                                 "response_price"):
+                print(f"{r['season']:>5} {r['fitness']:>9} {r['quantity']:>21} {r['term']:>15} {r['value']:+.4f} "
+                      f"± {r['mc_se']:.4f}")
         return 0
     for path in write_batches(args.out):
         print(path)
