@@ -31,9 +31,10 @@ import scipy.sparse.linalg as spla
 from scipy.interpolate import CubicSpline
 from scipy.optimize import brentq, fminbound, minimize
 
+from fieldslope.analysis.tails import Z975
+
 H_MAX = 0.999  # largest h searched (h = 1 leaves no residual variance)
 CHI2_95 = 3.841458820694124  # chi-square(1) 95 % point: the likelihood interval's drop in -2 log L
-Z95 = 1.959963984540054
 
 
 @dataclass(frozen=True)
@@ -152,7 +153,7 @@ def _interval_end(excess, h: float, edge: float, se: float) -> float:
     profile is close to quadratic), widened towards the edge as needed."""
     if h == edge:
         return edge
-    step = Z95 * se if se == se and se > 0 else abs(edge - h)
+    step = Z975 * se if se == se and se > 0 else abs(edge - h)
     inner = h
     while True:
         outer = h + math.copysign(min(step, abs(edge - h)), edge - h)
@@ -303,7 +304,7 @@ def fit_bivariate(surface: Surface, pair: tuple[int, int], rounds: int = 12) -> 
             grad = np.array([0.0, l22 * l22 / s_2**3, -l21 * l22 / s_2**3])  # d r_g / d(theta0, l21, l22)
             rg_se = math.sqrt(max(grad @ cov_theta[:3, :3] @ grad, 0.0))
             # Wald interval on the atanh scale, mapped back into (-1, 1)
-            half = Z95 * rg_se / (1 - rg * rg)
+            half = Z975 * rg_se / (1 - rg * rg)
             low, high = math.tanh(math.atanh(rg) - half), math.tanh(math.atanh(rg) + half)
     return BivariateFit(G, R, rg, rg_se, low, high, float(G[0, 1]), cov_a_se, kernel.n, best)
 

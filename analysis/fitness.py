@@ -1,4 +1,4 @@
-"""Fitness: totals as products of components, relative fitness, opportunity for selection."""
+"""Fitness: totals as products of components, the kind of a total, relative fitness."""
 
 from __future__ import annotations
 
@@ -41,11 +41,6 @@ def total_kind(design: Design, name: str) -> str:
 def relative(w_abs: np.ndarray) -> np.ndarray:
     """Relative fitness w = W / mean(W) (the caller makes sure mean(W) > 0)."""
     return w_abs / w_abs.mean()
-
-
-def opportunity(w_abs: np.ndarray) -> float:
-    """Opportunity for selection I = variance of relative fitness, divisor n (Arnold & Wade 1984)."""
-    return float(np.var(relative(w_abs), ddof=0))
 
 
 def is_binary(values: np.ndarray) -> bool:

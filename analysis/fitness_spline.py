@@ -266,11 +266,19 @@ def _band_curves(knots, inverse, W, cells, counts, lam, grid) -> np.ndarray:
     g = yb - lam * iw * q
     second = np.zeros(N)
     second[J + 1] = gamma
-    # evaluate every resample's spline on the grid: shift each resample's knots apart by its row
+    out[good] = _evaluate_stacked(t, rows, g, second, grid, len(good))
+    return out
+
+
+def _evaluate_stacked(t, rows, g, second, grid, m: int) -> np.ndarray:
+    """Each of ``m`` stacked natural cubic splines on ``grid`` (m x len(grid)): knots ``t`` of resample
+    ``rows``, values ``g`` and second derivatives ``second`` at them (Green & Silverman 1994,
+    Nonparametric Regression and Generalized Linear Models), linear beyond the end knots."""
+    # shift each resample's knots apart by its row, so one search finds every grid point's interval
     span = 2.0 * (max(t.max(), grid.max()) - min(t.min(), grid.min()) + 1.0)
-    first = np.searchsorted(rows, np.arange(len(good)))
-    last = np.searchsorted(rows, np.arange(len(good)), side="right") - 1
-    xs = (grid[None, :] + (np.arange(len(good)) * span)[:, None])
+    first = np.searchsorted(rows, np.arange(m))
+    last = np.searchsorted(rows, np.arange(m), side="right") - 1
+    xs = (grid[None, :] + (np.arange(m) * span)[:, None])
     ts = t + rows * span
     i = np.searchsorted(ts, xs.ravel(), side="right").reshape(xs.shape) - 1
     i = np.clip(i, first[:, None], (last - 1)[:, None])
@@ -284,9 +292,7 @@ def _band_curves(knots, inverse, W, cells, counts, lam, grid) -> np.ndarray:
     below = grid[None, :] < t[first][:, None]
     above = grid[None, :] > t[last][:, None]
     val = np.where(below, g[first][:, None] + (grid[None, :] - t[first][:, None]) * slope0[:, None], val)
-    val = np.where(above, g[last][:, None] + (grid[None, :] - t[last][:, None]) * slope1[:, None], val)
-    out[good] = val
-    return out
+    return np.where(above, g[last][:, None] + (grid[None, :] - t[last][:, None]) * slope1[:, None], val)
 
 
 def _band_curves_each(knots, inverse, W, cells, counts, lam, grid) -> np.ndarray:

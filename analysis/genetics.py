@@ -15,24 +15,22 @@ Nature 227:520-521; Morrissey, Kruuk & Wilson 2010, J. Evol. Biol.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
 from fieldslope.analysis.animal_data import model_data, relative_fitness
-from fieldslope.analysis.animal_model import Z95, Kernel, Surface, fit_bivariate, fit_univariate
+from fieldslope.analysis.animal_model import H_MAX, Kernel, Surface, fit_bivariate, fit_univariate
+from fieldslope.analysis.derived import row
 from fieldslope.analysis.design import Design
 from fieldslope.analysis.fitness import add_totals
 from fieldslope.analysis.pedigree import Pedigree, from_frame, summarize
+from fieldslope.analysis.progress import Progress, ProgressCallback
+from fieldslope.analysis.tails import Z975
 from fieldslope.common.errors import PedigreeError
 from fieldslope.common.names import ALL, Q
 
-HERITABILITY = Q.HERITABILITY_PEDIGREE
-ADDITIVE_VARIANCE = Q.ADDITIVE_VARIANCE
-GENETIC_CORRELATION = Q.GENETIC_CORRELATION
-RESPONSE_PRICE = Q.RESPONSE_PRICE
 MIN_RECORDS = 10  # records for an animal model (beyond the cell means)
 
 
@@ -46,8 +44,8 @@ class Genetics:
 
 
 def _row(fitness, quantity, term, estimate, se=math.nan, low=math.nan, high=math.nan, n=None) -> dict:
-    return dict(season=ALL, site=ALL, fitness=fitness, quantity=quantity, term=term, estimate=float(estimate),
-                se=float(se), ci_low=float(low), ci_high=float(high), p_value=math.nan, n=n)
+    """A table row of season and site ``all`` with its interval."""
+    return row(ALL, ALL, fitness, quantity, term, estimate, se, n=n) | dict(ci_low=float(low), ci_high=float(high))
 
 
 def related(ped: Pedigree, data) -> bool:
@@ -65,92 +63,117 @@ def related(ped: Pedigree, data) -> bool:
 
 
 def pedigree_estimates(frame: pd.DataFrame, design: Design, fitness_names=None,
-                       progress: Callable[[int, int, str], None] | None = None) -> Genetics:
-    """All pedigree rows for ``frame`` (effective data, every season); notes say what is missing and why."""
-    notes: list[tuple] = []
+                       progress: ProgressCallback | None = None) -> Genetics:
+    """All pedigree rows for ``frame`` (effective data, every season); notes say what is missing and why.
+
+    Parameters: ``frame`` and ``design`` as for ``estimate_table``; ``fitness_names`` (default all, totals
+    included) for the Robertson-Price rows; ``progress(done, total, label)`` after each model. Returns a
+    ``Genetics``: rows (``heritability_pedigree``, ``additive_variance``, ``genetic_correlation``,
+    ``response_price``), notes, and the h^2 and r_g the responses then use. Methods: the animal model by
+    REML (Henderson 1984, Applications of Linear Models in Animal Breeding; Kruuk 2004, Phil. Trans. R. Soc.
+    B 359:873-890) and the Robertson-Price identity (Robertson 1966, Anim. Prod. 8:95-108; Price 1970, Nature
+    227:520-521; Morrissey, Kruuk & Wilson 2010, J. Evol. Biol. 23:2277-2288).
+    """
     if design.mother is None and design.father is None:
-        return Genetics([], [(ALL, ALL, "", HERITABILITY, "The protocol names no parent columns, so there is no pedigree.")])
+        return Genetics([], [(ALL, ALL, "", Q.HERITABILITY_PEDIGREE, "The protocol names no parent columns, so there is no pedigree.")])
     try:
         ped = from_frame(frame, design.id, design.season, design.mother, design.father)
     except PedigreeError as err:
-        return Genetics([], [(ALL, ALL, "", HERITABILITY, f"No animal model: {err}")])
+        return Genetics([], [(ALL, ALL, "", Q.HERITABILITY_PEDIGREE, f"No animal model: {err}")])
     summary = summarize(ped).describe()
-    notes.append((ALL, ALL, "", HERITABILITY, summary))
-    notes.extend((ALL, ALL, "", HERITABILITY, p) for p in ped.problems)
+    notes: list[tuple] = [(ALL, ALL, "", Q.HERITABILITY_PEDIGREE, summary)]
+    notes.extend((ALL, ALL, "", Q.HERITABILITY_PEDIGREE, p) for p in ped.problems)
     data = add_totals(frame, design)
     fitness_names = list(design.fitness_names if fitness_names is None else fitness_names)
     traits = list(design.traits)
     values = data[traits].apply(pd.to_numeric, errors="coerce").astype(float)
-    steps = len(traits) + 1 + len(fitness_names)
-    done = [0]
-
-    def tick(label: str) -> None:
-        done[0] += 1
-        if progress is not None:
-            progress(done[0], steps, label)
-
+    ticker = Progress(len(traits) + 1 + len(fitness_names), progress)
     rows: list[dict] = []
+    h2 = heritability_rows(data, design, ped, values, ticker, rows, notes)
+    rg = correlation_rows(data, design, ped, values, ticker, rows, notes)
+    price_rows(data, design, ped, values, fitness_names, ticker, rows, notes)
+    return Genetics(rows, notes, h2, rg, summary)
+
+
+def heritability_rows(data, design: Design, ped: Pedigree, values: pd.DataFrame, ticker: Progress,
+                      rows: list[dict], notes: list[tuple]) -> dict[str, tuple[float, float]]:
+    """Univariate animal models: h^2 (REML se, profile-likelihood interval) and V_A of each trait into
+    ``rows``; returns trait -> (h^2, se)."""
     h2: dict = {}
     later_total = 0
-    for t in traits:
+    for t in values.columns:
         md, later = model_data(data, design, ped, values[[t]])
         later_total = max(later_total, later)
-        tick(f"animal model, {t}")
+        ticker.tick(1, f"animal model, {t}")
         why = _unusable(ped, md)
         if why:
-            notes.append((ALL, ALL, "", HERITABILITY, f"No pedigree heritability of {t}: {why}."))
+            notes.append((ALL, ALL, "", Q.HERITABILITY_PEDIGREE, f"No pedigree heritability of {t}: {why}."))
             continue
         fit = fit_univariate(Kernel(md))
-        rows.append(_row("", HERITABILITY, t, fit.h2, fit.h2_se, fit.h2_low, fit.h2_high, fit.n))
-        rows.append(_row("", ADDITIVE_VARIANCE, t, fit.va, fit.va_se, n=fit.n))
+        rows.append(_row("", Q.HERITABILITY_PEDIGREE, t, fit.h2, fit.h2_se, fit.h2_low, fit.h2_high, fit.n))
+        rows.append(_row("", Q.ADDITIVE_VARIANCE, t, fit.va, fit.va_se, n=fit.n))
         h2[t] = (fit.h2, fit.h2_se)
-        if fit.h2_high >= 0.999 or fit.h2_low <= 0.0:
-            notes.append((ALL, ALL, "", HERITABILITY,
+        if fit.h2_high >= H_MAX or fit.h2_low <= 0.0:
+            notes.append((ALL, ALL, "", Q.HERITABILITY_PEDIGREE,
                           f"The likelihood interval of the heritability of {t} reaches the end of the range searched "
-                          f"({'0' if fit.h2_low <= 0 else '0.999'})."))
+                          f"({'0' if fit.h2_low <= 0 else f'{H_MAX:g}'})."))
     if later_total:
-        notes.append((ALL, ALL, "", HERITABILITY,
+        notes.append((ALL, ALL, "", Q.HERITABILITY_PEDIGREE,
                       "Individuals measured in several seasons enter the animal model with their earliest record "
                       "(the model has no permanent-environment effect)."))
+    return h2
+
+
+def correlation_rows(data, design: Design, ped: Pedigree, values: pd.DataFrame, ticker: Progress,
+                     rows: list[dict], notes: list[tuple]) -> dict[tuple[str, str], float]:
+    """Bivariate animal models: the genetic correlation of each pair of traits into ``rows``; returns them."""
+    traits = list(values.columns)
     rg: dict = {}
-    if len(traits) > 1:
-        md, _ = model_data(data, design, ped, values[traits])
-        tick("animal model, genetic correlations")
-        why = _unusable(ped, md)
-        if why:
-            notes.append((ALL, ALL, "", GENETIC_CORRELATION, f"No genetic correlations: {why}."))
-        else:
-            surface = Surface(Kernel(md))
-            for j in range(len(traits)):
-                for k in range(j + 1, len(traits)):
-                    fit = fit_bivariate(surface, (j, k))
-                    term = f"{traits[j]}:{traits[k]}"
-                    rows.append(_row("", GENETIC_CORRELATION, term, fit.rg, fit.rg_se, fit.rg_low, fit.rg_high, fit.n))
-                    rg[(traits[j], traits[k])] = fit.rg
-            notes.append((ALL, ALL, "", GENETIC_CORRELATION,
-                          "Genetic correlations come from bivariate animal models on the individuals with every trait; "
-                          "their intervals are Wald intervals on the atanh scale."))
-    else:
-        tick("")
+    if len(traits) < 2:
+        ticker.tick(1, "")
+        return rg
+    md, _ = model_data(data, design, ped, values[traits])
+    ticker.tick(1, "animal model, genetic correlations")
+    why = _unusable(ped, md)
+    if why:
+        notes.append((ALL, ALL, "", Q.GENETIC_CORRELATION, f"No genetic correlations: {why}."))
+        return rg
+    surface = Surface(Kernel(md))
+    for j in range(len(traits)):
+        for k in range(j + 1, len(traits)):
+            fit = fit_bivariate(surface, (j, k))
+            term = f"{traits[j]}:{traits[k]}"
+            rows.append(_row("", Q.GENETIC_CORRELATION, term, fit.rg, fit.rg_se, fit.rg_low, fit.rg_high, fit.n))
+            rg[(traits[j], traits[k])] = fit.rg
+    notes.append((ALL, ALL, "", Q.GENETIC_CORRELATION,
+                  "Genetic correlations come from bivariate animal models on the individuals with every trait; "
+                  "their intervals are Wald intervals on the atanh scale."))
+    return rg
+
+
+def price_rows(data, design: Design, ped: Pedigree, values: pd.DataFrame, fitness_names: list[str],
+               ticker: Progress, rows: list[dict], notes: list[tuple]) -> None:
+    """Robertson-Price responses: the additive genetic covariance of each trait with relative fitness, from
+    bivariate animal models, with a normal 95 % interval, into ``rows``."""
+    traits = list(values.columns)
     for f in fitness_names:
         w = relative_fitness(data, design, f).rename("__w")
         md, _ = model_data(data, design, ped, pd.concat([values[traits], w], axis=1))
-        tick(f"animal model, {f}")
+        ticker.tick(1, f"animal model, {f}")
         why = _unusable(ped, md)
         if why:
-            notes.append((ALL, ALL, f, RESPONSE_PRICE, f"No Robertson-Price response for {f}: {why}."))
+            notes.append((ALL, ALL, f, Q.RESPONSE_PRICE, f"No Robertson-Price response for {f}: {why}."))
             continue
         surface = Surface(Kernel(md))
         for j, t in enumerate(traits):
             fit = fit_bivariate(surface, (j, len(traits)))
-            half = Z95 * fit.cov_a_se
-            rows.append(_row(f, RESPONSE_PRICE, t, fit.cov_a, fit.cov_a_se, fit.cov_a - half, fit.cov_a + half, fit.n))
-    if any(r["quantity"] == RESPONSE_PRICE for r in rows):
-        notes.append((ALL, ALL, "", RESPONSE_PRICE,
+            half = Z975 * fit.cov_a_se
+            rows.append(_row(f, Q.RESPONSE_PRICE, t, fit.cov_a, fit.cov_a_se, fit.cov_a - half, fit.cov_a + half, fit.n))
+    if any(r["quantity"] == Q.RESPONSE_PRICE for r in rows):
+        notes.append((ALL, ALL, "", Q.RESPONSE_PRICE,
                       "Robertson-Price responses are additive genetic covariances of each trait with relative fitness "
                       "(relative within its season and site) per generation, from bivariate animal models on the "
                       "individuals with every trait and that fitness; intervals are estimate +- 1.96 se."))
-    return Genetics(rows, notes, h2, rg, summary)
 
 
 def _unusable(ped: Pedigree, md) -> str:

@@ -10,22 +10,16 @@ statistics library is needed.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from fieldslope.analysis.logistic import Separation, fit_logistic
+from fieldslope.analysis.tails import chi2_upper
 
 
 def log_likelihood(y: np.ndarray, p_hat: np.ndarray) -> float:
     """Bernoulli log-likelihood of 0/1 ``y`` at fitted probabilities ``p_hat``."""
     p = np.clip(p_hat, 1e-300, 1 - 1e-16)
     return float(np.sum(y * np.log(p) + (1 - y) * np.log1p(-p)))
-
-
-def chi2_1_upper(d: float) -> float:
-    """P(chi-square with 1 df >= d) = erfc(sqrt(d / 2))."""
-    return math.erfc(math.sqrt(max(d, 0.0) / 2))
 
 
 def slope_p_values(X: np.ndarray, y: np.ndarray, p_hat: np.ndarray) -> np.ndarray:
@@ -38,5 +32,5 @@ def slope_p_values(X: np.ndarray, y: np.ndarray, p_hat: np.ndarray) -> np.ndarra
             reduced = fit_logistic(np.delete(X, j, axis=1), y)
         except Separation:
             continue
-        out[j - 1] = chi2_1_upper(2 * (full - log_likelihood(y, reduced.p_hat)))
+        out[j - 1] = chi2_upper(2 * (full - log_likelihood(y, reduced.p_hat)), 1)
     return out

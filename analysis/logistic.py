@@ -117,37 +117,13 @@ def batched_logistic(
     """
     beta = start.copy()
     B, k = beta.shape
-    a, b = np.triu_indices(k)
-    prep = []
-    for i, (X, y, C, _) in enumerate(cells):
-        feats = X[:, a] * X[:, b]  # products of pairs; the first, x~_0 x~_0, is 1 (intercept)
-        if sums is not None:
-            const = sums[i]
-        else:  # sum C y x, sum C y, sum C
-            const = C @ np.column_stack([X * y[:, None], y, np.ones(len(X))])
-        prep.append((feats, const, np.ascontiguousarray(X.T)))
+    prep = cell_sums(cells, sums)
     ok = np.ones(B, dtype=bool)
     pq_sum = np.zeros(B)
     active = np.arange(B)
     eye = np.eye(k)
     for _ in range(max_iter):
-        H = np.zeros((len(active), k, k))
-        g = np.zeros((len(active), k))
-        v = np.zeros((len(active), k))
-        pq = np.zeros(len(active))
-        for (X, _, C, T), (feats, const, XT) in zip(cells, prep):
-            Ta = T[active]
-            theta = np.einsum("bak,ba->bk", Ta, beta[active])
-            packed, gz, vz = weighted_pass(X, XT, feats, C, active, theta)
-            gz = const[active, :k] - gz  # sum C (y - p) x~
-            vz = packed[:, :k] - 2 * vz  # sum C p(1-p)(1-2p) x~ (x~_0 = 1)
-            Hz = np.empty((len(active), k, k))
-            Hz[:, a, b] = packed
-            Hz[:, b, a] = packed
-            H += Ta @ Hz @ np.swapaxes(Ta, 1, 2)
-            g += np.einsum("bij,bj->bi", Ta, gz)
-            v += np.einsum("bij,bj->bi", Ta, vz)
-            pq += packed[:, 0]  # sum C p(1-p)
+        H, g, v, pq = newton_terms(cells, prep, beta, active)
         bad = ~ok[active] | ~np.isfinite(H).all(axis=(1, 2)) | ~np.isfinite(g).all(axis=1)
         ok[active[bad]] = False
         H[bad] = eye
@@ -170,6 +146,46 @@ def batched_logistic(
     n_sum = sum(const[:, k + 1] for _, const, _ in prep)
     beta[~ok] = np.nan
     return beta, pq_sum / n_sum, y_sum / n_sum, ok
+
+
+def cell_sums(cells: list, sums: list[np.ndarray] | None) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    """Per cell, what every Newton pass reuses: the products of pairs of columns of X~ (upper triangle, in
+    ``np.triu_indices`` order), the count-weighted sums [C y x~, C y, C] (B x k+2; ``sums`` if given), and X~'."""
+    prep = []
+    for i, (X, y, C, _) in enumerate(cells):
+        a, b = np.triu_indices(X.shape[1])
+        feats = X[:, a] * X[:, b]  # products of pairs; the first, x~_0 x~_0, is 1 (intercept)
+        if sums is not None:
+            const = sums[i]
+        else:  # sum C y x, sum C y, sum C
+            const = C @ np.column_stack([X * y[:, None], y, np.ones(len(X))])
+        prep.append((feats, const, np.ascontiguousarray(X.T)))
+    return prep
+
+
+def newton_terms(cells: list, prep: list, beta: np.ndarray, active: np.ndarray):
+    """For the ``active`` resamples at coefficients ``beta``, summed over the cells on the standardized scale:
+    the information H (m x k x k), the score g (m x k), v = d/dbeta of sum C p(1-p) (m x k), and sum C p(1-p)."""
+    k = beta.shape[1]
+    a, b = np.triu_indices(k)
+    H = np.zeros((len(active), k, k))
+    g = np.zeros((len(active), k))
+    v = np.zeros((len(active), k))
+    pq = np.zeros(len(active))
+    for (X, _, C, T), (feats, const, XT) in zip(cells, prep):
+        Ta = T[active]
+        theta = np.einsum("bak,ba->bk", Ta, beta[active])
+        packed, gz, vz = weighted_pass(X, XT, feats, C, active, theta)
+        gz = const[active, :k] - gz  # sum C (y - p) x~
+        vz = packed[:, :k] - 2 * vz  # sum C p(1-p)(1-2p) x~ (x~_0 = 1)
+        Hz = np.empty((len(active), k, k))
+        Hz[:, a, b] = packed
+        Hz[:, b, a] = packed
+        H += Ta @ Hz @ np.swapaxes(Ta, 1, 2)
+        g += np.einsum("bij,bj->bi", Ta, gz)
+        v += np.einsum("bij,bj->bi", Ta, vz)
+        pq += packed[:, 0]  # sum C p(1-p)
+    return H, g, v, pq
 
 
 def taylor_start(beta0: np.ndarray, terms: list, ok: np.ndarray, rounds: int = 5) -> np.ndarray:

@@ -47,14 +47,10 @@ def poly_features(zt: np.ndarray) -> np.ndarray:
     return np.column_stack([np.ones(n), zt, *quad])
 
 
-def upper_pairs(d: int) -> tuple[np.ndarray, np.ndarray]:
-    return np.triu_indices(d)
-
-
 def multi_columns(zt: np.ndarray, wt: np.ndarray, quadratic: bool) -> np.ndarray:
     """Products phi_a phi_b (a <= b) then phi_a W~, then W~^2."""
     phi = poly_features(zt) if quadratic else np.column_stack([np.ones(len(zt)), zt])
-    a, b = upper_pairs(phi.shape[1])
+    a, b = np.triu_indices(phi.shape[1])
     return np.column_stack([phi[:, a] * phi[:, b], phi * wt[:, None], wt**2])
 
 
@@ -132,7 +128,7 @@ class FeatureMatrix:
 
 def unpack_multi(M: np.ndarray, d: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Moment matrix (B x d x d), fitness moments (B x d) and sum of W~^2 from packed sums."""
-    a, b = upper_pairs(d)
+    a, b = np.triu_indices(d)
     k = len(a)
     Mz = np.empty((M.shape[0], d, d))
     Mz[:, a, b] = M[:, :k]

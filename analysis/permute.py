@@ -29,16 +29,13 @@ import numpy as np
 
 from fieldslope.analysis.cells import Prepared
 from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
+from fieldslope.analysis.standardize import standardize
 from fieldslope.common.names import ALL, Q
 
 # a model whose normal equations have a condition number beyond this is not tested (collinear)
 CONDITION_LIMIT = 1e12
 # permutations per matrix product: bounds the permuted design to about this many numbers
 BLOCK = 2_500_000
-
-
-def standardized(z: np.ndarray) -> np.ndarray:
-    return (z - z.mean(axis=0)) / z.std(axis=0, ddof=1)
 
 
 @dataclass
@@ -179,7 +176,7 @@ class SeasonPermuter:
     def add_design(self, c: int, pr: Prepared, f: str) -> tuple[tuple, int]:
         key = (c, pr.multi.rows.tobytes())
         if key not in self.designs:
-            x = standardized(pr.multi.z)
+            x = standardize(pr.multi.z)[0]
             X = np.column_stack([np.ones(len(x)), x, quad_features(x)])
             self.designs[key] = CellDesign(pr.multi.rows, pr.multi.z.std(axis=0, ddof=1), X)
         design = self.designs[key]

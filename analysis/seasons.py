@@ -18,7 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-Z975 = 1.959963984540054  # the 97.5 % point of the standard normal distribution
+from fieldslope.analysis.tails import Z975, chi2_upper, normal_two_sided, t_quantile, t_upper2
+
 METHODS = ("dl", "hk")
 
 
@@ -44,46 +45,6 @@ class Combined:
         return self.mean - Z975 * self.se, self.mean + Z975 * self.se
 
 
-def chi2_upper(x: float, df: int) -> float:
-    """Upper tail P(X >= x) of a chi-square variable with a whole number ``df`` of degrees of freedom.
-
-    Closed forms of the regularized upper gamma function at half-integer shape (Abramowitz & Stegun
-    1964, 26.4.4 and 26.4.5): a finite Poisson sum for even df, erfc plus a finite sum for odd df.
-    Plain ``math``, so the estimates need not load scipy.stats for one tail.
-    """
-    if not math.isfinite(x):
-        return math.nan if math.isnan(x) else 0.0
-    if x <= 0:
-        return 1.0
-    half = x / 2
-    if df % 2 == 0:
-        term, total = 1.0, 1.0
-        for i in range(1, df // 2):
-            term *= half / i
-            total += term
-        return min(1.0, math.exp(-half) * total)
-    term = math.sqrt(half) / math.gamma(1.5)  # (x/2)^(1/2) / Gamma(3/2)
-    total = 0.0
-    for i in range((df - 1) // 2):
-        total += term
-        term *= half / (i + 1.5)  # Gamma(i + 5/2) = (i + 3/2) Gamma(i + 3/2)
-    return min(1.0, math.erfc(math.sqrt(half)) + math.exp(-half) * total)
-
-
-def t_quantile(p: float, df: int) -> float:
-    """Quantile of Student's t (scipy.special, imported only for the Hartung-Knapp option)."""
-    from scipy.special import stdtrit
-
-    return float(stdtrit(df, p))
-
-
-def t_upper2(t: float, df: int) -> float:
-    """Two-sided tail of Student's t."""
-    from scipy.special import stdtr
-
-    return float(2 * stdtr(df, -abs(t)))
-
-
 def combine(estimates: np.ndarray, ses: np.ndarray, method: str = "dl") -> Combined:
     """Fixed-effect mean, Cochran's Q, the DerSimonian & Laird tau^2 and the random-effects mean of
     k >= 2 estimates; ``method`` "dl" (normal interval) or "hk" (Hartung-Knapp)."""
@@ -106,7 +67,7 @@ def combine(estimates: np.ndarray, ses: np.ndarray, method: str = "dl") -> Combi
         p_re = t_upper2(mean_re / se_re, k - 1) if se_re > 0 else math.nan
     else:
         crit = Z975
-        p_re = math.erfc(abs(mean_re / se_re) / math.sqrt(2)) if se_re > 0 else math.nan
+        p_re = normal_two_sided(mean_re / se_re) if se_re > 0 else math.nan
     ci = (mean_re - crit * se_re, mean_re + crit * se_re)
     return Combined(mean, float(np.sqrt(1 / np.sum(w))), q, chi2_upper(q, k - 1), tau2, k,
                     mean_re, se_re, ci, p_re, method)

@@ -29,7 +29,7 @@ and permutation p-values with a fixed default seed).
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
@@ -44,6 +44,7 @@ from fieldslope.common.errors import EstimationError
 from fieldslope.analysis.fitness import add_totals, total_kind
 from fieldslope.analysis.permute import SeasonPermuter, permute_season
 from fieldslope.analysis.point import point_block
+from fieldslope.analysis.progress import Progress, ProgressCallback
 from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval
 from fieldslope.analysis.response_interval import response_intervals
 from fieldslope.common.names import ALL, Q
@@ -158,7 +159,7 @@ def estimate_table(
     bootstrap: int = 2000,
     seed: int = DEFAULT_SEED,
     permutations: int | None = None,
-    progress: Callable[[int, int, str], None] | None = None,
+    progress: ProgressCallback | None = None,
     h2: dict[str, tuple[float, float | None, str]] | None = None,
     genetic_correlations: dict[tuple[str, str], float] | None = None,
     fitness: Sequence[str] | None = None,
@@ -183,6 +184,13 @@ def estimate_table(
     is slow) adds the animal-model rows; its heritabilities and genetic
     correlations then give the responses and the G of Delta z = G beta.
     ``random_effects`` picks the interval of the mean gradient across seasons when tau^2 > 0: "dl" (DerSimonian-Laird, normal) or "hk" (Hartung-Knapp).
+
+    Returns ``Estimates`` (the tidy table with columns ``COLUMNS``, and notes); raises
+    ``EstimationError`` (one sentence) when the data lack a column the design names. Methods:
+    Lande & Arnold 1983 (Evolution 37:1210-1226) for differentials and gradients on relative fitness
+    and standardized traits; percentile bootstrap intervals (Efron & Tibshirani 1993, An Introduction to
+    the Bootstrap, ch. 13); permutation p-values (Freedman & Lane 1983, J. Bus. Econ. Stat. 1:292-298);
+    the others as their modules say.
     """
     fitness_names = list(fitness) if fitness is not None else list(design.fitness_names)
     check_frame(frame, design, fitness_names)
@@ -199,55 +207,14 @@ def estimate_table(
 
             h_notes += genetics.notes + use_pedigree(genetics, used_h2, design.traits)
             genetic_correlations = {**genetics.rg, **(genetic_correlations or {})}
+        run = Run(design, fitness_names, bootstrap, permutations, seed, used_h2, genetic_correlations,
+                  Progress(len(seasons) * (bootstrap + permutations), progress))
         rows: list[dict] = []
         notes: list[Note] = [Note(*n) for n in h_notes]
         rg_assumed = False
-        total = len(seasons) * (bootstrap + permutations)
-        done = [0]
-
-        def tick(k: int, label: str) -> None:
-            done[0] += k
-            if progress is not None:
-                progress(done[0], total, label)
-
         for season, cells in seasons.items():
-            traits, cells, lacking = measured_traits(design.traits, cells)
-            if lacking:
-                notes.append(Note(season, ALL, "", "", f"Season {season} has no values of {', '.join(lacking)}, so its "
-                                  + (f"estimates use the traits it measured ({', '.join(traits)})." if traits else "traits have no estimates.")))
-            if not traits:
-                tick(bootstrap + permutations, f"season {season}")
-                continue
-            season_rows, preps_by_f, pooled = [], {}, not (len(cells) == 1 and cells[0].site == ALL)
-            for f in fitness_names:
-                kind = total_kind(design, f)
-                preps = [prepare(c, f, kind, traits) for c in cells]
-                preps_by_f[f] = preps
-                for pr in preps:
-                    notes.extend(Note(season, pr.cell.site, f, q, m) for q, m in pr.notes)
-                units = [(pr.cell.site, [pr]) for pr in preps]
-                if pooled:
-                    units.append((ALL, preps))
-                left_out = [pr.cell.site for pr in preps if pr.multi is None]
-                if pooled and left_out and len(left_out) < len(preps):
-                    notes.append(Note(season, ALL, f, Q.GRADIENT,
-                                      f"Pooled gradients of season {season} for {f} leave out site(s) {', '.join(left_out)} "
-                                      "(see their notes)."))
-                for site, block in units:
-                    res = point_block(block, traits, f"in season {season}, site {site}", tests=permutations > 0)
-                    notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
-                    season_rows.extend(
-                        dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
-                             estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=r.p, n=r.n)
-                        for r in res.rows
-                    )
-                    extra, assumed = response_rows(season, site, f, res, traits, used_h2, genetic_correlations)
-                    season_rows.extend(extra)
-                    rg_assumed |= assumed
-            if bootstrap > 0 or permutations > 0:
-                notes.extend(attach_uncertainty(season, season_rows, preps_by_f, traits, pooled,
-                                                bootstrap, permutations, seed, tick, used_h2))
-            rows.extend(season_rows)
+            assumed = season_estimates(run, season, cells, rows, notes)
+            rg_assumed |= assumed
         if len(seasons) > 1:
             t_rows, t_notes = temporal_rows(rows, list(seasons), random_effects)
             rows.extend(t_rows)
@@ -261,3 +228,68 @@ def estimate_table(
     table = pd.DataFrame(rows, columns=COLUMNS)
     table["n"] = table["n"].astype("Int64")
     return Estimates(table=table, notes=tuple(notes))
+
+
+@dataclass(frozen=True)
+class Run:
+    """What one ``estimate_table`` call asks for, handed to the per-season steps."""
+
+    design: Design
+    fitness_names: list[str]
+    bootstrap: int
+    permutations: int
+    seed: int
+    used_h2: dict  # trait -> (h2, se or None), as the responses use it
+    genetic_correlations: dict | None
+    ticker: Progress
+
+
+def season_estimates(run: Run, season: str, cells: list, rows: list[dict], notes: list[Note]) -> bool:
+    """One season's rows (every cell, the pooled block, responses, intervals and p-values) and notes, appended
+    to ``rows`` and ``notes``; True if phenotypic correlations stood in for genetic ones."""
+    traits, cells, lacking = measured_traits(run.design.traits, cells)
+    if lacking:
+        notes.append(Note(season, ALL, "", "", f"Season {season} has no values of {', '.join(lacking)}, so its "
+                          + (f"estimates use the traits it measured ({', '.join(traits)})." if traits else "traits have no estimates.")))
+    if not traits:
+        run.ticker.tick(run.bootstrap + run.permutations, f"season {season}")
+        return False
+    season_rows, preps_by_f, pooled = [], {}, not (len(cells) == 1 and cells[0].site == ALL)
+    rg_assumed = False
+    for f in run.fitness_names:
+        preps_by_f[f] = [prepare(c, f, total_kind(run.design, f), traits) for c in cells]
+        rg_assumed |= fitness_estimates(run, season, traits, f, preps_by_f[f], pooled, season_rows, notes)
+    if run.bootstrap > 0 or run.permutations > 0:
+        notes.extend(attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, run.bootstrap,
+                                        run.permutations, run.seed, run.ticker.tick, run.used_h2))
+    rows.extend(season_rows)
+    return rg_assumed
+
+
+def fitness_estimates(run: Run, season: str, traits, f: str, preps: list, pooled: bool, season_rows: list[dict],
+                      notes: list[Note]) -> bool:
+    """Point estimates and responses of one fitness measure in each cell of a season and pooled over them;
+    True if phenotypic correlations stood in for genetic ones."""
+    for pr in preps:
+        notes.extend(Note(season, pr.cell.site, f, q, m) for q, m in pr.notes)
+    units = [(pr.cell.site, [pr]) for pr in preps]
+    if pooled:
+        units.append((ALL, preps))
+    left_out = [pr.cell.site for pr in preps if pr.multi is None]
+    if pooled and left_out and len(left_out) < len(preps):
+        notes.append(Note(season, ALL, f, Q.GRADIENT,
+                          f"Pooled gradients of season {season} for {f} leave out site(s) {', '.join(left_out)} "
+                          "(see their notes)."))
+    rg_assumed = False
+    for site, block in units:
+        res = point_block(block, traits, f"in season {season}, site {site}", tests=run.permutations > 0)
+        notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
+        season_rows.extend(
+            dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
+                 estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=r.p, n=r.n)
+            for r in res.rows
+        )
+        extra, assumed = response_rows(season, site, f, res, traits, run.used_h2, run.genetic_correlations)
+        season_rows.extend(extra)
+        rg_assumed |= assumed
+    return rg_assumed

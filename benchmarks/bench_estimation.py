@@ -34,6 +34,7 @@ from fieldslope.analysis.design import Design  # noqa: E402
 from fieldslope.analysis.logistic import weighted_pass  # noqa: E402
 from fieldslope.analysis.resample import CHUNK, SeasonResampler, draw_counts  # noqa: E402
 from fieldslope.analysis.table import BLAS_THREADS, estimate_table  # noqa: E402
+from fieldslope.common.names import ALL, Q  # noqa: E402
 from threadpoolctl import threadpool_limits  # noqa: E402
 
 TRAITS = ("length", "depth", "spots")
@@ -126,7 +127,7 @@ def coverage(seasons: int, B: int, n: int = 150, beta: float = 0.3, seed: int = 
         w = 1 + beta * x + rng.uniform(-0.4, 0.4, n)
         frame = pd.DataFrame({"id": np.arange(n).astype(str), "season": "s", "z": x, "w": w})
         t = estimate_table(frame, design, bootstrap=B, permutations=0, seed=s).table
-        r = t[(t.quantity == "gradient") & (t.site == "all")].iloc[0]
+        r = t[(t.quantity == Q.GRADIENT) & (t.site == ALL)].iloc[0]
         hits += r.ci_low <= beta <= r.ci_high
     return hits / seasons
 
