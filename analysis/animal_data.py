@@ -17,6 +17,8 @@ from fieldslope.analysis.cells import as_text, natural_key
 from fieldslope.analysis.design import Design
 from fieldslope.analysis.pedigree import Pedigree
 
+__all__ = ["model_data", "relative_fitness"]
+
 
 def cell_labels(frame: pd.DataFrame, design: Design) -> pd.Series:
     label = as_text(frame[design.season])
@@ -26,7 +28,11 @@ def cell_labels(frame: pd.DataFrame, design: Design) -> pd.Series:
 
 
 def relative_fitness(frame: pd.DataFrame, design: Design, fitness: str) -> pd.Series:
-    """w = W / mean(W) within each cell; NaN where the cell's mean is not positive."""
+    """w = W / mean(W) within each cell; NaN where the cell's mean is not positive.
+
+    Parameters: ``frame``, ``design`` and the fitness column. Returns a Series aligned with ``frame``. Source:
+    relative fitness within cells, Lande & Arnold 1983, Evolution 37:1210-1226.
+    """
     W = pd.to_numeric(frame[fitness], errors="coerce").astype(float)
     mean = W.groupby(cell_labels(frame, design)).transform("mean")
     return (W / mean.where(mean > 0)).astype(float)
@@ -34,7 +40,13 @@ def relative_fitness(frame: pd.DataFrame, design: Design, fitness: str) -> pd.Se
 
 def model_data(frame: pd.DataFrame, design: Design, ped: Pedigree, responses: pd.DataFrame) -> tuple[MixedData, int]:
     """The model for the columns of ``responses`` (aligned with ``frame``): records with every column present,
-    the earliest per individual; returns the data and how many later records were left out."""
+    the earliest per individual; returns the data and how many later records were left out.
+
+    Parameters: effective data ``frame``, ``design``, the pedigree ``ped`` and the response columns. Returns
+    (MixedData, later records left out). Source: the mixed-model equations of Henderson 1984 (Applications of
+    Linear Models in Animal Breeding); the animal model in wild populations, Kruuk 2004 (Phil. Trans. R. Soc.
+    B 359:873-890).
+    """
     ids = frame[design.id].astype("string").str.strip()
     rank = {s: k for k, s in enumerate(sorted(as_text(frame[design.season]).unique(), key=natural_key))}
     keep = responses.notna().all(axis=1) & ids.notna() & (ids != "")

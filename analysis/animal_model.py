@@ -33,12 +33,17 @@ from scipy.optimize import brentq, fminbound, minimize
 
 from fieldslope.analysis.tails import Z975
 
+__all__ = ["H_MAX", "MixedData", "Kernel", "UnivariateFit", "fit_univariate", "Surface", "BivariateFit",
+           "fit_bivariate"]
+
 H_MAX = 0.999  # largest h searched (h = 1 leaves no residual variance)
 CHI2_95 = 3.841458820694124  # chi-square(1) 95 % point: the likelihood interval's drop in -2 log L
 
 
 @dataclass(frozen=True)
 class MixedData:
+    """The animal model's data: fixed and random design, A^-1, log det A and the responses."""
+
     X: sp.csc_matrix  # n records x p fixed effects (one mean per cell)
     Z: sp.csc_matrix  # n records x q individuals of the pedigree
     a_inv: sp.csc_matrix  # q x q
@@ -112,6 +117,8 @@ class Kernel:
 
 @dataclass(frozen=True)
 class UnivariateFit:
+    """One trait's REML fit: h^2 with se and likelihood interval, V_A with se, n."""
+
     h2: float
     h2_se: float
     h2_low: float
@@ -126,7 +133,12 @@ class UnivariateFit:
 
 
 def fit_univariate(kernel: Kernel, column: int = 0, xtol: float = 1e-6) -> UnivariateFit:
-    """REML estimates of s2_A, s2_E and h^2, with the profile-likelihood 95 % interval of h^2."""
+    """REML estimates of s2_A, s2_E and h^2, with the profile-likelihood 95 % interval of h^2.
+
+    Parameters: a ``Kernel`` (the mixed-model equations), the response ``column`` and the search tolerance.
+    Returns a ``UnivariateFit``. Source: REML, Patterson & Thompson 1971 (Biometrika 58:545-554); the mixed-
+    model equations, Henderson 1984 (Applications of Linear Models in Animal Breeding).
+    """
     dev = lambda h: kernel.deviance(h, column)[0]  # noqa: E731
     h = float(fminbound(dev, 0.0, H_MAX, xtol=xtol))
     for edge in (0.0, H_MAX):
@@ -250,6 +262,8 @@ def bivariate_deviance(surface: Surface, pair: tuple[int, int], scale: np.ndarra
 
 @dataclass(frozen=True)
 class BivariateFit:
+    """Two responses' REML fit: G, R, r_g with se and interval, cov_A with se, n."""
+
     G: np.ndarray  # additive genetic (co)variances, response units
     R: np.ndarray  # residual (co)variances
     rg: float
@@ -267,7 +281,12 @@ RG_EDGE = 0.999  # a genetic correlation this close to +-1 is on the edge: no st
 
 
 def fit_bivariate(surface: Surface, pair: tuple[int, int], rounds: int = 12) -> BivariateFit:
-    """REML (co)variances of two response columns; r_g with a Wald interval on the atanh scale."""
+    """REML (co)variances of two response columns; r_g with a Wald interval on the atanh scale.
+
+    Parameters: a ``Surface`` of the kernel, the ``pair`` of response columns and the refinement rounds.
+    Returns a ``BivariateFit``. Source: REML, Patterson & Thompson 1971 (Biometrika 58:545-554); the atanh
+    scale, Fisher 1921 (Metron 1:3-32).
+    """
     kernel = surface.kernel
     idx = list(pair)
     S0 = surface.S(0.0)[np.ix_(idx, idx)] / (kernel.n - kernel.p)  # residual covariance of the fixed-effects fit

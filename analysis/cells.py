@@ -19,11 +19,16 @@ from fieldslope.analysis.fitness import is_binary
 from fieldslope.analysis.standardize import constant_columns
 from fieldslope.common.names import ALL, Q
 
+__all__ = ["Cell", "Sample", "Prepared", "MIN_SINGLE", "natural_key", "as_text", "split_cells",
+           "measured_traits", "prepare"]
+
 MIN_SINGLE = 3  # individuals for a per-trait differential with a standard error
 
 
 @dataclass(frozen=True)
 class Cell:
+    """One season and site: traits (individuals x traits) and absolute fitness per measure."""
+
     season: str
     site: str
     z: np.ndarray  # individuals x traits, raw units, NaN = missing
@@ -54,7 +59,10 @@ class Prepared:
 
 
 def natural_key(text: str) -> list:
-    """Sort key that orders '2' before '10' inside text."""
+    """Sort key that orders '2' before '10' inside text.
+
+    Parameters: ``text``. Returns the key (a list). Source: none (bookkeeping, no published method).
+    """
     return [int(part) if part.isdigit() else part for part in re.split(r"(\d+)", text)]
 
 
@@ -62,12 +70,20 @@ MISSING_LABEL = "(blank)"
 
 
 def as_text(col: pd.Series) -> pd.Series:
-    """Labels as plain text; a missing season or group value becomes "(blank)"."""
+    """Labels as plain text; a missing season or group value becomes "(blank)".
+
+    Parameters: a column. Returns it as text. Source: none (bookkeeping, no published method).
+    """
     return col.astype(object).where(col.notna(), MISSING_LABEL).astype(str)
 
 
 def split_cells(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -> dict[str, list[Cell]]:
-    """Cells per season (seasons and sites in natural order)."""
+    """Cells per season (seasons and sites in natural order).
+
+    Parameters: effective data with totals, ``design`` and the fitness measures. Returns season -> list of
+    ``Cell``. Source: selection measured within cells (one season and site), Lande & Arnold 1983, Evolution
+    37:1210-1226.
+    """
     seasons = as_text(frame[design.season])
     if design.groups:
         site = as_text(frame[design.groups[0]])
@@ -91,7 +107,11 @@ def split_cells(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
 
 def measured_traits(traits: tuple[str, ...], cells: list[Cell]) -> tuple[tuple[str, ...], list[Cell], list[str]]:
     """The traits with at least one value in a season's cells, the cells cut to those traits, and the
-    traits the season lacks (a trait added to the protocol in a later season has no values in earlier ones)."""
+    traits the season lacks (a trait added to the protocol in a later season has no values in earlier ones).
+
+    Parameters: the design's ``traits`` and a season's ``cells``. Source: none (bookkeeping, no published
+    method).
+    """
     has = [any(np.any(~np.isnan(c.z[:, j])) for c in cells) for j in range(len(traits))]
     if all(has):
         return traits, cells, []
@@ -101,7 +121,11 @@ def measured_traits(traits: tuple[str, ...], cells: list[Cell]) -> tuple[tuple[s
 
 
 def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Prepared:
-    """The samples of ``cell`` for ``fitness``; unusable ones are None with a note saying why."""
+    """The samples of ``cell`` for ``fitness``; unusable ones are None with a note saying why.
+
+    Parameters: one ``cell``, the ``fitness`` measure, its ``kind`` and the ``traits``. Returns ``Prepared``.
+    Source: the samples each quantity of Lande & Arnold 1983, Evolution 37:1210-1226 needs.
+    """
     W = cell.fitness[fitness]
     has_w = ~np.isnan(W)
     where = f"in season {cell.season}, site {cell.site}"

@@ -12,14 +12,23 @@ from fieldslope.analysis.response import breeders_response, genetic_covariance, 
 from fieldslope.analysis.seasons import combine, sign_changes, significant_sign_changes
 from fieldslope.common.names import ALL, Q
 
+__all__ = ["row", "heritabilities", "response_rows", "temporal_rows"]
+
 
 def row(season, site, fitness, quantity, term, estimate, se=np.nan, p=np.nan, n=None) -> dict:
+    """A table row as a dict with the binding columns (intervals NaN). Parameters: the key columns, the estimate,
+    and optionally se, p and n. Source: none (bookkeeping, no published method).
+    """
     return dict(season=season, site=site, fitness=fitness, quantity=quantity, term=term, estimate=float(estimate),
                 se=float(se), ci_low=np.nan, ci_high=np.nan, p_value=float(p), n=n)
 
 
 def heritabilities(data: pd.DataFrame, design: Design, entered: dict | None):
-    """(rows, notes, used) where used maps trait -> (h2, se or None) for the responses."""
+    """(rows, notes, used) where used maps trait -> (h2, se or None) for the responses.
+
+    Parameters: effective data, ``design`` and the entered h^2 (trait -> (value, se, source)). Source: parent-
+    offspring regression, Falconer & Mackay 1996, Introduction to Quantitative Genetics, 4th ed., ch. 10.
+    """
     rows, notes, used = [], [], {}
     entered = entered or {}
     pedigree = code_pedigree(data, design) if design.mother is not None or design.father is not None else None
@@ -65,7 +74,12 @@ def correlation_matrix(traits, P: np.ndarray, given: dict | None) -> tuple[np.nd
 
 
 def response_rows(season, site, fitness, res: BlockResult, traits, used: dict, rg_given) -> tuple[list, bool]:
-    """response, response_pct and response_multi rows of one block; True if phenotypic r were assumed for r_g."""
+    """response, response_pct and response_multi rows of one block; True if phenotypic r were assumed for r_g.
+
+    Parameters: the block's key, its ``BlockResult``, the traits, the h^2 used and the given r_g. Returns
+    (rows, assumed). Source: the breeder's equation R = h^2 S (Falconer & Mackay 1996, Introduction to
+    Quantitative Genetics, 4th ed., ch. 11); Delta z = G beta, Lande 1979 (Evolution 33:402-416).
+    """
     found = {(r.quantity, r.term): r for r in res.rows}
     out = []
     for name in traits:
@@ -90,7 +104,13 @@ def response_rows(season, site, fitness, res: BlockResult, traits, used: dict, r
 
 def temporal_rows(table_rows: list[dict], season_order: list[str], method: str = "dl") -> tuple[list[dict], list[tuple]]:
     """Across-season rows per site, fitness and trait from the seasons' gradients (``method``: the
-    random-effects interval, "dl" DerSimonian-Laird or "hk" Hartung-Knapp; see ``seasons.combine``)."""
+    random-effects interval, "dl" DerSimonian-Laird or "hk" Hartung-Knapp; see ``seasons.combine``).
+
+    Parameters: the seasons' rows, the seasons in order and the method. Returns (rows, notes). Source: Cochran
+    1954 (Biometrics 10:101-129); DerSimonian & Laird 1986 (Controlled Clinical Trials 7:177-188); Hartung &
+    Knapp 2001 (Stat. Med. 20:3875-3889); sign changes as counted by Siepielski, DiBattista & Carlson 2009
+    (Ecol. Lett. 12:1261-1276).
+    """
     rows, notes = [], []
     rank = {s: i for i, s in enumerate(season_order)}
     series: dict[tuple, list] = {}

@@ -9,9 +9,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+__all__ = ["Design"]
+
 
 @dataclass(frozen=True)
 class Design:
+    """The effective data's column names, each fitness measure's kind and the declared totals."""
+
     traits: tuple[str, ...]
     # measured fitness components: name -> "binary" | "count" | "continuous"
     fitness: dict[str, str]

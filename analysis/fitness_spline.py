@@ -24,6 +24,9 @@ import numpy as np
 from scipy.linalg import cho_solve_banded, cholesky_banded, solveh_banded
 from scipy.optimize import minimize_scalar
 
+__all__ = ["SplineFit", "FitnessFunction", "smoothing_spline", "evaluate", "resample_rng", "resample_counts",
+           "fitness_function"]
+
 MIN_DISTINCT = 5          # fewer distinct trait values: no curve
 # trait values closer than this fraction of their range are pooled (the knots' spacing sets how well
 # the band system is conditioned; 1/1000 of the range is finer than field measurements)
@@ -140,7 +143,10 @@ class _Reinsch:
 
 def evaluate(knots: np.ndarray, g: np.ndarray, gamma: np.ndarray, x: np.ndarray) -> np.ndarray:
     """A natural cubic spline from its values and second derivatives (Green & Silverman 1994, eq. 2.5);
-    straight lines beyond the end knots."""
+    straight lines beyond the end knots.
+
+    Parameters: a ``SplineFit`` and the points. Returns the values there.
+    """
     h = np.diff(knots)
     i = np.clip(np.searchsorted(knots, x, side="right") - 1, 0, len(knots) - 2)
     left, right = x - knots[i], knots[i + 1] - x
@@ -155,7 +161,12 @@ def evaluate(knots: np.ndarray, g: np.ndarray, gamma: np.ndarray, x: np.ndarray)
 
 def smoothing_spline(x, y, weights=None, lam: float | None = None, pool: bool = True) -> SplineFit:
     """The cubic smoothing spline of y on x; λ by GCV when not given. Raises ValueError with too few
-    distinct x values. ``pool`` puts x on the RESOLUTION grid first."""
+    distinct x values. ``pool`` puts x on the RESOLUTION grid first.
+
+    Parameters: ``x``, ``y``, optionally weights, λ and ``pool``. Returns a ``SplineFit``. Source: Reinsch
+    1967 (Numer. Math. 10:177-183); GCV, Craven & Wahba 1979 (Numer. Math. 31:377-403); Green & Silverman 1994
+    (Nonparametric Regression and Generalized Linear Models).
+    """
     x, y = np.asarray(x, float), np.asarray(y, float)
     c = np.ones_like(x) if weights is None else np.asarray(weights, float)
     keep = np.isfinite(x) & np.isfinite(y) & (c > 0)
@@ -198,13 +209,21 @@ def smoothing_spline(x, y, weights=None, lam: float | None = None, pool: bool = 
 
 
 def resample_rng(seed: int, *labels: str) -> np.random.Generator:
-    """The generator of one band: depends only on the seed and the labels (season, site, trait)."""
+    """The generator of one band: depends only on the seed and the labels (season, site, trait).
+
+    Parameters: ``seed`` and the labels. Returns a numpy Generator. Source: none (bookkeeping, no published
+    method).
+    """
     return np.random.default_rng(np.random.SeedSequence([seed, *(zlib.crc32(s.encode()) for s in labels)]))
 
 
 def resample_counts(rng: np.random.Generator, cells: np.ndarray, size: int) -> np.ndarray:
     """``size`` bootstrap resamples as counts per individual (size × n): n_c draws with replacement
-    within each cell c (``cells`` holds integer cell numbers)."""
+    within each cell c (``cells`` holds integer cell numbers).
+
+    Parameters: a Generator, integer ``cells`` and ``size``. Returns the counts. Source: the bootstrap within
+    strata, Efron & Tibshirani 1993, An Introduction to the Bootstrap.
+    """
     k = int(cells.max()) + 1
     order = np.argsort(cells, kind="stable")                # rows grouped by cell
     sizes = np.bincount(cells, minlength=k)
@@ -318,6 +337,9 @@ def fitness_function(x, fitness, cells=None, *, resamples: int = 2000, seed: int
     (labels per individual; default one cell), in the data and in every resample. Individuals
     lacking x or W are left out. ``resamples`` = 0 gives the curve alone (NaN band). Resamples are
     drawn by :func:`resample_counts` from :func:`resample_rng` (seed, labels), CHUNK at a time.
+
+    Returns a ``FitnessFunction`` (grid, curve, band). Source: Schluter 1988 (Evolution 42:849-861); the band,
+    Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 13.
     """
     x, W = np.asarray(x, float), np.asarray(fitness, float)
     cells = np.zeros(len(x), int) if cells is None else np.unique(np.asarray(cells).astype(str),

@@ -31,11 +31,15 @@ from fieldslope.analysis.tails import Z975
 from fieldslope.common.errors import PedigreeError
 from fieldslope.common.names import ALL, Q
 
+__all__ = ["Genetics", "pedigree_estimates", "use_pedigree", "related"]
+
 MIN_RECORDS = 10  # records for an animal model (beyond the cell means)
 
 
 @dataclass(frozen=True)
 class Genetics:
+    """The animal model's rows and notes, and the h^2 (with se) and r_g the responses then use."""
+
     rows: list[dict]
     notes: list[tuple[str, str, str, str, str]]  # (season, site, fitness, quantity, sentence)
     h2: dict[str, tuple[float, float]] = field(default_factory=dict)  # trait -> (h2, se)
@@ -49,7 +53,11 @@ def _row(fitness, quantity, term, estimate, se=math.nan, low=math.nan, high=math
 
 
 def related(ped: Pedigree, data) -> bool:
-    """True if two measured individuals are related: one is the other's parent, or they share a parent."""
+    """True if two measured individuals are related: one is the other's parent, or they share a parent.
+
+    Parameters: the pedigree and the model data. Source: additive variance is told apart only among relatives,
+    Kruuk 2004 (Phil. Trans. R. Soc. B 359:873-890).
+    """
     measured = np.zeros(ped.n, dtype=bool)
     measured[data.Z.nonzero()[1]] = True
     for par in (ped.dam, ped.sire):
@@ -187,7 +195,11 @@ def _unusable(ped: Pedigree, md) -> str:
 
 
 def use_pedigree(genetics: Genetics, used_h2: dict, traits) -> list[tuple]:
-    """Put the pedigree heritabilities into ``used_h2`` (they take precedence) and say which G the responses use."""
+    """Put the pedigree heritabilities into ``used_h2`` (they take precedence) and say which G the responses use.
+
+    Parameters: the ``Genetics``, the h^2 used (changed in place) and the traits. Returns notes. Source: Delta
+    z = G beta, Lande 1979 (Evolution 33:402-416).
+    """
     notes = []
     for t, value in genetics.h2.items():
         used_h2[t] = value

@@ -18,11 +18,15 @@ import pandas as pd
 from fieldslope.analysis.design import Design
 from fieldslope.analysis.linear import Collinear, ols
 
+__all__ = ["HeritabilityFit", "Pedigree", "code_pedigree", "parent_offspring"]
+
 MIN_FAMILIES = 3
 
 
 @dataclass(frozen=True)
 class HeritabilityFit:
+    """A parent-offspring heritability: estimate, se, families and which parents were used."""
+
     trait: str
     estimate: float
     se: float
@@ -54,7 +58,11 @@ def clean_ids(series: pd.Series) -> pd.Series:
 
 def code_pedigree(frame: pd.DataFrame, design: Design) -> Pedigree:
     """The ID and parent columns coded to one set of integers (-1 = missing). The text is cleaned once per
-    distinct value (IDs written with stray spaces share a code), not once per row and trait."""
+    distinct value (IDs written with stray spaces share a code), not once per row and trait.
+
+    Parameters: effective data and ``design``. Returns a ``Pedigree`` of integer codes. Source: none
+    (bookkeeping, no published method).
+    """
     n = len(frame)
     cols = [frame[design.id]] + [frame[c] if c is not None and c in frame else pd.Series(pd.NA, index=frame.index)
                                  for c in (design.mother, design.father)]
@@ -108,7 +116,12 @@ def family_means(ped: Pedigree, value: np.ndarray) -> tuple[np.ndarray, np.ndarr
 def parent_offspring(frame: pd.DataFrame, design: Design, trait: str,
                      pedigree: Pedigree | None = None) -> tuple[HeritabilityFit | None, str]:
     """The heritability of ``trait``, or None and one sentence saying why not. Pass ``pedigree``
-    (``code_pedigree(frame, design)``) to code the IDs once for several traits."""
+    (``code_pedigree(frame, design)``) to code the IDs once for several traits.
+
+    Parameters: effective data, ``design``, the ``trait`` and optionally the coded ``pedigree``. Returns
+    (HeritabilityFit or None, why not). Source: offspring on midparent (slope h^2) or on one parent (slope h^2
+    / 2), Falconer & Mackay 1996, Introduction to Quantitative Genetics, 4th ed., ch. 10.
+    """
     if design.mother is None and design.father is None:
         return None, "the protocol names no parent columns"
     ped = pedigree if pedigree is not None else code_pedigree(frame, design)

@@ -6,12 +6,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
+__all__ = ["OLSFit", "Collinear", "ols", "differential"]
+
 # a design whose condition number exceeds this is treated as collinear
 CONDITION_LIMIT = 1e10
 
 
 @dataclass(frozen=True)
 class OLSFit:
+    """Least-squares coefficients, their classical standard errors and the residual degrees of freedom."""
+
     coef: np.ndarray
     se: np.ndarray
     df_resid: int
@@ -27,6 +31,10 @@ def ols(X: np.ndarray, y: np.ndarray) -> OLSFit:
     Standard errors are the classical ones: sqrt(diag((X'X)^-1) * RSS / (n - k)).
     Raises ``Collinear`` when the columns are linearly dependent and ValueError
     when there are no residual degrees of freedom.
+
+    Parameters: design ``X`` (n x k) and response ``y`` (n). Returns ``OLSFit`` (coefficients, standard
+    errors, residual df). Source: Draper & Smith 1998 (Applied Regression Analysis, 3rd ed., ch. 5); least
+    squares by QR, Golub & Van Loan 2013 (Matrix Computations, 4th ed., 5.3).
     """
     n, k = X.shape
     if n <= k:
@@ -49,5 +57,9 @@ def ols(X: np.ndarray, y: np.ndarray) -> OLSFit:
 
 
 def differential(z: np.ndarray, w: np.ndarray) -> float:
-    """Selection differential S = mean(w z) - mean(z) for relative fitness ``w``."""
+    """Selection differential S = mean(w z) - mean(z) for relative fitness ``w``.
+
+    Parameters: trait values ``z`` and relative fitness ``w``. Returns S, the covariance of w and z (Price
+    1970, Nature 227:520-521; Lande & Arnold 1983, Evolution 37:1210-1226).
+    """
     return float(np.mean(w * z) - np.mean(z))

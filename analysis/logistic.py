@@ -7,6 +7,9 @@ from itertools import combinations_with_replacement
 
 import numpy as np
 
+__all__ = ["Separation", "LogitFit", "expit", "fit_logistic", "logistic_gradient", "batched_logistic",
+           "taylor_start", "weighted_pass"]
+
 MAX_ITER = 100
 TOL = 1e-11
 # linear predictors beyond this mean fitted probabilities of 0 or 1: separation
@@ -22,7 +25,11 @@ REFIT_SHARE = 0.1
 
 def expit(eta: np.ndarray) -> np.ndarray:
     """The logistic function 1 / (1 + exp(-eta)) in numpy (within 1 ulp of scipy.special.expit, without
-    loading scipy at start-up)."""
+    loading scipy at start-up).
+
+    Parameters: linear predictor ``eta``. Returns probabilities. Source: McCullagh & Nelder 1989 (Generalized
+    Linear Models, ch. 4).
+    """
     with np.errstate(over="ignore"):
         return 1.0 / (1.0 + np.exp(-eta))
 
@@ -33,6 +40,8 @@ class Separation(ValueError):
 
 @dataclass(frozen=True)
 class LogitFit:
+    """Logistic coefficients (intercept first), their standard errors and the fitted probabilities."""
+
     coef: np.ndarray
     se: np.ndarray
     p_hat: np.ndarray
@@ -44,6 +53,9 @@ def fit_logistic(X: np.ndarray, y: np.ndarray) -> LogitFit:
     Newton-Raphson with step halving; standard errors from the inverse
     information matrix. Raises ``Separation`` when the estimates run off to
     infinity.
+
+    Returns ``LogitFit`` (coefficients, standard errors, fitted probabilities). Source: McCullagh & Nelder
+    1989 (Generalized Linear Models, ch. 4).
     """
     if y.min() == y.max():
         raise Separation("all values equal")
@@ -87,7 +99,11 @@ def fit_logistic(X: np.ndarray, y: np.ndarray) -> LogitFit:
 
 
 def logistic_gradient(coef: np.ndarray, p_hat: np.ndarray, w_abs: np.ndarray) -> np.ndarray:
-    """Logistic selection gradient b_j * mean(p(1-p)) / mean(W) for the slope coefficients (Janzen & Stern 1998)."""
+    """Logistic selection gradient b_j * mean(p(1-p)) / mean(W) for the slope coefficients (Janzen & Stern 1998).
+
+    Parameters: coefficients (intercept first), fitted probabilities and absolute fitness. Returns one
+    gradient per slope. Source: Janzen & Stern 1998 (Evolution 52:1564-1571).
+    """
     return coef[1:] * np.mean(p_hat * (1 - p_hat)) / np.mean(w_abs)
 
 
@@ -114,6 +130,10 @@ def batched_logistic(
     derivative (error of order step squared), so no pass is spent on it.
     ``sums`` may give, per cell, the count-weighted sums [C y x~ (k), C y, C]
     (B x k+2) when they are known already.
+
+    Source: Newton's method for the logistic likelihood, McCullagh & Nelder 1989 (Generalized Linear Models,
+    ch. 4), applied to bootstrap resamples given as counts (Efron & Tibshirani 1993, An Introduction to the
+    Bootstrap).
     """
     beta = start.copy()
     B, k = beta.shape
@@ -200,6 +220,9 @@ def taylor_start(beta0: np.ndarray, terms: list, ok: np.ndarray, rounds: int = 5
     error is of third order in d, so one pass over the data then reaches the convergence tolerance.
     Where that root is not found, or lies far from theta0 (|d| > TAYLOR_REACH, small cells), the
     start is the first Newton step from beta0 (the expansion to second order) instead.
+
+    Source: a third-order Taylor expansion of the score (Householder-type start), no published method for this
+    use.
     """
     k = len(beta0)
     where = {t: i for i, t in enumerate(combinations_with_replacement(range(k), 3))}
@@ -284,7 +307,12 @@ BLOCK = 60_000
 
 def weighted_pass(X, XT, feats, C, active, theta):
     """For resamples ``active`` (coefficients ``theta`` on X~): sum C p(1-p) feats, sum C p x~,
-    and sum C p^2 (1-p) x~, block by block."""
+    and sum C p^2 (1-p) x~, block by block.
+
+    Parameters: X~, its transpose, the pair products ``feats``, the counts C, the ``active`` resamples and
+    their ``theta``. Returns (packed information sums, score sums, v sums). Source: none (bookkeeping, no
+    published method).
+    """
     m, n = len(active), X.shape[0]
     k = X.shape[1]
     packed = np.empty((m, feats.shape[1]))

@@ -20,6 +20,9 @@ import numpy as np
 from fieldslope.analysis.cells import Sample
 from fieldslope.analysis.quadratic import quad_pairs
 
+__all__ = ["Part", "FeatureMatrix", "MultiMoments", "SingleSums", "unpack_multi", "multi_moments",
+           "batched_solve", "single_sums", "opp_sums"]
+
 
 @dataclass
 class Part:
@@ -127,7 +130,11 @@ class FeatureMatrix:
 
 
 def unpack_multi(M: np.ndarray, d: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Moment matrix (B x d x d), fitness moments (B x d) and sum of W~^2 from packed sums."""
+    """Moment matrix (B x d x d), fitness moments (B x d) and sum of W~^2 from packed sums.
+
+    Parameters: packed sums ``M`` and the feature count ``d``. Source: none (bookkeeping, no published
+    method).
+    """
     a, b = np.triu_indices(d)
     k = len(a)
     Mz = np.empty((M.shape[0], d, d))
@@ -178,6 +185,10 @@ class MultiMoments:
 
 
 def multi_moments(M: np.ndarray, part: Part, p: int, quadratic: bool) -> MultiMoments:
+    """The moments of a multi-trait part for every resample, on the resample's standardized scale. Parameters:
+    packed sums ``M``, the ``part``, the trait count and whether quadratic. Returns ``MultiMoments``. Source:
+    the bootstrap as weighted moments, Efron & Tibshirani 1993, An Introduction to the Bootstrap.
+    """
     d = 1 + p + (len(quad_pairs(p)) if quadratic else 0)
     Mz, vz, _ = unpack_multi(M[:, part.cols], d)
     n = Mz[:, 0, 0]
@@ -191,7 +202,11 @@ def multi_moments(M: np.ndarray, part: Part, p: int, quadratic: bool) -> MultiMo
 
 
 def batched_solve(A: np.ndarray, b: np.ndarray, ok: np.ndarray) -> np.ndarray:
-    """Solve A x = b for each resample; NaN where a system is unusable or singular."""
+    """Solve A x = b for each resample; NaN where a system is unusable or singular.
+
+    Parameters: systems ``A`` (B x d x d), right sides ``b`` (B x d) and a usable mask. Returns the solutions
+    (B x d). Source: none (bookkeeping, no published method).
+    """
     A = A.copy()
     b = b.copy()
     eye = np.eye(A.shape[-1])
@@ -223,6 +238,10 @@ class SingleSums:
 
 
 def single_sums(M: np.ndarray, part: Part) -> SingleSums:
+    """The sums of a one-trait part for every resample. Parameters: packed sums ``M`` and the ``part``. Returns
+    ``SingleSums``. Source: the bootstrap as weighted moments, Efron & Tibshirani 1993, An Introduction to the
+    Bootstrap.
+    """
     n, sz, sz2, sw, szw = (M[:, part.cols][:, i] for i in range(5))
     n_safe = np.where(n > 1, n, 2.0)
     m = sz / n_safe
@@ -234,7 +253,11 @@ def single_sums(M: np.ndarray, part: Part) -> SingleSums:
 
 
 def opp_sums(M: np.ndarray, part: Part) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(n, sum of w^2 with w relativized in the resample, usable mask)."""
+    """(n, sum of w^2 with w relativized in the resample, usable mask).
+
+    Parameters: packed sums ``M`` and the ``part``. Source: opportunity for selection, Arnold & Wade 1984
+    (Evolution 38:709-719).
+    """
     n, sw, sw2 = (M[:, part.cols][:, i] for i in range(3))
     ok = sw > 0
     sw = np.where(ok, sw, 1.0)

@@ -20,9 +20,13 @@ import scipy.sparse as sp
 from fieldslope.analysis.cells import natural_key
 from fieldslope.common.errors import PedigreeError
 
+__all__ = ["Pedigree", "PedigreeSummary", "from_frame", "inbreeding", "a_inverse", "summarize"]
+
 
 @dataclass(frozen=True)
 class Pedigree:
+    """Every individual and named parent, parents first, with dam and sire indices and the checks' findings."""
+
     ids: np.ndarray  # object array of IDs, parents before offspring
     dam: np.ndarray  # index of the dam in ``ids``, -1 if unknown
     sire: np.ndarray  # index of the sire, -1 if unknown
@@ -53,6 +57,8 @@ class Pedigree:
 
 @dataclass(frozen=True)
 class PedigreeSummary:
+    """Counts for the one line that describes a pedigree."""
+
     individuals: int
     founders: int
     max_depth: int
@@ -86,6 +92,9 @@ def from_frame(frame: pd.DataFrame, id_col: str, season_col: str, dam_col: str |
     checks (an ID used both as dam and sire, a parent first recorded after its
     offspring, conflicting parents in different records) are sentences in
     ``problems``.
+
+    Parameters: effective data ``frame`` and the names of the ID, season, dam and sire columns. Returns a
+    ``Pedigree`` (parents first). Source: none (bookkeeping, no published method).
     """
     ids = _clean(frame[id_col])
     blank = pd.Series(pd.NA, index=frame.index, dtype="string")
@@ -177,7 +186,11 @@ def _find_loop(dam: np.ndarray, sire: np.ndarray, depth: np.ndarray) -> list[int
 
 
 def inbreeding(dam: np.ndarray, sire: np.ndarray) -> np.ndarray:
-    """Inbreeding coefficients (Meuwissen & Luo 1992); parents must precede offspring."""
+    """Inbreeding coefficients (Meuwissen & Luo 1992); parents must precede offspring.
+
+    Parameters: ``dam`` and ``sire`` indices (-1 unknown). Returns F per individual. Source: Meuwissen & Luo
+    1992 (Genet. Sel. Evol. 24:305-313).
+    """
     n = len(dam)
     F = np.zeros(n + 1)
     F[n] = -1.0  # index -1 = unknown parent
@@ -213,7 +226,11 @@ def inbreeding(dam: np.ndarray, sire: np.ndarray) -> np.ndarray:
 
 
 def a_inverse(dam: np.ndarray, sire: np.ndarray, d: np.ndarray) -> sp.csc_matrix:
-    """Henderson's rules: b = 1/d_i added to (i,i), -b/2 to (i,p) and (p,i), b/4 to (p,q), p, q known parents."""
+    """Henderson's rules: b = 1/d_i added to (i,i), -b/2 to (i,p) and (p,i), b/4 to (p,q), p, q known parents.
+
+    Parameters: ``dam``, ``sire`` and the Mendelian sampling variances ``d``. Returns A^-1 (sparse). Source:
+    Henderson 1976 (Biometrics 32:69-83); with inbreeding, Quaas 1976 (Biometrics 32:949-953).
+    """
     n = len(dam)
     b = 1.0 / d
     idx = np.arange(n)
@@ -234,7 +251,11 @@ def a_inverse(dam: np.ndarray, sire: np.ndarray, d: np.ndarray) -> sp.csc_matrix
 
 def summarize(ped: Pedigree) -> PedigreeSummary:
     """Counts for the pedigree line: full-sib families are dam-sire pairs with two or more offspring;
-    half-sib families are parents with offspring by two or more different mates (an unknown mate counts as one)."""
+    half-sib families are parents with offspring by two or more different mates (an unknown mate counts as one).
+
+    Parameters: a ``Pedigree``. Returns a ``PedigreeSummary``. Source: none (bookkeeping, no published
+    method).
+    """
     known = (ped.dam >= 0) & (ped.sire >= 0)
     pairs = pd.DataFrame({"dam": ped.dam[known], "sire": ped.sire[known]})
     full = int((pairs.value_counts() >= 2).sum())

@@ -32,6 +32,8 @@ from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_fea
 from fieldslope.analysis.standardize import standardize
 from fieldslope.common.names import ALL, Q
 
+__all__ = ["SeasonPermuter", "permute_season", "permutation_p", "ordered_p", "shuffled"]
+
 # a model whose normal equations have a condition number beyond this is not tested (collinear)
 CONDITION_LIMIT = 1e12
 # permutations per matrix product: bounds the permuted design to about this many numbers
@@ -258,7 +260,11 @@ class SeasonPermuter:
 
 
 def permutation_p(observed: float, replicates: np.ndarray) -> float:
-    """Two-sided permutation p-value (1 + #{|T*| >= |T|}) / (1 + P)."""
+    """Two-sided permutation p-value (1 + #{|T*| >= |T|}) / (1 + P).
+
+    Parameters: the observed statistic and its permutation replicates. Returns the p-value (NaN if none
+    usable). Source: Phipson & Smyth 2010 (Stat. Appl. Genet. Mol. Biol. 9:39).
+    """
     r = replicates[np.isfinite(replicates)]
     if not len(r) or not np.isfinite(observed):
         return float("nan")
@@ -268,7 +274,11 @@ def permutation_p(observed: float, replicates: np.ndarray) -> float:
 
 def ordered_p(observed: float, replicates: np.ndarray) -> float:
     """Two-sided p-value of an ordered statistic (a canonical eigenvalue), whose null distribution is not
-    centred on 0: twice the smaller tail, (1 + #{T* >= T}) / (1 + P) or (1 + #{T* <= T}) / (1 + P), at most 1."""
+    centred on 0: twice the smaller tail, (1 + #{T* >= T}) / (1 + P) or (1 + #{T* <= T}) / (1 + P), at most 1.
+
+    Parameters: the observed statistic and its replicates. Returns the p-value. Source: doubling the smaller
+    tail is common practice; the +1, Phipson & Smyth 2010 (Stat. Appl. Genet. Mol. Biol. 9:39).
+    """
     r = replicates[np.isfinite(replicates)]
     if not len(r) or not np.isfinite(observed):
         return float("nan")
@@ -279,7 +289,12 @@ def ordered_p(observed: float, replicates: np.ndarray) -> float:
 
 
 def permute_season(permuter: SeasonPermuter, season: str, P: int, seed: int, tick) -> dict[tuple, float]:
-    """Permutation p-values of a season keyed like the table; ``tick(k)`` after each chunk of k."""
+    """Permutation p-values of a season keyed like the table; ``tick(k)`` after each chunk of k.
+
+    Parameters: a ``SeasonPermuter``, the season, the number of permutations ``P``, the seed and ``tick``.
+    Returns key -> p-value. Source: Freedman & Lane 1983 (J. Bus. Econ. Stat. 1:292-298); Manly 2007
+    (Randomization, Bootstrap and Monte Carlo Methods in Biology, 3rd ed.).
+    """
     from fieldslope.analysis.resample import CHUNK, chunk_rng
 
     observed = permuter.observed()
@@ -308,6 +323,9 @@ def shuffled(rng: np.random.Generator, W: np.ndarray, size: int) -> np.ndarray:
     instead of a full Fisher-Yates pass (about three times as fast). Rows
     where keys tie at a block edge (about n in 4e9) are shuffled directly;
     that event does not depend on the order, so the result stays uniform.
+
+    Parameters: a Generator, fitness ``W`` and ``size``. Returns the shuffles. Source: Knuth 1997 (The Art of
+    Computer Programming, vol. 2, 3.4.2) for uniform shuffles.
     """
     values, counts = np.unique(W, return_counts=True)
     n = len(W)

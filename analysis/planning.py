@@ -9,9 +9,15 @@ from scipy import stats
 
 from fieldslope.common.errors import EstimationError
 
+__all__ = ["variance_inflation", "individuals_for_gradient"]
+
 
 def variance_inflation(correlation: np.ndarray) -> np.ndarray:
-    """Variance inflation factor of each trait: the diagonal of the inverse trait correlation matrix."""
+    """Variance inflation factor of each trait: the diagonal of the inverse trait correlation matrix.
+
+    Parameters: the trait ``correlation`` matrix. Returns the VIFs. Source: Marquardt 1970 (Technometrics
+    12:591-612).
+    """
     return np.diag(np.linalg.inv(np.atleast_2d(correlation)))
 
 
@@ -26,6 +32,9 @@ def individuals_for_gradient(
     interval is t * se with t from n - n_traits - 1 degrees of freedom.
     Starts from the normal-theory lower bound and steps up to the smallest n
     that is narrow enough.
+
+    Returns the number of individuals. Source: the OLS standard error of a coefficient (Draper & Smith 1998,
+    Applied Regression Analysis, 3rd ed.); planning by it is common practice.
     """
     for name, value, low in (("interval half width", half_width, 0.0), ("residual variance", residual_variance, 0.0)):
         if not (math.isfinite(value) and value > low):

@@ -20,9 +20,13 @@ from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_fea
 from fieldslope.analysis.standardize import standardize
 from fieldslope.common.names import Q
 
+__all__ = ["Row", "BlockResult", "point_block", "stack"]
+
 
 @dataclass(frozen=True)
 class Row:
+    """One point estimate of a block: quantity, term, estimate, se, n and a model p-value (NaN if none)."""
+
     quantity: str
     term: str
     estimate: float
@@ -33,6 +37,8 @@ class Row:
 
 @dataclass
 class BlockResult:
+    """A block's rows and notes, and what the responses need (P, beta in trait units, n)."""
+
     rows: list[Row] = field(default_factory=list)
     notes: list[tuple[str, str]] = field(default_factory=list)
     # for responses: phenotypic covariance (raw units) and beta_raw of the complete cases
@@ -42,7 +48,11 @@ class BlockResult:
 
 
 def stack(samples: list[Sample]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Raw traits, standardized traits, relative fitness, absolute fitness of the block's rows."""
+    """Raw traits, standardized traits, relative fitness, absolute fitness of the block's rows.
+
+    Parameters: the block's samples. Returns (z, x, w, W). Source: standardization and relative fitness within
+    cells, Lande & Arnold 1983, Evolution 37:1210-1226.
+    """
     z = np.vstack([s.z for s in samples])
     x = np.vstack([standardize(s.z)[0] for s in samples])
     w = np.concatenate([relative(s.W) for s in samples])

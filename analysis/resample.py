@@ -31,6 +31,9 @@ from fieldslope.analysis.point import stack, with_intercept
 from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_pairs, quad_terms
 from fieldslope.common.names import ALL, Q
 
+__all__ = ["CHUNK", "draw_counts", "counts_from_indices", "chunk_rng", "SeasonResampler", "bootstrap_season",
+           "percentile_interval"]
+
 # resamples drawn from one random stream (``chunk_rng``): fixed, so a seed gives the same resamples at any n
 CHUNK = 200
 # bytes of counts worked on at once while resampling: a stream's resamples are split into blocks of
@@ -43,7 +46,11 @@ def draw_counts(rng: np.random.Generator, n: int, size: int, dtype=np.float64) -
 
     The draws are the same whatever ``dtype`` (float, or uint8 to keep a whole stream's counts small);
     for n > 65,535 they are made a few resamples at a time (numpy's 32-bit draws continue one stream
-    across calls), so the drawn indices never take more than about MEMORY_BUDGET / 4 bytes."""
+    across calls), so the drawn indices never take more than about MEMORY_BUDGET / 4 bytes.
+
+    Parameters: a Generator, ``n``, ``size`` and the dtype. Returns the counts. Source: the nonparametric
+    bootstrap, Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 6.
+    """
     state = rng.bit_generator.state
     small = n <= np.iinfo(np.uint16).max
     # small integer draws and one bincount per resample: about twice as fast as one big bincount
@@ -62,14 +69,20 @@ def draw_counts(rng: np.random.Generator, n: int, size: int, dtype=np.float64) -
 
 
 def counts_from_indices(indices: np.ndarray, n: int) -> np.ndarray:
-    """Counts matrix for given resample indices (size x n draws each); for checks against plain loops."""
+    """Counts matrix for given resample indices (size x n draws each); for checks against plain loops.
+
+    Parameters: drawn ``indices`` and ``n``. Source: none (bookkeeping, no published method).
+    """
     size = indices.shape[0]
     flat = (indices + (np.arange(size) * n)[:, None]).ravel()
     return np.bincount(flat, minlength=size * n).reshape(size, n).astype(np.float64)
 
 
 def chunk_rng(seed: int, season: str, stream: int, chunk: int) -> np.random.Generator:
-    """Generator for one chunk: depends only on seed, season name, stream (0 bootstrap, 1 permutation) and chunk."""
+    """Generator for one chunk: depends only on seed, season name, stream (0 bootstrap, 1 permutation) and chunk.
+
+    Parameters: as named. Returns a numpy Generator. Source: none (bookkeeping, no published method).
+    """
     return np.random.default_rng(np.random.SeedSequence([seed, zlib.crc32(season.encode()), stream, chunk]))
 
 
@@ -261,7 +274,12 @@ def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int,
     Resamples are drawn CHUNK at a time from one stream each (``chunk_rng``) and worked on in blocks
     of ``block_size`` resamples; when a block is smaller than a stream, the stream's counts are kept
     as bytes until their block's turn, so memory stays near MEMORY_BUDGET and the cost grows linearly
-    with n, while the resamples stay those of the seed."""
+    with n, while the resamples stay those of the seed.
+
+    Parameters: a ``SeasonResampler``, the season, resamples ``B``, the seed and ``tick``. Returns key -> B
+    replicates. Source: resampling individuals within cells, Efron & Tibshirani 1993, An Introduction to the
+    Bootstrap.
+    """
     pieces: dict[tuple, list[np.ndarray]] = {}
     block = block_size(sum(resampler.n_cells))
     for i, start in enumerate(range(0, B, CHUNK)):
@@ -278,7 +296,11 @@ def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int,
 
 
 def percentile_interval(replicates: np.ndarray) -> tuple[float, float, int]:
-    """95 % percentile interval over the usable replicates, and how many were unusable."""
+    """95 % percentile interval over the usable replicates, and how many were unusable.
+
+    Parameters: the replicates. Returns (low, high, unusable count); NaN bounds when over 5 % are unusable.
+    Source: Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 13.
+    """
     good = replicates[np.isfinite(replicates)]
     bad = len(replicates) - len(good)
     if len(good) < 0.95 * len(replicates) or len(good) < 2:

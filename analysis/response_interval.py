@@ -19,15 +19,25 @@ import numpy as np
 from fieldslope.analysis.resample import percentile_interval
 from fieldslope.common.names import Q
 
+__all__ = ["heritability_draws", "response_intervals"]
+
 
 def heritability_draws(h2: float, se: float | None, size: int, rng: np.random.Generator) -> np.ndarray:
+    """``size`` draws of h^2 from a normal distribution with its estimate and se (all equal to h2 when the se is
+    unknown). Parameters: ``h2``, ``se``, ``size`` and a Generator. Returns the draws. Source: the parametric
+    bootstrap, Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 6.
+    """
     if se is None or not np.isfinite(se) or se <= 0:
         return np.full(size, float(h2))
     return h2 + se * rng.standard_normal(size)
 
 
 def response_intervals(rows: list[dict], boot: dict, used_h2: dict, seed: int, season: str) -> None:
-    """Fill ci_low and ci_high of a season's ``response`` and ``response_pct`` rows in place."""
+    """Fill ci_low and ci_high of a season's ``response`` and ``response_pct`` rows in place.
+
+    Parameters: the season's rows, its bootstrap replicates, the h^2 used, the seed and the season. Returns
+    nothing (rows filled). Source: Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 13.
+    """
     means = {(r["site"], r["fitness"], r["term"]): r["estimate"] for r in rows if r["quantity"] == Q.MEAN}
     for r in rows:
         if r["quantity"] not in (Q.RESPONSE, Q.RESPONSE_PCT) or r["term"] not in used_h2:

@@ -20,11 +20,15 @@ import numpy as np
 
 from fieldslope.analysis.tails import Z975, chi2_upper, normal_two_sided, t_quantile, t_upper2
 
+__all__ = ["METHODS", "Combined", "combine", "sign_changes", "significant_sign_changes"]
+
 METHODS = ("dl", "hk")
 
 
 @dataclass(frozen=True)
 class Combined:
+    """Gradients of one trait combined across seasons: fixed-effect and random-effects means, Q and tau^2."""
+
     mean: float  # inverse-variance weighted mean
     se: float  # sqrt(1 / sum of weights)
     q: float  # Cochran's Q
@@ -47,7 +51,12 @@ class Combined:
 
 def combine(estimates: np.ndarray, ses: np.ndarray, method: str = "dl") -> Combined:
     """Fixed-effect mean, Cochran's Q, the DerSimonian & Laird tau^2 and the random-effects mean of
-    k >= 2 estimates; ``method`` "dl" (normal interval) or "hk" (Hartung-Knapp)."""
+    k >= 2 estimates; ``method`` "dl" (normal interval) or "hk" (Hartung-Knapp).
+
+    Parameters: the estimates and their standard errors (k each) and ``method``. Returns ``Combined``. Source:
+    Cochran 1954 (Biometrics 10:101-129); DerSimonian & Laird 1986 (Controlled Clinical Trials 7:177-188);
+    Hartung & Knapp 2001 (Stat. Med. 20:3875-3889).
+    """
     if method not in METHODS:
         raise ValueError(f"method must be one of {METHODS}")
     b = np.asarray(estimates, dtype=float)
@@ -74,13 +83,21 @@ def combine(estimates: np.ndarray, ses: np.ndarray, method: str = "dl") -> Combi
 
 
 def sign_changes(values) -> int:
-    """How often consecutive values change sign (zeros are skipped)."""
+    """How often consecutive values change sign (zeros are skipped).
+
+    Parameters: the values in season order. Returns the count. Source: Siepielski, DiBattista & Carlson 2009
+    (Ecol. Lett. 12:1261-1276) count changes of sign of selection between years.
+    """
     s = np.sign(np.asarray(values, dtype=float))
     s = s[s != 0]
     return int(np.count_nonzero(s[1:] != s[:-1]))
 
 
 def significant_sign_changes(lows, highs) -> int:
-    """How often consecutive seasons both have intervals that exclude zero, on opposite sides."""
+    """How often consecutive seasons both have intervals that exclude zero, on opposite sides.
+
+    Parameters: the lower and upper interval bounds in season order. Returns the count. Source: Siepielski,
+    DiBattista & Carlson 2009 (Ecol. Lett. 12:1261-1276).
+    """
     side = np.where(np.asarray(lows, dtype=float) > 0, 1, np.where(np.asarray(highs, dtype=float) < 0, -1, 0))
     return int(np.count_nonzero(side[1:] * side[:-1] == -1))

@@ -49,6 +49,9 @@ from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, perc
 from fieldslope.analysis.response_interval import response_intervals
 from fieldslope.common.names import ALL, Q
 
+__all__ = ["COLUMNS", "DEFAULT_SEED", "NO_INTERVAL", "BLAS_THREADS", "Note", "Estimates", "estimate_table",
+           "check_frame"]
+
 if TYPE_CHECKING:  # pragma: no cover
     from fieldslope.analysis.genetics import Genetics
 
@@ -64,6 +67,8 @@ BLAS_THREADS = 1
 
 @dataclass(frozen=True)
 class Note:
+    """One sentence about a cell or quantity without an estimate, or an assumption made."""
+
     season: str
     site: str
     fitness: str
@@ -73,6 +78,8 @@ class Note:
 
 @dataclass(frozen=True)
 class Estimates:
+    """What ``estimate_table`` returns: the tidy ``table`` (columns ``COLUMNS``) and its ``notes``."""
+
     table: pd.DataFrame
     notes: tuple[Note, ...]
 
@@ -98,6 +105,10 @@ class Estimates:
 
 
 def check_frame(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -> None:
+    """Raise ``EstimationError`` (one sentence) when ``frame`` lacks a column ``design`` names or a fitness name
+    is unknown. Parameters: effective data, ``design`` and the fitness measures asked for. Source: none
+    (bookkeeping, no published method).
+    """
     needed = [design.id, design.season, *design.groups, *design.traits, *design.fitness]
     missing = [c for c in needed if c not in frame.columns]
     if missing:
