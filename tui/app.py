@@ -5,11 +5,10 @@ Start it with :func:`run_app` (what ``fieldslope`` calls) or build
 :class:`~tui.snapshot.Snapshot` of the study; workers build new ones when the
 store changes, and the screens render from it.
 
-Live refresh: one poll worker keeps its own store connection and reads
-``PRAGMA data_version`` about every ``poll_interval`` seconds; when the counter
-moves it asks for new point estimates (bootstrap 0) and waits until they are
-on screen before it polls again; then a second worker computes the bootstrap
-intervals with progress.
+Live refresh is :class:`~tui.pipeline.RefreshPipeline` (poll → point estimates →
+intervals). What the screens and the status line show is reactive state on the
+app (``snapshot``, ``updating``, ``progress``, ``error``, ``note``, ``readonly``,
+``locked``): they watch it, and nothing calls them one by one.
 
 Heavy modules (pandas, the estimators, the store) are imported inside workers,
 after the first frame.
@@ -24,12 +23,13 @@ from importlib import resources
 from pathlib import Path
 from typing import Callable
 
-from textual import work
+from textual import on, work
 from textual.app import App, ScreenStackError
 from textual.binding import Binding
 from textual.command import DiscoveryHit, Hit, Hits, Provider
 from textual.content import Content
-from textual.worker import Worker, WorkerState, get_current_worker
+from textual.reactive import var
+from textual.worker import Worker, WorkerState
 
 from fieldslope.common.words import plural
 from fieldslope.tui.messages import (
@@ -43,6 +43,8 @@ from fieldslope.tui.messages import (
     StudyFailed,
     StudyReady,
 )
+from fieldslope.tui.pipeline import GROUPS as PIPELINE_GROUPS
+from fieldslope.tui.pipeline import RefreshPipeline
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.typeahead import TypeAheadApp
 
@@ -60,10 +62,6 @@ SCREEN_TITLES = {
 # status bar, and returns early once ``stop`` is set (use ``stop.wait(seconds)``
 # to pause between batches).
 DemoFeed = Callable[[threading.Event, Callable[[str], None]], None]
-
-
-class _Cancelled(Exception):
-    """Raised inside a worker's progress callback when a newer worker replaced it."""
 
 
 class FieldslopeCommands(Provider):
@@ -117,7 +115,6 @@ class FieldslopeApp(TypeAheadApp):
     text shown as the last refresh time (tests pass a fixed one).
     """
 
-    PROBE_EVERY = 4        # probe the write lock on every 4th poll (and on every poll while locked)
     CSS = resources.files("fieldslope.tui").joinpath("app.tcss").read_text(encoding="utf-8")
     TITLE = "fieldslope"
     COMMANDS = App.COMMANDS | {FieldslopeCommands}
@@ -137,6 +134,24 @@ class FieldslopeApp(TypeAheadApp):
         Binding("p", "write_report", "Write the report into reports/", id="write_report", show=False),
         Binding("ctrl+q", "quit", "Quit", id="quit", show=False),
     ]
+
+    # What the screens and the status line show: they watch these (``watch``), nothing calls them.
+    #: the immutable picture of the study the panels draw from (None until the first point estimates)
+    snapshot: var[Snapshot | None] = var(None, always_update=True)
+    #: what is being computed ("updating…", "intervals…"), "" when nothing is
+    updating: var[str] = var("")
+    #: the latest progress of the intervals ("intervals 40%"), "" when none are being computed
+    progress: var[str] = var("")
+    #: the last failure, one sentence ("" when none stands)
+    error: var[str] = var("")
+    #: a passing note (the demo feed, what was just stored, the report being written)
+    note: var[str] = var("")
+    #: the store can only be read (permissions, damage); ``readonly_reason`` says why
+    readonly: var[bool] = var(False)
+    #: another program holds the store's write lock, for now
+    locked: var[bool] = var(False)
+    #: the study is open (the screens are installed)
+    study_ready: var[bool] = var(False)
 
     def __init__(
         self,
@@ -158,23 +173,9 @@ class FieldslopeApp(TypeAheadApp):
         self.clock = clock or (lambda: datetime.now().strftime("%H:%M:%S"))
         self.start_mode = start_mode
         self.protocol = None
-        self.readonly = False
         self.readonly_reason = ""      # the sentence that explains read-only mode, when known
-        self.locked = False                  # another program holds the store's write lock (for now)
-        self._polls = 0
-        self.study_ready = False
-        self.snapshot: Snapshot | None = None
         self.sensitivity = False
-        self.updating = ""
-        self.progress = ""
-        self.error = ""
-        self.note = ""
-        self.generation = 0
-        self.version_seen: int | None = None
-        self._poll_pending = False
-        self._poll_failed = False
-        self._poll_executor = None
-        self._poller = None
+        self.pipeline: RefreshPipeline | None = None   # live refresh, once a study is open
         self.stop = threading.Event()        # set on exit: background loops end
         self.timings: dict[str, float] = {}  # for the benchmark: when things happened
 
@@ -204,15 +205,12 @@ class FieldslopeApp(TypeAheadApp):
 
     def on_unmount(self) -> None:
         self.stop.set()
-        if self._poll_executor is not None:
-            if self._poller is not None:
-                self._poll_executor.submit(self._poller.close)
-            self._poll_executor.shutdown(wait=False)
+        if self.pipeline is not None:
+            self.pipeline.close()
 
     def open_study(self, study_dir: Path) -> None:
         self.study_dir = Path(study_dir)
         self.note = f"opening {self.study_dir} …"
-        self.refresh_status()
         self._open_worker(self.study_dir)
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="open")
@@ -232,136 +230,46 @@ class FieldslopeApp(TypeAheadApp):
             self.notify(msg.warning, severity="warning", timeout=10)
         self._install_modes()
         self.switch_mode(self.start_mode)
-        self.version_seen = None
-        self.schedule_poll(0)
+        if self.pipeline is not None:
+            self.pipeline.close()
+        self.pipeline = RefreshPipeline(self, self.study_dir, bootstrap=self.bootstrap, seed=self.seed,
+                                        poll_interval=self.poll_interval, clock=self.clock)
+        self.pipeline.start()
         if self.demo_feed is not None:
             self._demo_worker()
 
     def on_study_failed(self, msg: StudyFailed) -> None:
         self.error = msg.reason
         self.notify(msg.reason, severity="error", timeout=10)
-        self.refresh_status()
 
-    # -- live refresh ------------------------------------------------------
-    def schedule_poll(self, delay: float | None = None) -> None:
-        """Ask for the next look at the change counter (only one look is ever pending)."""
-        if self.stop.is_set() or self._poll_pending:
-            return
-        self._poll_pending = True
-        self.set_timer(max(0.01, self.poll_interval if delay is None else delay), self._poll_now)
-
-    def _poll_now(self) -> None:
-        self._poll_pending = False
-        if not self.stop.is_set() and self.study_dir is not None:
-            self._poll_worker(self.study_dir)
-
-    @work(thread=True, exclusive=True, exit_on_error=False, group="poll")
-    def _poll_worker(self, study_dir: Path) -> None:
-        """Read ``PRAGMA data_version`` through one long-lived connection.
-
-        The counter only means something on the same connection, so the read
-        runs on one dedicated thread (a single-thread executor) that keeps it.
-        """
-        from concurrent.futures import ThreadPoolExecutor
-
-        from fieldslope.tui.loading import Poller
-
-        if self._poll_executor is None:
-            self._poll_executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fieldslope-poll")
-        if self._poller is None or self._poller.study_dir != study_dir:
-            self._poller = self._poll_executor.submit(Poller, study_dir).result()
-        version = self._poll_executor.submit(self._poller.version).result()
-        writable = None
-        if not self.readonly and (self._polls % self.PROBE_EVERY == 0 or self.locked):
-            writable = self._poll_executor.submit(self._poller.writable).result()
-        self._polls += 1
-        self.post_message(Polled(version, writable))
-
-    def on_polled(self, msg: Polled) -> None:
-        if msg.writable is not None:
-            self.set_locked(not msg.writable)
-        if self._poll_failed:                  # the store answers again: the poll's error is over
-            self._poll_failed = False
-            self.error = ""
-            self.refresh_status()
-        if msg.version != self.version_seen:
-            self.timings["poll_saw_change"] = time.perf_counter()
-            self.version_seen = msg.version
-            self.start_points()        # the next poll is scheduled once the figures are shown
-        else:
-            self.schedule_poll()
+    # -- live refresh (tui.pipeline) --------------------------------------
+    @on(Polled)
+    @on(PointsReady)
+    @on(IntervalsProgress)
+    @on(IntervalsReady)
+    def _to_pipeline(self, msg) -> None:
+        """The pipeline's workers post to the app's queue; their results go back to it here."""
+        if self.pipeline is not None:
+            self.pipeline.receive(msg)
 
     def start_points(self) -> None:
-        self.generation += 1
-        self.updating = "updating…"
-        self._mark_updating()
-        self._points_worker(self.study_dir, self.generation, self.version_seen or 0, self.sensitivity)
+        """Recompute the point estimates now (and then the intervals)."""
+        if self.pipeline is not None:
+            self.pipeline.start_points()
 
-    @work(thread=True, exclusive=True, exit_on_error=False, group="points")
-    def _points_worker(self, study_dir: Path, generation: int, version: int, sensitivity: bool) -> None:
-        from fieldslope.tui.loading import load_snapshot
+    @property
+    def _poller(self):
+        """The pipeline's poll connection (tests drop it, as after a restart of the connection)."""
+        return None if self.pipeline is None else self.pipeline.poller
 
-        snap = load_snapshot(study_dir, generation=generation, version=version, sensitivity=sensitivity,
-                             refreshed_at=self.clock(), readonly=self.readonly)
-        if not get_current_worker().is_cancelled:
-            self.post_message(PointsReady(snap))
-
-    def on_points_ready(self, msg: PointsReady) -> None:
-        if msg.snapshot.generation != self.generation:
-            return
-        self.snapshot = msg.snapshot
-        self.updating = ""
-        self.error = ""
-        self._show_snapshot()
-        self.timings["points_shown"] = time.perf_counter()
-        self.schedule_poll()
-        if self.bootstrap > 0:
-            self.progress = "intervals 0%"
-            self._mark_updating("intervals…")
-            self._intervals_worker(msg.snapshot)
-        else:
-            self._mark_updating("")
-
-    @work(thread=True, exclusive=True, exit_on_error=False, group="intervals")
-    def _intervals_worker(self, snap: Snapshot) -> None:
-        from fieldslope.tui.loading import add_intervals
-
-        worker = get_current_worker()
-        last = [0.0]
-
-        def progress(done: int, total: int, *_: object) -> None:
-            if worker.is_cancelled or self.stop.is_set() or self.generation != snap.generation:
-                raise _Cancelled()
-            now = time.perf_counter()
-            if now - last[0] > 0.25 or done >= total:
-                last[0] = now
-                self.post_message(IntervalsProgress(done, total, snap.generation))
-
-        try:
-            full = add_intervals(snap, bootstrap=self.bootstrap, seed=self.seed, progress=progress,
-                                 refreshed_at=self.clock())
-        except _Cancelled:
-            return
-        if not worker.is_cancelled:
-            self.post_message(IntervalsReady(full))
-
-    def on_intervals_progress(self, msg: IntervalsProgress) -> None:
-        if msg.generation == self.generation and msg.total:
-            self.progress = f"intervals {100 * msg.done // msg.total}%"
-            self.refresh_status()
-
-    def on_intervals_ready(self, msg: IntervalsReady) -> None:
-        if msg.snapshot.generation != self.generation:
-            return
-        self.snapshot = msg.snapshot
-        self.progress = ""
-        self._show_snapshot()
-        self._mark_updating("")
+    @_poller.setter
+    def _poller(self, value) -> None:
+        if self.pipeline is not None:
+            self.pipeline.poller = value
 
     def on_store_written(self, msg: StoreWritten) -> None:
         """A screen of this app stored something; the poller will see it too (another connection)."""
         self.note = msg.what
-        self.refresh_status()
 
     # -- read-only while another program writes ----------------------------
     def set_locked(self, locked: bool) -> None:
@@ -375,7 +283,6 @@ class FieldslopeApp(TypeAheadApp):
             self.notify(LOCKED_SENTENCE, severity="warning", timeout=10)
         else:
             self.notify("The record store is free again: taking in, resolving and entering h² work.", timeout=5)
-        self.refresh_status()
 
     def write_refusal(self) -> str:
         """One sentence saying why nothing can be written now, or "" when writing is possible."""
@@ -396,7 +303,6 @@ class FieldslopeApp(TypeAheadApp):
 
     def on_demo_note(self, msg: DemoNote) -> None:
         self.note = msg.text
-        self.refresh_status()
 
     # -- notifications -----------------------------------------------------
     def notify(self, message: str, *, title: str = "", severity="information", timeout: float | None = None,
@@ -437,39 +343,14 @@ class FieldslopeApp(TypeAheadApp):
             self.error = text
             self.notify(text, severity="error", timeout=10)
         group = worker.group
-        if group == "open":
+        if group in ("open", "report"):
             self.note = ""
-        elif group in ("points", "intervals"):
-            self.updating = ""
-            self.progress = ""
-            self._mark_updating("")
-            if group == "points":
-                self.schedule_poll()
-        elif group == "report":
-            self.note = ""
-        elif group == "poll":
-            # try again after a pause, so a locked or vanished store does not end live refresh
-            self._poller = None
-            self._poll_failed = True
-            self.schedule_poll(2.0)
-        self.refresh_status()
+        elif group in PIPELINE_GROUPS and self.pipeline is not None and worker.node is self.pipeline:
+            self.pipeline.worker_failed(group)
 
     # -- showing -----------------------------------------------------------
-    def _show_snapshot(self) -> None:
-        screen = self.screen
-        if hasattr(screen, "refresh_from_app"):
-            screen.refresh_from_app()
-        self.refresh_status()
-
-    def _mark_updating(self, what: str | None = None) -> None:
-        if what is not None:
-            self.updating = what
-        screen = self.screen
-        if hasattr(screen, "mark_updating"):
-            screen.mark_updating(self.updating)
-        self.refresh_status()
-
     def refresh_status(self) -> None:
+        """Redraw the status line now (it follows the reactive state by itself; this is for a new screen title)."""
         from fieldslope.tui.widgets.status import StatusLine
 
         try:
@@ -545,7 +426,6 @@ class FieldslopeApp(TypeAheadApp):
         if not self.study_ready or self.study_dir is None:
             return
         self.note = "writing the report …"
-        self.refresh_status()
         self.write_report()
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="report")
@@ -558,7 +438,6 @@ class FieldslopeApp(TypeAheadApp):
     def on_report_written(self, msg: ReportWritten) -> None:
         self.note = ""
         self.notify(f"Report written to {msg.page} ({msg.count} pictures in {msg.figures})", timeout=12)
-        self.refresh_status()
 
     def deliver_screenshot(self, filename: str | None = None, path: str | None = None,
                            time_format: str | None = None) -> str | None:

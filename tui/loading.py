@@ -170,12 +170,12 @@ def load_snapshot(study_dir: Path, *, generation: int, version: int, sensitivity
 
 def add_intervals(snap: Snapshot, *, bootstrap: int, seed: int | None,
                   progress: Callable[..., None] | None, refreshed_at: str) -> Snapshot:
-    """The same data with bootstrap intervals and permutation p-values."""
+    """The same data with bootstrap intervals and permutation p-values from ``bootstrap`` resamples."""
     from fieldslope.tui.bridge import estimates_for_frame
 
     est = estimates_for_frame(snap.frame, snap.protocol, bootstrap=bootstrap, seed=seed,
                               h2=snap.h2, progress=progress)
-    return snap.with_(table=est.table, notes=tuple(est.notes), intervals=True)
+    return snap.with_(table=est.table, notes=tuple(est.notes), intervals=True, resamples=bootstrap)
 
 
 def batch_trend(study_dir: Path, protocol, season: str, fitness: str, sensitivity: bool,

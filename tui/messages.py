@@ -43,16 +43,24 @@ class PointsReady(Message):
 
 @dataclass
 class IntervalsProgress(Message):
+    """How far the intervals of snapshot ``generation`` are (``done`` of ``total``); the latest wins."""
+
     done: int
     total: int
     generation: int
 
+    def can_replace(self, message: Message) -> bool:
+        """A newer progress message waiting in the queue supersedes this one (only the latest is shown)."""
+        return isinstance(message, IntervalsProgress)
+
 
 @dataclass
 class IntervalsReady(Message):
-    """The same snapshot with bootstrap intervals and permutation p-values filled in."""
+    """The same snapshot with bootstrap intervals and permutation p-values filled in, from
+    ``snapshot.resamples`` resamples; ``final`` when no further stage follows."""
 
     snapshot: Snapshot
+    final: bool = True
 
 
 @dataclass

@@ -67,6 +67,7 @@ class Snapshot:
     refreshed_at: str
     sensitivity: Sensitivity | None = None
     intervals: bool = False        # True once the bootstrap intervals are in
+    resamples: int = 0             # resamples (and permutations) behind those intervals and p-values
     generation: int = 0
     readonly: bool = False
     h2: "Mapping[str, tuple[float, float | None, str]] | None" = None

@@ -41,8 +41,9 @@ class WorkerFailures:
 class StudyScreen(WorkerFailures, Screen):
     """A screen that renders from the app's current :class:`Snapshot`.
 
-    Subclasses implement :meth:`body` and :meth:`show`; ``show`` runs on the
-    main thread whenever a newer snapshot exists and the screen is visible.
+    Subclasses implement :meth:`body` and :meth:`show`. The screen watches the app's reactive
+    ``snapshot`` and ``updating``: ``show`` runs on the main thread whenever a newer snapshot
+    exists and the screen is in view (a screen out of view catches up when it is shown again).
     """
 
     TITLE_TEXT = ""
@@ -56,6 +57,19 @@ class StudyScreen(WorkerFailures, Screen):
     def body(self) -> ComposeResult:  # pragma: no cover - overridden
         yield from ()
 
+    def on_mount(self) -> None:
+        if hasattr(type(self.app), "snapshot"):
+            self.watch(self.app, "snapshot", self._snapshot_changed, init=False)
+            self.watch(self.app, "updating", self._updating_changed, init=False)
+
+    def _snapshot_changed(self, _old: object, _new: object) -> None:
+        if self.is_current:
+            self.refresh_from_app()
+
+    def _updating_changed(self, _old: str, new: str) -> None:
+        if self.is_current:
+            self.mark_updating(new)
+
     def on_screen_resume(self) -> None:
         self.refresh_from_app()
         self.mark_updating(getattr(self.app, "updating", ""))
@@ -64,7 +78,7 @@ class StudyScreen(WorkerFailures, Screen):
         snap = getattr(self.app, "snapshot", None)
         if snap is None:
             return
-        key = (snap.generation, snap.intervals, snap.outliers_left_out)
+        key = (snap.generation, snap.intervals, snap.resamples, snap.outliers_left_out)
         if force or key != self._shown:
             self._shown = key
             self.show(snap)
@@ -76,5 +90,3 @@ class StudyScreen(WorkerFailures, Screen):
         """Mark panels (widgets with class ``panel``) as updating while a worker runs."""
         for panel in self.query(".panel"):
             panel.set_class(bool(what), "-updating")
-        for status in self.query(StatusLine):
-            status.update_from_app()

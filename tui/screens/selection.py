@@ -160,6 +160,8 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             parts.append(("  open outliers left out", "bold $warning"))
         if not snap.intervals:
             parts.append(("  intervals: computing …" if self.app.bootstrap else "  intervals off", "$accent"))
+        elif snap.resamples < self.app.bootstrap:
+            parts.append((f"  intervals from {snap.resamples} of {self.app.bootstrap} resamples …", "$accent"))
         self.query_one("#sel-summary", Static).update(assemble(*parts))
 
     def _tables(self, snap: Snapshot) -> None:
@@ -221,7 +223,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
     def _pictures(self, snap: Snapshot, trait: str) -> None:
         """Draw the picture of the tab in view (the other is drawn when its tab is shown)."""
         tab = self.query_one("#sel-tabs", TabbedContent).active
-        key = (snap.generation, snap.intervals, tab, trait, self.choices.season, self.choices.site,
+        key = (snap.generation, snap.intervals, snap.resamples, tab, trait, self.choices.season, self.choices.site,
                self.choices.fitness, self.size)
         if tab == "sel-table" or key == self._drawn:
             return

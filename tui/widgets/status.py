@@ -5,9 +5,12 @@ from __future__ import annotations
 from textual.content import Content
 from textual.widgets import Static
 
+#: the app's reactive attributes the status line follows
+WATCHED = ("snapshot", "updating", "progress", "error", "note", "readonly", "locked", "study_ready")
+
 
 class StatusLine(Static):
-    """Shows ``app.status_content()``; the app calls :meth:`update_from_app` on changes."""
+    """Shows ``app.status_content()``, redrawn whenever one of the app's ``WATCHED`` attributes changes."""
 
     DEFAULT_CSS = """
     StatusLine { height: 1; background: $panel; color: $foreground; padding: 0 1;
@@ -15,6 +18,12 @@ class StatusLine(Static):
     """
 
     def on_mount(self) -> None:
+        for name in WATCHED:
+            if hasattr(type(self.app), name):
+                self.watch(self.app, name, self._changed, init=False)
+        self.update_from_app()
+
+    def _changed(self, _old: object, _new: object) -> None:
         self.update_from_app()
 
     def update_from_app(self) -> None:
