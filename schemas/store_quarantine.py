@@ -26,6 +26,10 @@ from fieldslope.schemas.store_rows import insert_flags, insert_records
 from fieldslope.schemas.store_supersede import supersede
 from fieldslope.schemas.store_types import RecordError, Resolution
 
+#: the one audit row of a decision on a flag (keep, exclude or set), shared by every resolver
+INSERT_RESOLUTION = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
+                     "VALUES (?,?,?,?,?,?,?,?)")
+
 _POINT_NUMBER = re.compile(r"^[+-]?\d*\.\d+$")
 
 #: ``evaluate(conn, plan, accept_valid)``: the intake's checks of a batch against the record
@@ -71,6 +75,23 @@ class QuarantineFix:
         """Exclude the row, or set one of its cells (the row joins the record when no error is left)."""
         batch_id, row, payload, _ = conn.execute(
             "SELECT batch_id, row, cells, errors FROM quarantine WHERE id = ?", (qid,)).fetchone()
+        self._refuse_if_closed(conn, qid, batch_id, row, action)
+        after = last_batch_id(conn)
+        if action == "exclude":
+            others = conn.execute("SELECT id, value FROM flags WHERE quarantine_id = ? AND id <> ? ORDER BY id",
+                                  (qid, flag_id)).fetchall()
+            when = now()
+            conn.executemany(INSERT_RESOLUTION, [(fid, "exclude", old, None, reason, operator, when, after)
+                                                  for fid, old in [(flag_id, flagged), *others]])
+            also = f"; its {len(others)} other flag(s) closed with the same reason" if others else ""
+            return Resolution(flag_id, "exclude", old=flagged,
+                              message=f"flag {flag_id}: row {row} of batch {batch_id} stays out of the record{also}.")
+        return self._set(conn, flag_id, qid, batch_id, row, json.loads(payload), field, flagged, value, reason,
+                         operator, after)
+
+    @staticmethod
+    def _refuse_if_closed(conn: sqlite3.Connection, qid: int, batch_id: int, row: int, action: str) -> None:
+        """Raise ``RecordError`` when the row joined the record or was left out already, or for ``keep``."""
         joined = conn.execute("SELECT 1 FROM records WHERE batch_id = ? AND row = ? AND correction_id IS NOT NULL",
                               (batch_id, row)).fetchone()
         if joined:
@@ -85,19 +106,10 @@ class QuarantineFix:
         if action == "keep":
             raise RecordError("a quarantined cell cannot be kept as it is; give the right value with --set or "
                               "leave the row out with --exclude.")
-        after = last_batch_id(conn)
-        insert = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
-                  "VALUES (?,?,?,?,?,?,?,?)")
-        if action == "exclude":
-            others = conn.execute("SELECT id, value FROM flags WHERE quarantine_id = ? AND id <> ? ORDER BY id",
-                                  (qid, flag_id)).fetchall()
-            when = now()
-            conn.executemany(insert, [(fid, "exclude", old, None, reason, operator, when, after)
-                                      for fid, old in [(flag_id, flagged), *others]])
-            also = f"; its {len(others)} other flag(s) closed with the same reason" if others else ""
-            return Resolution(flag_id, "exclude", old=flagged,
-                              message=f"flag {flag_id}: row {row} of batch {batch_id} stays out of the record{also}.")
-        data = json.loads(payload)
+
+    def _set(self, conn: sqlite3.Connection, flag_id: int, qid: int, batch_id: int, row: int, data: dict,
+             field: str, flagged: str, value: str | None, reason: str, operator: str, after: int) -> Resolution:
+        """Set one cell of the kept-aside row, check the row again, and let it join once it is valid."""
         fixes = dict(conn.execute(
             "SELECT f.field, r.new FROM resolutions r JOIN flags f ON f.id = r.flag_id "
             "WHERE f.quarantine_id = ? AND r.action = 'set' ORDER BY r.id", (qid,)).fetchall())
@@ -105,24 +117,16 @@ class QuarantineFix:
         if data["decimal"] == "," and _POINT_NUMBER.match(typed):
             typed = typed.replace(".", ",")
         fixes[field] = typed
-        columns, cells = list(data["columns"]), list(data["cells"])
-        for col, new in fixes.items():
-            if col not in columns:
-                columns.append(col)
-                cells.append(None)
-            cells[columns.index(col)] = new
-        sheet = Sheet(data["file"], pd.DataFrame([cells], columns=columns, dtype=object), [row], "utf-8", ",",
-                      data["decimal"])
         try:
-            plan = BatchPlan(data["file"], b"", None, self._check(sheet))
+            plan = BatchPlan(data["file"], b"", None, self._check(_fixed_sheet(data, fixes, row)))
         except SheetError as exc:
             raise RecordError(f"row {row} cannot be checked with that value ({exc}); nothing was changed.") from None
         outcome = self.evaluate(conn, plan, accept_valid=False)
         still = [e for e in outcome.errors if e.column == field]
         if still:
             raise RecordError(f"{value!r} for {field} is still not usable: {still[0].reason}; nothing was changed.")
-        res_id = conn.execute(insert, (flag_id, "set", flagged, str(value).strip(), reason, operator, now(),
-                                       after)).lastrowid
+        res_id = conn.execute(INSERT_RESOLUTION, (flag_id, "set", flagged, str(value).strip(), reason, operator,
+                                                   now(), after)).lastrowid
         if outcome.errors:
             left = tuple(e.sentence() for e in outcome.errors)
             return Resolution(flag_id, "set", old=flagged, new=str(value).strip(), remaining=left,
@@ -139,3 +143,15 @@ class QuarantineFix:
     def _check(self, sheet: Sheet) -> CheckReport:
         from fieldslope.schemas.validate import check_sheet
         return check_sheet(self.protocol, sheet)
+
+
+def _fixed_sheet(data: dict, fixes: dict[str, str], row: int) -> Sheet:
+    """The kept-aside row as a one-row sheet (its own sheet row number) with the cells set so far."""
+    columns, cells = list(data["columns"]), list(data["cells"])
+    for col, new in fixes.items():
+        if col not in columns:
+            columns.append(col)
+            cells.append(None)
+        cells[columns.index(col)] = new
+    return Sheet(data["file"], pd.DataFrame([cells], columns=columns, dtype=object), [row], "utf-8", ",",
+                 data["decimal"])

@@ -13,7 +13,7 @@ from fieldslope.schemas.batch_plan import now
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.store_checks import show
 from fieldslope.schemas.store_queries import last_batch_id
-from fieldslope.schemas.store_quarantine import QuarantineFix
+from fieldslope.schemas.store_quarantine import INSERT_RESOLUTION, QuarantineFix
 from fieldslope.schemas.store_types import RecordError, Resolution
 
 ACTIONS = ("keep", "exclude", "set")
@@ -53,8 +53,7 @@ class FlagResolver:
                                            reason, operator)
         after = last_batch_id(conn)
         if action != "set":
-            conn.execute("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
-                         "VALUES (?,?,?,?,?,?,?,?)", (flag_id, action, flagged, None, reason, operator, now(), after))
+            conn.execute(INSERT_RESOLUTION, (flag_id, action, flagged, None, reason, operator, now(), after))
             verb = "kept" if action == "keep" else "left out of the estimates"
             return Resolution(flag_id, action, old=flagged, message=f"flag {flag_id}: {ind} {season} "
                               f"{field or 'record'} {verb}.")
@@ -80,8 +79,7 @@ class FlagResolver:
             (ind, season, field, flag_id))]
         stamp = now()
         conn.executemany(
-            "INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
-            "VALUES (?,?,?,?,?,?,?,?)",
+            INSERT_RESOLUTION,
             [(flag_id, "set", old, new, reason, operator, stamp, after)]
             + [(sid, "set", old, new, f"{reason} (corrected under flag {flag_id})", operator, stamp, after)
                for sid in siblings])

@@ -27,18 +27,16 @@ from __future__ import annotations
 import threading
 import time
 from pathlib import Path
-from typing import TYPE_CHECKING, Callable
+from typing import Callable
 
 from textual import work
+from textual.app import App
 from textual.dom import DOMNode
 from textual.message import Message
 from textual.worker import get_current_worker
 
 from fieldslope.tui.messages import IntervalsProgress, IntervalsReady, Polled, PointsReady
 from fieldslope.tui.snapshot import Snapshot
-
-if TYPE_CHECKING:  # pragma: no cover
-    from fieldslope.tui.app import FieldslopeApp
 
 #: the message types the pipeline's workers post (the app hands them back to ``receive``)
 PIPELINE_MESSAGES = (Polled, PointsReady, IntervalsProgress, IntervalsReady)
@@ -62,11 +60,15 @@ class Cancelled(Exception):
 
 
 class RefreshPipeline(DOMNode):
-    """Poll → point estimates → intervals for the app's study; see the module docstring."""
+    """Poll → point estimates → intervals for the app's study; see the module docstring.
+
+    ``app`` is the dashboard (``tui.app.FieldslopeApp``): the pipeline sets its reactive ``snapshot``,
+    ``updating``, ``progress`` and ``error``, reads ``readonly``, ``locked`` and ``sensitivity``, and
+    calls its ``set_locked``, ``set_timer`` and ``post_message``."""
 
     PROBE_EVERY = 4        # probe the write lock on every 4th poll (and on every poll while locked)
 
-    def __init__(self, app: "FieldslopeApp", study_dir: Path, *, bootstrap: int, seed: int | None,
+    def __init__(self, app: App, study_dir: Path, *, bootstrap: int, seed: int | None,
                  poll_interval: float, clock: Callable[[], str]) -> None:
         super().__init__(name="refresh-pipeline")
         self.owner = app
