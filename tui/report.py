@@ -147,8 +147,6 @@ def quantity_order(names) -> list[str]:
 
 def build(study, options: Options, progress=None) -> Report:
     """The whole page for ``study`` (a schemas.study.Study)."""
-    import numpy as np
-
     from fieldslope.common.errors import FieldslopeError
     from fieldslope.tui import report_figures as figs
     from fieldslope.tui.bridge import estimates_for_frame
@@ -176,6 +174,43 @@ def build(study, options: Options, progress=None) -> Report:
     figures: list = []
     out: list[str] = []
     w = out.append
+    pg = _Page(study, protocol, store, frame, est, table, options, fitness, seasons, seasons_all, sites_all,
+               info, batches, figures, w, figs, options.site or ALL, list(protocol.trait_names))
+    for section in (_page_head, _study_section, _selection_section, _fitness_functions_section,
+                    _surfaces_section, _across_section, _response_section, _closing_sections):
+        section(pg)
+    return Report("\n".join(out), figures)
+
+
+@dataclass
+class _Page:
+    """What every section of the page reads: the study, its estimates and the options, and ``w`` to
+    write HTML (with ``figures`` collecting the pictures)."""
+
+    study: object
+    protocol: object
+    store: object
+    frame: object
+    est: object
+    table: object
+    options: Options
+    fitness: str
+    seasons: list
+    seasons_all: list
+    sites_all: list
+    info: dict
+    batches: list
+    figures: list
+    w: object
+    figs: object
+    pic_site: str
+    traits: list
+
+
+def _page_head(pg: _Page) -> None:
+    """The page head: title, what the figures come from, and the table of contents."""
+    study, protocol, options, fitness, batches, w = (
+        pg.study, pg.protocol, pg.options, pg.fitness, pg.batches, pg.w)
 
     name = protocol.name or "study"
     stamp = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
@@ -204,7 +239,11 @@ def build(study, options: Options, progress=None) -> Report:
     sections += ["Conventions and sources", "Cautions"]
     w("<nav><ol>" + "".join(f"<li><a href=\"#{_slug(s)}\">{s}</a></li>" for s in sections) + "</ol></nav>")
 
-    # -- the study ---------------------------------------------------------------------------------
+
+def _study_section(pg: _Page) -> None:
+    """The study: traits, fitness measures, seasons and sites, intake, open flags."""
+    protocol, store, options, info, batches, figures, w, figs = (
+        pg.protocol, pg.store, pg.options, pg.info, pg.batches, pg.figures, pg.w, pg.figs)
     w(f"<h2 id=\"{_slug('The study')}\" class=\"first\">The study</h2>")
     w("<table><caption>Traits</caption><tr><th>trait</th><th>what</th><th>unit</th>"
       "<th class=\"num\">plausible range</th></tr>")
@@ -247,7 +286,11 @@ def build(study, options: Options, progress=None) -> Report:
     else:
         w("<p>No open flags.</p>")
 
-    # -- selection tables -------------------------------------------------------------------------
+
+def _selection_section(pg: _Page) -> None:
+    """Selection tables of each season and site for the chosen fitness, with their notes."""
+    est, table, options, fitness, seasons, sites_all, w = (
+        pg.est, pg.table, pg.options, pg.fitness, pg.seasons, pg.sites_all, pg.w)
     w(f"<h2 id=\"{_slug('Selection by season and site')}\">Selection by season and site</h2>")
     w(f"<p class=\"note\">Fitness measure {esc(fitness)}; other measures with <code>--fitness</code> or in "
       "<code>fieldslope estimate --format csv</code>. Intervals are 95 % percentile bootstrap intervals, "
@@ -258,7 +301,7 @@ def build(study, options: Options, progress=None) -> Report:
         sites = [ALL, *sites_all] if options.site is None else [options.site]
         for site in sites:
             block = table[(table["season"] == season) & (table["site"] == site) & (table["fitness"] == fitness)
-                          & ~table["quantity"].isin([*ACROSS, *RESPONSE, "heritability"])]
+                          & ~table["quantity"].isin([*ACROSS, *RESPONSE, Q.HERITABILITY])]
             if block.empty:
                 continue
             w(f"<div class=\"cell\"><table><caption>season {esc(season)} · site {esc(site)} · fitness "
@@ -273,7 +316,11 @@ def build(study, options: Options, progress=None) -> Report:
             w("<ul class=\"note\">" + "".join(f"<li>{esc(_where(n))}{esc(n.message)}</li>" for n in notes[:40])
               + "</ul>")
 
-    # -- fitness functions ------------------------------------------------------------------------
+
+def _fitness_functions_section(pg: _Page) -> None:
+    """Fitness functions: a smoothing spline and its bootstrap band per season and trait."""
+    protocol, frame, options, fitness, seasons, figures, w, figs, pic_site = (
+        pg.protocol, pg.frame, pg.options, pg.fitness, pg.seasons, pg.figures, pg.w, pg.figs, pg.pic_site)
     from fieldslope.analysis.fitness_spline import fitness_function
     from fieldslope.analysis.table import DEFAULT_SEED
 
@@ -281,7 +328,6 @@ def build(study, options: Options, progress=None) -> Report:
     w("<p class=\"note\">Relative fitness against each standardized trait (within cells), with a cubic smoothing "
       "spline whose smoothing is chosen by generalized cross-validation and its 95 % pointwise bootstrap band "
       f"({options.bootstrap} resamples of individuals within cells; Schluter 1988, Evolution 42:849–861).</p>")
-    pic_site = options.site or ALL
     seed = options.seed if options.seed is not None else DEFAULT_SEED
     for season in seasons:
         for trait in protocol.trait_names:
@@ -303,9 +349,13 @@ def build(study, options: Options, progress=None) -> Report:
             w(_figure(fig, f"{shown(trait)}, {where}: n = {ff.n}, smoothing λ = {ff.fit.lam:.3g} "
                            f"({ff.fit.edf:.1f} effective degrees of freedom).{band}"))
 
-    # -- surfaces ---------------------------------------------------------------------------------
+
+def _surfaces_section(pg: _Page) -> None:
+    """Fitness surfaces of each pair of traits from beta and gamma."""
+    protocol, frame, table, options, fitness, seasons, figures, w, figs, pic_site, traits = (
+        pg.protocol, pg.frame, pg.table, pg.options, pg.fitness, pg.seasons, pg.figures, pg.w, pg.figs,
+        pg.pic_site, pg.traits)
     w(f"<h2 id=\"{_slug('Fitness surfaces')}\">Fitness surfaces</h2>")
-    traits = list(protocol.trait_names)
     if len(traits) < 2:
         w("<p>The fitness surface needs two traits; this protocol has one.</p>")
     else:
@@ -316,24 +366,28 @@ def build(study, options: Options, progress=None) -> Report:
             for i, a in enumerate(traits):
                 for b in traits[i + 1:]:
                     vals = {key: _value(table, season, pic_site, fitness, *key) for key in
-                            (("gradient", a), ("gradient", b), ("quadratic", f"{a}^2"), ("quadratic", f"{b}^2"),
-                             ("correlational", f"{a}:{b}"))}
+                            ((Q.GRADIENT, a), (Q.GRADIENT, b), (Q.QUADRATIC, f"{a}^2"), (Q.QUADRATIC, f"{b}^2"),
+                             (Q.CORRELATIONAL, f"{a}:{b}"))}
                     where = f"season {season}, " + ("pooled over sites" if pic_site == ALL else f"site {pic_site}")
                     if any(v is None for v in vals.values()):
                         w(f"<p class=\"note\">{esc(a)} × {esc(b)}, {esc(where)}: no quadratic model (see the "
                           "notes).</p>")
                         continue
-                    g12 = vals[("correlational", f"{a}:{b}")]
-                    gamma = ((vals[("quadratic", f"{a}^2")], g12), (g12, vals[("quadratic", f"{b}^2")]))
+                    g12 = vals[(Q.CORRELATIONAL, f"{a}:{b}")]
+                    gamma = ((vals[(Q.QUADRATIC, f"{a}^2")], g12), (g12, vals[(Q.QUADRATIC, f"{b}^2")]))
                     xa, _, _ = _cell_data(frame, protocol, season, pic_site, a, fitness)
                     xb, _, _ = _cell_data(frame, protocol, season, pic_site, b, fitness, paired=a)
                     xa2, _, _ = _cell_data(frame, protocol, season, pic_site, a, fitness, paired=b)
-                    fig = figs.surface_figure((vals[("gradient", a)], vals[("gradient", b)]), gamma, (a, b), xa2, xb,
+                    fig = figs.surface_figure((vals[(Q.GRADIENT, a)], vals[(Q.GRADIENT, b)]), gamma, (a, b), xa2, xb,
                                               where, _slug("surface", season, pic_site, a, b), png=options.png)
                     figures.append(fig)
                     w(_figure(fig, f"{shown(a)} and {shown(b)}, {where}."))
 
-    # -- across seasons ---------------------------------------------------------------------------
+
+def _across_section(pg: _Page) -> None:
+    """Across seasons: a forest picture of beta per season and the combined rows."""
+    table, options, fitness, seasons_all, figures, w, figs, pic_site, traits = (
+        pg.table, pg.options, pg.fitness, pg.seasons_all, pg.figures, pg.w, pg.figs, pg.pic_site, pg.traits)
     w(f"<h2 id=\"{_slug('Across seasons')}\">Across seasons</h2>")
     # every across-season quantity there is (new ones appear by themselves), heritability apart
     across = table[(table["season"] == ALL) & (table["quantity"] != Q.HERITABILITY) & (table["fitness"] == fitness)
@@ -345,13 +399,13 @@ def build(study, options: Options, progress=None) -> Report:
         for trait in traits:
             rows = []
             for season in seasons_all:
-                r = _row_of(table, season, pic_site, fitness, "gradient", trait)
+                r = _row_of(table, season, pic_site, fitness, Q.GRADIENT, trait)
                 if r is None:
                     continue
                 lo, hi = _f(r["ci_low"]), _f(r["ci_high"])
                 rows.append((season, _f(r["estimate"]), lo, hi))
-            m = _row_of(table, ALL, pic_site, fitness, "gradient_mean", trait)
-            t2 = _row_of(table, ALL, pic_site, fitness, "gradient_tau2", trait)
+            m = _row_of(table, ALL, pic_site, fitness, Q.GRADIENT_MEAN, trait)
+            t2 = _row_of(table, ALL, pic_site, fitness, Q.GRADIENT_TAU2, trait)
             mean = None
             if m is not None and _f(m["estimate"]) is not None:
                 se = _f(m["se"])
@@ -372,9 +426,13 @@ def build(study, options: Options, progress=None) -> Report:
                 w(_row(r))
         w("</table>")
 
-    # -- response ---------------------------------------------------------------------------------
+
+def _response_section(pg: _Page) -> None:
+    """Response to selection: heritability, expected responses and projected means."""
+    table, fitness, seasons, w, pic_site, traits = (
+        pg.table, pg.fitness, pg.seasons, pg.w, pg.pic_site, pg.traits)
     w(f"<h2 id=\"{_slug('Response to selection')}\">Response to selection</h2>")
-    h2 = table[table["quantity"] == "heritability"]
+    h2 = table[table["quantity"] == Q.HERITABILITY]
     if not h2.empty:
         w("<table><caption>Heritability</caption>" + _head() + "".join(_row(r) for r in h2.itertuples(index=False))
           + "</table>")
@@ -397,8 +455,8 @@ def build(study, options: Options, progress=None) -> Report:
           "<tr><th>trait</th><th class=\"num\">now</th>"
           + "".join(f"<th class=\"num\">after {k}</th>" for k in PROJECT_GENERATIONS) + "</tr>")
         for trait in traits:
-            mean_row = _row_of(table, latest, pic_site, fitness, "mean", trait)
-            r_row = _row_of(table, latest, pic_site, fitness, "response", trait)
+            mean_row = _row_of(table, latest, pic_site, fitness, Q.MEAN, trait)
+            r_row = _row_of(table, latest, pic_site, fitness, Q.RESPONSE, trait)
             if mean_row is None or r_row is None or _f(r_row["estimate"]) is None:
                 continue
             path = project_mean(_f(mean_row["estimate"]), _f(r_row["estimate"]), max(PROJECT_GENERATIONS))
@@ -406,7 +464,11 @@ def build(study, options: Options, progress=None) -> Report:
               + "".join(f"<td class=\"num\">{num(path[k])}</td>" for k in PROJECT_GENERATIONS) + "</tr>")
         w("</table>")
 
-    # -- changes ----------------------------------------------------------------------------------
+
+def _closing_sections(pg: _Page) -> None:
+    """What changed (with --since), the conventions and sources, and the cautions."""
+    study, options, w = (
+        pg.study, pg.options, pg.w)
     if options.since is not None:
         from fieldslope.tui import changes
 
@@ -424,7 +486,6 @@ def build(study, options: Options, progress=None) -> Report:
     w(f"<h2 id=\"{_slug('Cautions')}\">Cautions</h2>")
     w("".join(f"<p class=\"caution\">{html.escape(c)}</p>" for c in CAUTIONS))
     w("</body></html>\n")
-    return Report("\n".join(out), figures)
 
 
 def _head() -> str:
