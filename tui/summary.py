@@ -12,11 +12,11 @@ from __future__ import annotations
 import math
 from collections import Counter
 
+from fieldslope.common.names import ALL, Q, Outcome
 from fieldslope.tui import cli_format as fmt
 from fieldslope.tui.safe_text import escape_controls
 
 WIDTH = fmt.WIDTH
-ALL = "all"
 
 
 def shown(value: object) -> str:
@@ -45,9 +45,7 @@ def _site_of(frame, protocol):
 def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: int | None = None,
            progress=None) -> dict:
     """Everything the summary shows, as plain data (the JSON output is exactly this)."""
-    from fieldslope.analysis.fitness import add_totals
     from fieldslope.common.errors import FieldslopeError
-    from fieldslope.tui.bridge import design_from_protocol, estimates_for_frame
 
     protocol, store = study.protocol, study.store
     if fitness is not None and fitness not in protocol.fitness:
@@ -57,11 +55,33 @@ def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: in
     frame = store.effective_frame()
     flags = store.flags()
     batches = store.batches()
-    season_col = protocol.season_col
     measures = [*protocol.component_names, *protocol.totals]
     out: dict = {"study": str(study.root), "name": getattr(protocol, "name", "") or "",
                  "traits": list(protocol.trait_names), "fitness_measures": measures, "cells": [],
                  "open_flags": {}, "last_batch": None, "latest": None}
+    out["cells"], unplaced = _cells(frame, protocol, flags, measures)
+    out["open_flags"] = dict(sorted(Counter(f.kind for f in flags).items()))
+    if unplaced:
+        out["open_flags_without_record"] = int(unplaced)   # e.g. quarantined rows of unknown IDs
+    taken = [b for b in batches if b.outcome != Outcome.REFUSED]
+    if batches:
+        last = batches[-1]
+        out["last_batch"] = {"id": last.id, "file": last.file_name, "operator": last.operator,
+                             "received": last.received, "outcome": last.outcome, "rows": last.n_rows,
+                             "stored": last.n_stored}
+    out["batches"] = {"stored": len(taken), "refused": len(batches) - len(taken)}
+    if not frame.empty:
+        out["latest"] = _latest_gradients(frame, protocol, fitness, bootstrap, seed, progress)
+    return out
+
+
+def _cells(frame, protocol, flags, measures) -> tuple[list[dict], int]:
+    """Per season and site: individuals, how many have each fitness measure, open flags; and the number
+    of open flags that belong to no record (no season and site to place them in)."""
+    from fieldslope.analysis.fitness import add_totals
+    from fieldslope.tui.bridge import design_from_protocol
+
+    season_col = protocol.season_col
     site_of_flag: dict = {}
     if not frame.empty:
         data = add_totals(frame, design_from_protocol(protocol))
@@ -69,37 +89,32 @@ def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: in
         site_of_flag = dict(zip(zip(data[protocol.id_col].astype(str), data[season_col].astype(str)),
                                 data["_site"]))
     flag_cells = Counter((f.season, site_of_flag.get((f.individual, f.season), "")) for f in flags)
+    cells = []
     if not frame.empty:
         for (season, site), cell in data.groupby([data[season_col].astype(str), "_site"], sort=True):
-            out["cells"].append({
+            cells.append({
                 "season": season, "site": site, "n": int(len(cell)),
                 "measured": {m: int(cell[m].notna().sum()) for m in measures if m in cell.columns},
                 "open_flags": int(flag_cells.get((season, site), 0))})
-    out["open_flags"] = dict(sorted(Counter(f.kind for f in flags).items()))
-    unplaced = sum(n for (season, site), n in flag_cells.items() if site == "")
-    if unplaced:
-        out["open_flags_without_record"] = int(unplaced)   # e.g. quarantined rows of unknown IDs
-    taken = [b for b in batches if b.outcome != "refused"]
-    if batches:
-        last = batches[-1]
-        out["last_batch"] = {"id": last.id, "file": last.file_name, "operator": last.operator,
-                             "received": last.received, "outcome": last.outcome, "rows": last.n_rows,
-                             "stored": last.n_stored}
-    out["batches"] = {"stored": len(taken), "refused": len(batches) - len(taken)}
-    if frame.empty:
-        return out
-    seasons = sorted(frame[season_col].dropna().astype(str).unique())
-    latest = seasons[-1]
+    return cells, sum(n for (season, site), n in flag_cells.items() if site == "")
+
+
+def _latest_gradients(frame, protocol, fitness: str, bootstrap: int, seed, progress) -> dict:
+    """The latest season's pooled gradients (one cell's own where there is one cell) with their notes."""
+    from fieldslope.tui.bridge import estimates_for_frame
+
+    season_col = protocol.season_col
+    latest = sorted(frame[season_col].dropna().astype(str).unique())[-1]
     one = frame[frame[season_col].astype(str) == latest].reset_index(drop=True)
     # the latest season alone: its resamples depend only on the seed and the season's own rows,
     # so these are the very numbers of the full estimates table (a test checks it)
     est = estimates_for_frame(one, protocol, bootstrap=bootstrap, seed=seed, progress=progress)
     t = est.table
-    t = t[(t["season"] == latest) & (t["site"] == ALL) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")]
+    t = t[(t["season"] == latest) & (t["site"] == ALL) & (t["fitness"] == fitness) & (t["quantity"] == Q.GRADIENT)]
     if t.empty:    # one cell only: its own rows are the season's estimate
         t = est.table
         sites = sorted(set(t["site"]))
-        t = t[(t["season"] == latest) & (t["fitness"] == fitness) & (t["quantity"] == "gradient")
+        t = t[(t["season"] == latest) & (t["fitness"] == fitness) & (t["quantity"] == Q.GRADIENT)
               & (t["site"] == (sites[0] if len(sites) == 1 else ALL))]
     rows = []
     for r in t.itertuples(index=False):
@@ -108,10 +123,9 @@ def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: in
                      "ci_high": hi, "p_value": finite_or_none(r.p_value), "n": None if r.n is None or r.n != r.n else int(r.n),
                      "excludes_zero": bool(lo is not None and hi is not None and (lo > 0 or hi < 0))})
     notes = [n.message for n in est.notes if n.season in (latest, ALL, "") and n.fitness in (fitness, "")
-             and n.site in (ALL, "") and n.quantity in ("gradient", "")]
-    out["latest"] = {"season": latest, "site": rows and t["site"].iloc[0] or ALL, "fitness": fitness,
-                     "quantity": "gradient", "bootstrap": bootstrap, "rows": rows, "notes": notes}
-    return out
+             and n.site in (ALL, "") and n.quantity in (Q.GRADIENT, "")]
+    return {"season": latest, "site": rows and t["site"].iloc[0] or ALL, "fitness": fitness,
+            "quantity": Q.GRADIENT, "bootstrap": bootstrap, "rows": rows, "notes": notes}
 
 
 def finite_or_none(v):
