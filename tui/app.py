@@ -395,13 +395,15 @@ class FieldslopeApp(TypeAheadApp):
             return False
         return True
 
-    def action_show(self, mode: str, then: str | None = None) -> None:
+    async def action_show(self, mode: str, then: str | None = None) -> None:
         if not self.study_ready or mode not in SCREENS_IN_ORDER:
             return
         if self.current_mode != mode:
-            self.switch_mode(mode)
+            # Wait for the switch: on a busy machine the old screen could still be current when
+            # the follow-up action runs, and the action would go to the wrong screen.
+            await self.switch_mode(mode)
         if then:
-            self.call_after_refresh(lambda: self.screen.run_action(then))
+            await self.screen.run_action(then)
 
     def action_help(self) -> None:
         from fieldslope.tui.screens.dialogs import HelpScreen
