@@ -51,6 +51,7 @@ class Prepared:
     cell: Cell
     fitness: str
     binary: bool
+    kind: str = "continuous"  # as declared: "binary", "count" or "continuous"
     opp: Sample | None = None
     single: list[Sample | None] = field(default_factory=list)
     multi: Sample | None = None
@@ -129,7 +130,7 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
     W = cell.fitness[fitness]
     has_w = ~np.isnan(W)
     where = f"in season {cell.season}, site {cell.site}"
-    prep = Prepared(cell=cell, fitness=fitness, binary=False, n_missing=int((~has_w).sum()))
+    prep = Prepared(cell=cell, fitness=fitness, binary=False, kind=kind, n_missing=int((~has_w).sum()))
     if prep.n_missing:
         prep.notes.append(("", f"{prep.n_missing} individuals {where} lack {fitness} and are left out of its analyses."))
     p = len(traits)

@@ -8,7 +8,7 @@ from itertools import combinations_with_replacement
 import numpy as np
 
 __all__ = ["Separation", "LogitFit", "expit", "fit_logistic", "logistic_gradient", "batched_logistic",
-           "taylor_start", "weighted_pass"]
+           "taylor_start", "weighted_pass", "ascend"]
 
 MAX_ITER = 100
 TOL = 1e-11
@@ -67,35 +67,46 @@ def fit_logistic(X: np.ndarray, y: np.ndarray) -> LogitFit:
         eta = X @ b
         return float(np.sum(y * eta - np.logaddexp(0.0, eta)))
 
-    ll = loglik(beta)
-    for _ in range(MAX_ITER):
-        p = expit(X @ beta)
-        H = (X * (p * (1 - p))[:, None]).T @ X
-        g = X.T @ (y - p)
-        try:
-            step = np.linalg.solve(H, g)
-        except np.linalg.LinAlgError as err:
-            raise Separation("singular information") from err
-        t = 1.0
-        while True:
-            new = beta + t * step
-            new_ll = loglik(new)
-            if new_ll >= ll - 1e-12 or t < 1e-6:
-                break
-            t /= 2
-        beta, ll = new, new_ll
-        if np.max(np.abs(t * step)) < TOL * max(1.0, np.max(np.abs(beta))):
-            break
-        if np.max(np.abs(X @ beta)) > ETA_LIMIT:
-            raise Separation("estimates diverge")
-    else:
-        raise Separation("no convergence")
+    def newton_step(b: np.ndarray) -> np.ndarray:
+        p = expit(X @ b)
+        return np.linalg.solve((X * (p * (1 - p))[:, None]).T @ X, X.T @ (y - p))
+
+    def diverged(b: np.ndarray) -> bool:
+        return bool(np.max(np.abs(X @ b)) > ETA_LIMIT)
+
+    beta = ascend(beta, loglik, newton_step, diverged)
     p = expit(X @ beta)
     if np.max(np.abs(X @ beta)) > ETA_LIMIT:
         raise Separation("estimates diverge")
     H = (X * (p * (1 - p))[:, None]).T @ X
     cov = np.linalg.inv(H)
     return LogitFit(coef=beta, se=np.sqrt(np.diag(cov)), p_hat=p)
+
+
+def ascend(beta: np.ndarray, loglik, step_at, diverged) -> np.ndarray:
+    """Maximize ``loglik`` from ``beta`` by the steps ``step_at(beta)`` (Newton or Fisher scoring), each
+    halved until the log-likelihood does not fall; stops when a step is below TOL (relative). Raises
+    ``Separation`` when the information is singular, ``diverged(beta)`` says the estimates run off to
+    infinity, or MAX_ITER steps do not converge."""
+    ll = loglik(beta)
+    for _ in range(MAX_ITER):
+        try:
+            step = step_at(beta)
+        except np.linalg.LinAlgError as err:
+            raise Separation("singular information") from err
+        t = 1.0
+        while True:
+            new = beta + t * step
+            new_ll = loglik(new)
+            if (np.isfinite(new_ll) and new_ll >= ll - 1e-12) or t < 1e-6:
+                break
+            t /= 2
+        beta, ll = new, new_ll
+        if np.max(np.abs(t * step)) < TOL * max(1.0, np.max(np.abs(beta))):
+            return beta
+        if diverged(beta):
+            raise Separation("estimates diverge")
+    raise Separation("no convergence")
 
 
 def logistic_gradient(coef: np.ndarray, p_hat: np.ndarray, w_abs: np.ndarray) -> np.ndarray:

@@ -16,7 +16,7 @@ from fieldslope.analysis.fitness import relative
 from fieldslope.analysis.likelihood_ratio import slope_p_values
 from fieldslope.analysis.linear import Collinear, differential, ols
 from fieldslope.analysis.logistic import Separation, fit_logistic, logistic_gradient
-from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_features, quad_pairs, quad_terms
+from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, oriented, quad_features, quad_pairs, quad_terms
 from fieldslope.analysis.standardize import standardize
 from fieldslope.common.names import Q
 
@@ -180,6 +180,10 @@ def quadratic_rows(res: BlockResult, x: np.ndarray, w: np.ndarray, traits, fitne
     g, g_se = quad.coef[1 + p:], quad.se[1 + p:]
     for (j, k), term, est, se in zip(quad_pairs(p), quad_terms(traits), g, g_se):
         res.rows.append(Row(Q.QUADRATIC if j == k else Q.CORRELATIONAL, term, float(est), float(se), n))
-    vals, _ = canonical_axes(gamma_matrix(g, p))
+    vals, vecs = canonical_axes(gamma_matrix(g, p))
     for i, v in enumerate(vals):
         res.rows.append(Row(Q.CANONICAL, f"m{i + 1}", float(v), np.nan, n))
+    vecs = oriented(vecs)
+    for i in range(p):
+        for j, name in enumerate(traits):
+            res.rows.append(Row(Q.CANONICAL_LOADING, f"m{i + 1}:{name}", float(vecs[j, i]), np.nan, n))

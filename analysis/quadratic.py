@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["quad_pairs", "quad_terms", "quad_features", "gamma_matrix", "canonical_axes"]
+__all__ = ["quad_pairs", "quad_terms", "quad_features", "gamma_matrix", "canonical_axes", "oriented", "aligned"]
 
 
 def quad_pairs(p: int) -> list[tuple[int, int]]:
@@ -58,3 +58,17 @@ def canonical_axes(gamma: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """
     vals, vecs = np.linalg.eigh(gamma)
     return vals[..., ::-1], vecs[..., ::-1]
+
+
+def oriented(vecs: np.ndarray) -> np.ndarray:
+    """Eigenvectors (columns) with their largest element in size made positive (an eigenvector's sign is
+    arbitrary; this fixes the one reported)."""
+    top = np.argmax(np.abs(vecs), axis=0)
+    return vecs * np.sign(vecs[top, np.arange(vecs.shape[1])])
+
+
+def aligned(vecs: np.ndarray, reference: np.ndarray) -> np.ndarray:
+    """Eigenvectors of many resamples (B x p x p, columns) each signed to point the way of the same
+    column of ``reference`` (p x p): a column whose inner product with it is negative is reversed."""
+    dots = np.einsum("bji,ji->bi", vecs, reference)
+    return vecs * np.where(dots < 0, -1.0, 1.0)[:, None, :]

@@ -17,6 +17,7 @@ from itertools import combinations_with_replacement
 import numpy as np
 
 from fieldslope.analysis.cells import Prepared
+from fieldslope.analysis.generalized_resample import BlockBootstrap
 from fieldslope.analysis.logistic import Separation, batched_logistic, fit_logistic, taylor_start
 from fieldslope.analysis.moments import (
     FeatureMatrix,
@@ -32,8 +33,14 @@ from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, quad_pai
 from fieldslope.common.names import ALL, Q
 
 __all__ = ["CHUNK", "draw_counts", "counts_from_indices", "chunk_rng", "SeasonResampler", "bootstrap_season",
-           "percentile_interval"]
+           "percentile_interval", "PHENOTYPIC_COV", "CANONICAL_AXES"]
 
+# key of the replicates of the phenotypic covariance matrix (B x p x p) of a block's complete cases (for
+# the interval of the multivariate response; no row of the table)
+PHENOTYPIC_COV = "phenotypic covariance"
+# key of the replicates of the eigenvectors of gamma (B x p x p, columns largest eigenvalue first; signs as
+# they come: ``canonical_interval`` aligns them with the estimate's)
+CANONICAL_AXES = "canonical axes"
 # resamples drawn from one random stream (``chunk_rng``): fixed, so a seed gives the same resamples at any n
 CHUNK = 200
 # bytes of counts worked on at once while resampling: a stream's resamples are split into blocks of
@@ -89,7 +96,8 @@ def chunk_rng(seed: int, season: str, stream: int, chunk: int) -> np.random.Gene
 class SeasonResampler:
     """Replicate estimates of one season's cells (and their pooled block) for chunks of resamples."""
 
-    def __init__(self, preps: dict[str, list[Prepared]], traits: tuple[str, ...], pooled: bool, logistic_blocks: set):
+    def __init__(self, preps: dict[str, list[Prepared]], traits: tuple[str, ...], pooled: bool, logistic_blocks: set,
+                 glm_specs: dict | None = None):
         self.preps = preps  # fitness -> one Prepared per cell (cells in the same order)
         self.traits = traits
         self.p = len(traits)
@@ -128,6 +136,8 @@ class SeasonResampler:
             self.logit_start[(site, f)] = beta
             for c in block:
                 self.add_first_step(site, f, c, beta)
+        # generalized gradients (0/1 and count fitness): batched fits of their own, on the same resamples
+        self.glm = BlockBootstrap(glm_specs or {}, preps, self.parts, self.features, traits, self.block_cells)
         self.expand = [fm.columns for fm in self.features]  # position -> distinct column
         self.features = [fm.matrix() for fm in self.features]
 
@@ -172,6 +182,7 @@ class SeasonResampler:
                 self.boot_multi(f, site, [mm[c] for c in cs], out)
                 if (site, f) in self.logit_start:
                     self.boot_logistic(f, site, cs, counts, mm, moments, out)
+                self.glm.chunk(f, site, cs, counts, moments, mm, out)
         return out
 
     def boot_opp(self, f, moments, out):
@@ -211,6 +222,10 @@ class SeasonResampler:
         dof = sum(m.n - 1 for m in mms)
         sd = np.sqrt(sum((m.n - 1)[:, None] * m.sd**2 for m in mms) / dof[:, None])
         lin = batched_solve(Mx[:, : 1 + p, : 1 + p], vx[:, : 1 + p], ok)[:, 1:]
+        # phenotypic covariance of the complete cases (raw units; pooled within cells): sum C x x' = (n - 1)
+        # times the correlation in each cell, x standardized in the resample
+        cov = sum(m.sd[:, :, None] * m.sd[:, None, :] * m.Mx[:, 1 : 1 + p, 1 : 1 + p] for m in mms) / dof[:, None, None]
+        out[(site, f, PHENOTYPIC_COV, "")] = np.where(ok[:, None, None], cov, np.nan)
         for j, name in enumerate(self.traits):
             out[(site, f, Q.GRADIENT, name)] = lin[:, j]
             out[(site, f, Q.GRADIENT_RAW, name)] = lin[:, j] / sd[:, j]
@@ -222,10 +237,12 @@ class SeasonResampler:
             out[(site, f, Q.QUADRATIC if j == k else Q.CORRELATIONAL, term)] = col
         good = np.all(np.isfinite(quad), axis=1)
         g = gamma_matrix(np.where(good[:, None], quad, 0.0), self.p)
-        vals, _ = canonical_axes(g)
+        vals, vecs = canonical_axes(g)
         vals[~good] = np.nan
+        vecs[~good] = np.nan
         for i in range(self.p):
             out[(site, f, Q.CANONICAL, f"m{i + 1}")] = vals[:, i]
+        out[(site, f, CANONICAL_AXES, "")] = vecs
 
     def logit_sums(self, f, c, moments) -> np.ndarray:
         """[sum C y x~, sum C y, sum C] of a cell's complete cases, from the linear-model moments."""

@@ -12,13 +12,17 @@ call. Choices within the binding conventions, stated here once:
 - the se of a logistic gradient is the logistic coefficient's se times the
   same factor mean(p(1-p))/mean(W);
 - ``response`` se by the delta method (h^2 and S independent); its interval from bootstrap S times
-  normal draws of h^2 (``response_interval``); ``response_multi`` has no interval yet;
+  normal draws of h^2 (``response_interval``); ``response_multi``'s from bootstrap beta_raw and P (jointly)
+  with the same kind of h^2 draws;
 - percentile intervals leave out resamples that cannot be estimated and are
   withheld when more than 5 % cannot (a note says so);
 - permutation p-values are two-sided, (1 + #{|T*| >= |T|}) / (1 + P): fitness shuffled for
   differentials; Freedman-Lane partial tests (reduced-model residuals permuted) for gradients and
   gamma terms; canonical eigenvalues against no nonlinear selection, twice the smaller tail, and
-  no percentile interval (``NO_INTERVAL``); logistic gradients a likelihood-ratio test (see ``permute``).
+  no percentile interval (``NO_INTERVAL``); logistic gradients a likelihood-ratio test (see ``permute``);
+- generalized gradients of 0/1 and count fitness (``generalized``) sit beside the OLS rows: a
+  likelihood-ratio p-value for gradient_glm, the inverted percentile interval for the gamma terms;
+  they come with the bootstrap (not on the fast path, bootstrap=0: their count models take a while).
 
 Columns are exactly ``COLUMNS``; quantities follow the binding estimation
 conventions (relative fitness within cells, traits standardized with sd of
@@ -37,16 +41,18 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
+from fieldslope.analysis.canonical_interval import loading_intervals
 from fieldslope.analysis.cells import measured_traits, prepare, split_cells
 from fieldslope.analysis.derived import heritabilities, response_rows, temporal_rows
 from fieldslope.analysis.design import Design
 from fieldslope.common.errors import EstimationError
 from fieldslope.analysis.fitness import add_totals, total_kind
+from fieldslope.analysis.generalized import fill_bootstrap_p, glm_block
 from fieldslope.analysis.permute import SeasonPermuter, permute_season
 from fieldslope.analysis.point import point_block
 from fieldslope.analysis.progress import Progress, ProgressCallback
 from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval
-from fieldslope.analysis.response_interval import response_intervals
+from fieldslope.analysis.response_interval import multi_response_intervals, response_intervals
 from fieldslope.common.names import ALL, Q
 
 __all__ = ["COLUMNS", "DEFAULT_SEED", "NO_INTERVAL", "BLAS_THREADS", "Note", "Estimates", "estimate_table",
@@ -127,14 +133,22 @@ def check_frame(frame: pd.DataFrame, design: Design, fitness_names: list[str]) -
             raise EstimationError(f"The total {name} needs the column(s) {', '.join(absent)}, which the data lack.")
 
 
-def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, seed, tick, used_h2=None) -> list[Note]:
-    """Fill ci_low, ci_high (bootstrap) and p_value (permutation) of a season's rows in place."""
+def row_dicts(season: str, site: str, fitness: str, rows) -> list[dict]:
+    """Table rows (dicts with the binding columns) of a block's estimates; intervals filled later."""
+    return [dict(season=season, site=site, fitness=fitness, quantity=r.quantity, term=r.term, estimate=r.estimate,
+                 se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=r.p, n=r.n) for r in rows]
+
+
+def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, seed, tick, used_h2=None,
+                       glm_specs=None, genetic_correlations=None) -> list[Note]:
+    """Fill ci_low, ci_high (bootstrap) and p_value (permutation; bootstrap for the generalized gamma
+    rows, ``generalized.bootstrap_p``) of a season's rows in place."""
     notes: list[Note] = []
     logistic = {(r["site"], r["fitness"]) for r in season_rows if r["quantity"] == Q.GRADIENT_LOGISTIC}
     boot: dict = {}
     perm: dict = {}
     if B > 0:
-        resampler = SeasonResampler(preps_by_f, traits, pooled, logistic)
+        resampler = SeasonResampler(preps_by_f, traits, pooled, logistic, glm_specs)
         boot = bootstrap_season(resampler, season, B, seed, lambda k: tick(k, f"bootstrap, season {season}"))
     if P > 0:
         permuter = SeasonPermuter(preps_by_f, traits, pooled)
@@ -152,8 +166,12 @@ def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, se
                     f["none"].append(f"{r['quantity']} {r['term']}".strip())
         if key in perm:
             r["p_value"] = perm[key]
+    if boot:
+        fill_bootstrap_p(season_rows, boot)
+        loading_intervals(season_rows, boot, traits)
     if boot and used_h2:
         response_intervals(season_rows, boot, used_h2, seed, season)
+        multi_response_intervals(season_rows, boot, used_h2, genetic_correlations, list(traits), seed, season)
     for (site, fitness), f in failed.items():
         msg = (f"Up to {f['worst']} of {B} resamples could not be estimated in season {season}, site {site} "
                "(a trait constant, mean fitness 0 or separation in the resample) and were left out of the intervals")
@@ -267,20 +285,23 @@ def season_estimates(run: Run, season: str, cells: list, rows: list[dict], notes
         return False
     season_rows, preps_by_f, pooled = [], {}, not (len(cells) == 1 and cells[0].site == ALL)
     rg_assumed = False
+    glm_specs: dict = {}  # (site, fitness) -> the generalized gradients' fitted models
     for f in run.fitness_names:
         preps_by_f[f] = [prepare(c, f, total_kind(run.design, f), traits) for c in cells]
-        rg_assumed |= fitness_estimates(run, season, traits, f, preps_by_f[f], pooled, season_rows, notes)
+        rg_assumed |= fitness_estimates(run, season, traits, f, preps_by_f[f], pooled, season_rows, notes, glm_specs)
     if run.bootstrap > 0 or run.permutations > 0:
         notes.extend(attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, run.bootstrap,
-                                        run.permutations, run.seed, run.ticker.tick, run.used_h2))
+                                        run.permutations, run.seed, run.ticker.tick, run.used_h2, glm_specs,
+                                        run.genetic_correlations))
     rows.extend(season_rows)
     return rg_assumed
 
 
 def fitness_estimates(run: Run, season: str, traits, f: str, preps: list, pooled: bool, season_rows: list[dict],
-                      notes: list[Note]) -> bool:
-    """Point estimates and responses of one fitness measure in each cell of a season and pooled over them;
-    True if phenotypic correlations stood in for genetic ones."""
+                      notes: list[Note], glm_specs: dict) -> bool:
+    """Point estimates and responses of one fitness measure in each cell of a season and pooled over them
+    (the generalized gradients' fitted models into ``glm_specs``); True if phenotypic correlations stood in
+    for genetic ones."""
     for pr in preps:
         notes.extend(Note(season, pr.cell.site, f, q, m) for q, m in pr.notes)
     units = [(pr.cell.site, [pr]) for pr in preps]
@@ -293,13 +314,16 @@ def fitness_estimates(run: Run, season: str, traits, f: str, preps: list, pooled
                           "(see their notes)."))
     rg_assumed = False
     for site, block in units:
-        res = point_block(block, traits, f"in season {season}, site {site}", tests=run.permutations > 0)
+        where = f"in season {season}, site {site}"
+        res = point_block(block, traits, where, tests=run.permutations > 0)
         notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
-        season_rows.extend(
-            dict(season=season, site=site, fitness=f, quantity=r.quantity, term=r.term,
-                 estimate=r.estimate, se=r.se, ci_low=np.nan, ci_high=np.nan, p_value=r.p, n=r.n)
-            for r in res.rows
-        )
+        season_rows.extend(row_dicts(season, site, f, res.rows))
+        if run.bootstrap > 0:  # the fast path (bootstrap=0) keeps to OLS and the logistic gradient
+            gen = glm_block(block, traits, where, tests=run.permutations > 0)
+            notes.extend(Note(season, site, f, q, m) for q, m in gen.notes)
+            season_rows.extend(row_dicts(season, site, f, gen.rows))
+            if gen.spec is not None:
+                glm_specs[(site, f)] = gen.spec
         extra, assumed = response_rows(season, site, f, res, traits, run.used_h2, run.genetic_correlations)
         season_rows.extend(extra)
         rg_assumed |= assumed

@@ -46,6 +46,13 @@ class Q:
     # exclude zero on opposite sides
     GRADIENT_MEAN_RE: Final = "gradient_mean_re"
     SIGN_CHANGES_SIGNIFICANT: Final = "sign_changes_significant"
+    # generalized gradients from a model of the fitness function (logistic for 0/1 fitness, Poisson or
+    # negative binomial for counts): mean first and second derivatives of expected fitness / mean fitness
+    GRADIENT_GLM: Final = "gradient_glm"
+    QUADRATIC_GLM: Final = "quadratic_glm"
+    CORRELATIONAL_GLM: Final = "correlational_glm"
+    # loading of a trait on a canonical axis of gamma (term ``m1:trait``): an eigenvector's element
+    CANONICAL_LOADING: Final = "canonical_loading"
 
 
 #: Every quantity name, in the order of the estimation contract.

@@ -382,3 +382,44 @@ def test_a_binary_cell_that_is_not_0_or_1_is_not_asked_for_a_decimal_point(folde
     assert code == 1 and "decimal point" not in out
     assert "row 2, column survived: 'yes' is not 0 or 1 (binary fitness); write 0 or 1, or leave the cell blank" in out
     assert "row 2, column clutch: 'two' is not a count; write a whole number (0, 1, 2, …), or leave" in out
+
+
+def test_estimate_random_effects_option_and_tau2_written_one_way(folder, protocol_file, capsys):
+    """--random-effects hk gives the Hartung-Knapp interval of the mean across seasons (Hartung & Knapp 2001,
+    Stat. Med. 20:3875-3889; the estimator itself is checked against statsmodels in test_analysis_derived),
+    the same numbers as the library call; dl (the default) the DerSimonian-Laird normal one. tau^2 is written
+    with 3 significant digits in the table, as in the dashboard and the report (tui.number_text)."""
+    from fieldslope.schemas.study import Study
+    from fieldslope.tui.bridge import estimates_for_frame
+    from fieldslope.tui.number_text import tau2_text
+
+    rng = np.random.default_rng(5)
+    lines = ["tag,season,site,wing,tibia,survived,clutch"]
+    for s, slope in ((2021, 1.5), (2022, -0.5), (2023, 2.5), (2024, 0.3)):
+        for i in range(40):
+            wing, tibia = rng.uniform(3.5, 5.5), rng.uniform(1.2, 2.2)
+            eggs = max(0, round(3 + slope * (wing - 4.5) + rng.normal(0, 1)))
+            lines.append(f"S{s}_{i},{s},Gull Flat,{wing:.2f},{tibia:.2f},1,{eggs}")
+    (folder / "seasons.csv").write_text("\n".join(lines) + "\n")
+    study = str(folder / "st")
+    assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
+    assert call(capsys, "import", str(folder / "seasons.csv"), "--study", study)[0] == 0
+    got = {}
+    for method in ("dl", "hk"):
+        code, out, err = call(capsys, "estimate", "--format", "json", "--bootstrap", "50", "--skip-pedigree",
+                              "--random-effects", method, "--fitness", "clutch", "--study", study)
+        assert code == 0, err
+        got[method] = {(r["quantity"], r["term"]): r for r in json.loads(out) if r["season"] == "all"}
+    with Study.open(Path(study)) as st:
+        frame, protocol = st.store.effective_frame(), st.protocol
+    ref = estimates_for_frame(frame, protocol, bootstrap=50, random_effects="hk").table
+    ref = ref[(ref.season == "all") & (ref.fitness == "clutch") & (ref.quantity == "gradient_mean_re") & (ref.term == "wing")].iloc[0]
+    hk, dl = got["hk"][("gradient_mean_re", "wing")], got["dl"][("gradient_mean_re", "wing")]
+    assert got["hk"][("gradient_tau2", "wing")]["estimate"] > 0
+    assert (hk["ci_low"], hk["ci_high"]) == pytest.approx((ref.ci_low, ref.ci_high), rel=1e-12)
+    assert hk["estimate"] == pytest.approx(dl["estimate"], rel=1e-12) and hk["ci_low"] != pytest.approx(dl["ci_low"])
+    code, out, _ = call(capsys, "estimate", "--bootstrap", "0", "--skip-pedigree", "--study", study, "--site", "Gull Flat",
+                        "--fitness", "clutch")
+    tau = [line for line in out.splitlines() if line.startswith("gradient_tau2") and " wing " in line]
+    assert len(tau) == 1 and tau[0].split()[2] == tau2_text(got["dl"][("gradient_tau2", "wing")]["estimate"])
+    assert tau2_text(0.000123456) == "0.000123" and tau2_text(12.3456) == "12.3" and tau2_text(None) == ""

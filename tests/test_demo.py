@@ -225,8 +225,8 @@ def test_same_seed_gives_the_numbers_of_the_reference_commit(estimates):
     both = ref.merge(now, on=key, how="left", suffixes=("_ref", ""), indicator=True)
     assert (both["_merge"] == "both").all(), both.loc[both["_merge"] != "both", key].head()
     # intervals redefined since that commit: none for canonical eigenvalues (biased percentile intervals);
-    # new ones for the mean across seasons (random effects when tau^2 > 0) and the response to selection
-    redefined = both["quantity"].isin(["canonical", "gradient_mean", "response", "response_pct"]).to_numpy()
+    # new ones for the mean across seasons (random effects when tau^2 > 0) and the responses to selection
+    redefined = both["quantity"].isin(["canonical", "gradient_mean", "response", "response_pct", "response_multi"]).to_numpy()
     for col in ("estimate", "se", "ci_low", "ci_high", "n"):
         keep = ~redefined if col in ("ci_low", "ci_high") else np.ones(len(both), dtype=bool)
         a, b = both[f"{col}_ref"].to_numpy(float)[keep], both[col].to_numpy(float)[keep]

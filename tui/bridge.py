@@ -40,17 +40,19 @@ def estimates_for_frame(
     pedigree: bool = False,
     genetics=None,
     season: str | None = None,
+    random_effects: str = "dl",
 ):
     """Estimates for an effective-data frame (see DEVELOPERS.md for its columns).
 
-    ``season`` restricts the work to one season. ``pedigree`` fits the animal
+    ``season`` restricts the work to one season; ``random_effects`` picks the interval of the mean
+    gradient across seasons ("dl" or "hk", as ``estimate_table``). ``pedigree`` fits the animal
     models first (slow: the command line does, the dashboard's live refresh does not); ``genetics`` passes a fit already made.
     """
     from fieldslope.analysis.table import estimate_table  # heavy: imported on first use
 
     if pedigree and genetics is None:
         genetics = pedigree_genetics(frame, protocol, progress=progress)
-    kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2, "genetics": genetics}
+    kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2, "genetics": genetics, "random_effects": random_effects}
     if season is not None:
         kwargs["only_seasons"] = [season]
     if seed is not None:

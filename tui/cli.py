@@ -100,6 +100,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="leave out values with open outlier flags too (sensitivity)")
     p.add_argument("--skip-pedigree", action="store_true",
                    help="no animal models (the pedigree rows take a while on large studies)")
+    p.add_argument("--random-effects", choices=("dl", "hk"), default="dl",
+                   help="interval of the mean gradient across seasons when tau² > 0: dl, DerSimonian-Laird "
+                        "(normal; default), or hk, Hartung-Knapp (t, wider with few seasons)")
     p.add_argument("--output", metavar="FILE", help="write to FILE instead of the screen")
 
     p = command("summary", "one screen about the study: cells, flags, last batch, latest season's gradients")

@@ -149,7 +149,7 @@ def estimate(args) -> int:
     try:
         est = estimates_for_frame(frame, protocol, bootstrap=args.bootstrap, seed=args.seed, h2=h2 or None,
                                   progress=progress, pedigree=not args.skip_pedigree,
-                                  season=args.season)
+                                  season=args.season, random_effects=args.random_effects)
         # --season restricts the work (same numbers); --fitness and --site filter afterwards: the pooled
         # block needs every site, and the permutation p-values depend on the set of fitness measures
     finally:

@@ -12,8 +12,9 @@ import textwrap
 from collections import Counter
 from typing import TYPE_CHECKING, Iterable, TextIO
 
-from fieldslope.common.names import flag_label
+from fieldslope.common.names import Q, flag_label
 from fieldslope.common.words import plural
+from fieldslope.tui.number_text import tau2_text
 from fieldslope.tui.safe_text import escape_controls
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -166,7 +167,8 @@ def estimates_text(table: pd.DataFrame, notes=()) -> str:
         lines += ["", cut(f"season {season} · site {site} · fitness {fitness}", WIDTH), _HEAD]
         for r in block.itertuples(index=False):
             n = "" if missing(r.n) else str(int(r.n))
-            lines.append(f"{cut(r.quantity, 17):<17} {cut(r.term, 10):<10} {number(r.estimate, 9)} "
+            estimate = f"{tau2_text(r.estimate):>9}" if r.quantity == Q.GRADIENT_TAU2 else number(r.estimate, 9)
+            lines.append(f"{cut(r.quantity, 17):<17} {cut(r.term, 10):<10} {estimate} "
                          f"{number(r.se, 8)} {number(r.ci_low, 9)} {number(r.ci_high, 9)} "
                          f"{p_text(r.p_value):>6} {n:>5}")
     if notes:

@@ -15,6 +15,7 @@ import re
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 
+from fieldslope.tui.number_text import tau2_text
 from fieldslope.tui.summary import default_fitness, shown
 
 from fieldslope.common.names import ALL, Q
@@ -504,7 +505,8 @@ def _row(r) -> str:
     exact = "" if value is None else repr(value)
     return (f"<tr{cls} data-key=\"{esc(key)}\" data-value=\"{exact}\">"
             f"<td>{esc(LABELS.get(r.quantity, r.quantity))}</td><td>{esc(r.term)}</td>"
-            f"<td class=\"num\">{num(value)}</td><td class=\"num\">{num(_f(r.se))}</td>"
+            f"<td class=\"num\">{tau2_text(value) if r.quantity == Q.GRADIENT_TAU2 else num(value)}</td>"
+            f"<td class=\"num\">{num(_f(r.se))}</td>"
             f"<td class=\"num\">{interval}</td><td class=\"num\">{html.escape(p_text(_f(r.p_value)))}</td>"
             f"<td class=\"num\">{n}</td></tr>")
 

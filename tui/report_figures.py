@@ -11,6 +11,7 @@ from __future__ import annotations
 import io
 from dataclasses import dataclass
 
+from fieldslope.tui.number_text import tau2_text
 from fieldslope.tui.summary import shown
 
 WIDTH_IN, HEIGHT_IN = 6.4, 3.6
@@ -132,7 +133,7 @@ def forest_figure(panels, name: str, title: str, png: bool = False) -> Figure:
                 ax.fill([lo, est, hi, est], [0, 0.25, 0, -0.25], color="tab:orange", alpha=0.8)
             else:
                 ax.plot([est], [0], "D", color="tab:orange")
-            tau = "" if tau2 is None else f", τ² = {tau2:.3g}"
+            tau = "" if tau2 is None else f", τ² = {tau2_text(tau2)}"
             ax.set_title(f"{label(trait)}{tau}", fontsize=9)
         else:
             ax.set_title(label(trait), fontsize=9)

@@ -20,6 +20,7 @@ from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.snapshot import ALL, Snapshot
 from fieldslope.tui.widgets.literal import assemble, literal
+from fieldslope.tui.number_text import tau2_text
 from fieldslope.tui.widgets.pictures import fmt, interval_rows
 
 
@@ -117,7 +118,7 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
             sc = snap.value(ALL, site, c.fitness, Q.SIGN_CHANGES, trait)
             if mean or tau2 or sc:
                 summary.append(assemble(
-                    (f"{name}: ", "bold"), "weighted mean β ", (_e(mean), "bold"), "  τ² ", (_e(tau2), "bold"),
+                    (f"{name}: ", "bold"), "weighted mean β ", (_e(mean), "bold"), "  τ² ", (tau2_text(tau2["estimate"]) if tau2 else "–", "bold"),
                     "  Q ", (_e(q), "bold"), (f" (p {fmt(q['p_value'])})" if q and q["p_value"] is not None else ""),
                     "  sign changes ", (_e(sc, digits=0), "bold")))
         forest = self.query_one("#sea-forest", Static)
