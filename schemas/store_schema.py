@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import sqlite3
+import stat
 import time
 from pathlib import Path
 from typing import Callable
@@ -211,7 +212,7 @@ def migrate(conn: sqlite3.Connection, path: Path) -> None:
         return
     has_tables = conn.execute("SELECT count(*) FROM sqlite_master WHERE type = 'table'").fetchone()[0]
     if has_tables:
-        backup(conn, path.with_name(f"{path.name}.v{version}-{time.strftime('%Y%m%dT%H%M%S')}.bak"))
+        backup(conn, path.with_name(f"{path.name}.v{version}-{time.strftime('%Y%m%dT%H%M%S')}.bak"), path)
     while version < SCHEMA_VERSION:
         step = MIGRATIONS[version]
         conn.execute("BEGIN IMMEDIATE")
@@ -240,8 +241,18 @@ def _statements(script: str) -> list[str]:
     return out
 
 
-def backup(conn: sqlite3.Connection, target: Path) -> Path:
-    """Copy a live database with the backup API, fsync the copy and check it before relying on it."""
+def backup(conn: sqlite3.Connection, target: Path, source: Path | None = None) -> Path:
+    """Copy a live database with the backup API, fsync the copy and check it before relying on it.
+
+    The copy gets the store's own file mode (``source``, else the database ``conn`` has open), made before
+    anything is written into it: a store kept at 0600 never leaves a world-readable copy beside it.
+    """
+    mode = _file_mode(source or _main_file(conn))
+    fd = os.open(target, os.O_CREAT | os.O_WRONLY, mode)
+    try:
+        os.fchmod(fd, mode)           # the umask may have taken bits away; the store's mode is what counts
+    finally:
+        os.close(fd)
     dest = sqlite3.connect(str(target))
     try:
         conn.backup(dest)
@@ -257,6 +268,21 @@ def backup(conn: sqlite3.Connection, target: Path) -> Path:
         raise StoreError(f"{target}: the backup taken before upgrading the store failed its check ({ok}); "
                          "the study was left as it was.")
     return target
+
+
+def _main_file(conn: sqlite3.Connection) -> Path | None:
+    for _, name, file in conn.execute("PRAGMA database_list"):
+        if name == "main" and file:
+            return Path(file)
+    return None
+
+
+def _file_mode(path: Path | None) -> int:
+    """The permission bits of ``path`` (0600 when it cannot be read: never wider than the owner)."""
+    try:
+        return stat.S_IMODE(os.stat(path).st_mode) if path is not None else 0o600
+    except OSError:
+        return 0o600
 
 
 def is_busy(exc: sqlite3.Error) -> bool:

@@ -430,3 +430,29 @@ def test_protocol_gaining_a_trait_adds_a_column_and_keeps_the_data(study):
         assert store.effective_frame().set_index("tag").at["H01", "antenna"] == 2.5
     finally:
         store.close()
+
+
+def test_migration_backup_keeps_the_store_private_mode(tmp_path, monkeypatch):
+    """A store kept at 0600 (owner only) never leaves a world- or group-readable copy beside it."""
+    import os
+    import stat
+
+    from fieldslope.schemas import store_schema
+
+    db = tmp_path / "private.sqlite"
+    store_schema.create_file(db)
+    os.chmod(db, 0o600)
+    old_umask = os.umask(0o022)          # the usual umask would give a new file 0644
+    try:
+        now = store_schema.SCHEMA_VERSION
+        monkeypatch.setattr(store_schema, "SCHEMA_VERSION", now + 1)
+        monkeypatch.setitem(store_schema.MIGRATIONS, now, "CREATE TABLE notes_next(id INTEGER PRIMARY KEY);")
+        conn = store_schema.connect(db)
+        store_schema.migrate(conn, db)
+        conn.close()
+    finally:
+        os.umask(old_umask)
+    (backup,) = tmp_path.glob("private.sqlite.v*.bak")
+    assert stat.S_IMODE(backup.stat().st_mode) == 0o600
+    leftovers = [p for p in tmp_path.iterdir() if p.name.startswith("private.sqlite.v") and p != backup]
+    assert all(stat.S_IMODE(p.stat().st_mode) & 0o077 == 0 for p in leftovers)
