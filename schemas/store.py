@@ -264,8 +264,9 @@ class Store:
 
     # -- taking batches in (store_intake) -------------------------------------------
     def import_file(self, path: str | Path, operator: str | None = None, accept_valid: bool = False,
-                    progress: Progress | None = None) -> ImportResult:
-        data = read_batch_file(Path(path))
+                    progress: Progress | None = None, follow_links: bool = True) -> ImportResult:
+        """Read (see ``batch_file.read_batch_file``), check and store one batch file."""
+        data = read_batch_file(Path(path), follow_links=follow_links)
         if isinstance(data, BatchPlan):     # over the size cap: only the record of its refusal is stored
             operator = operator or default_operator()
             return self._write(lambda conn: self.intake.store(conn, data, operator, accept_valid,
@@ -303,8 +304,9 @@ class Store:
                                              f"on {dup[1]}; importing them again would do nothing.")
         return result
 
-    def check_file(self, path: str | Path, accept_valid: bool = False, recheck: bool = False) -> ImportResult:
-        data = read_batch_file(Path(path))
+    def check_file(self, path: str | Path, accept_valid: bool = False, recheck: bool = False,
+                   follow_links: bool = True) -> ImportResult:
+        data = read_batch_file(Path(path), follow_links=follow_links)
         if isinstance(data, BatchPlan):
             return Evaluation(data, Outcome.REFUSED, message=data.refusal).result(None, checked_only=True)
         return self.check_bytes(Path(path).name, data, accept_valid=accept_valid, recheck=recheck)

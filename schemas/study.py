@@ -5,10 +5,11 @@ from __future__ import annotations
 import hashlib
 import os
 import shutil
+import stat
 from dataclasses import dataclass
 from pathlib import Path
 
-from fieldslope.common.errors import FieldslopeError, StudyError
+from fieldslope.common.errors import FieldslopeError, SheetError, StudyError
 from fieldslope.common.names import Outcome
 from fieldslope.schemas.protocol import Protocol, load_protocol
 from fieldslope.schemas.store import Progress, Store
@@ -18,6 +19,7 @@ PROTOCOL_FILE = "protocol.toml"
 INTAKE_DIR = "intake"
 DB_FILE = "fieldslope.sqlite"
 ENV_VAR = "FIELDSLOPE_STUDY"
+NOT_A_FILE = "not a file"
 
 
 def default_study_dir() -> Path:
@@ -44,8 +46,9 @@ def is_study(path: str | os.PathLike) -> bool:
 class IntakeFile:
     path: Path
     size: int
-    status: str          # new | arriving | taken in | partial | refused
+    status: str          # new | arriving | taken in | partial | refused | not a file
     batch_id: int | None = None
+    problem: str = ""    # for "not a file": the sentence saying why it is not taken in
 
     @property
     def name(self) -> str:
@@ -118,11 +121,13 @@ class Study:
     # -- the drop folder ------------------------------------------------------
     def intake_files(self) -> list[IntakeFile]:
         """Files in ``intake/`` with their status. A file counts as arrived only when its size
-        and modification time are the same at two looks; temp and lock names are skipped."""
+        and modification time are the same at two looks; temp and lock names are skipped. A symbolic
+        link, folder, pipe or device is listed as "not a file" with its sentence, and never read."""
+        from fieldslope.schemas.batch_file import kind_problem
         from fieldslope.schemas.readers import is_partial_name
 
         try:
-            entries = sorted(p for p in self.intake_dir.iterdir() if p.is_file() and not is_partial_name(p.name))
+            entries = sorted(p for p in self.intake_dir.iterdir() if not is_partial_name(p.name))
         except FileNotFoundError:
             return []
         known = {b.sha256: b for b in reversed(self.store.batches())}
@@ -131,8 +136,11 @@ class Study:
         out, seen = [], {}
         for path in entries:
             try:
-                st = path.stat()
+                st = path.lstat()          # a link is looked at, not followed
             except OSError:
+                continue
+            if not stat.S_ISREG(st.st_mode):
+                out.append(IntakeFile(path, st.st_size, NOT_A_FILE, problem=kind_problem(path.name, st.st_mode)))
                 continue
             look = (st.st_size, st.st_mtime_ns)
             seen[path.name] = look
@@ -150,13 +158,22 @@ class Study:
         return out
 
     def _digest(self, path: Path, look: tuple[int, int]) -> str | None:
+        from fieldslope.schemas.batch_file import file_sha256
+
         key = (path.name, *look)
         if key not in self._digests:
             try:
-                self._digests[key] = hashlib.sha256(path.read_bytes()).hexdigest()
-            except OSError:
+                self._digests[key] = file_sha256(path)
+            except (OSError, SheetError):
                 return None
         return self._digests[key]
+
+    def in_drop_folder(self, path: str | os.PathLike) -> bool:
+        """Whether ``path`` names a file in this study's drop folder (where links are never followed)."""
+        try:
+            return Path(path).absolute().parent.resolve() == self.intake_dir.resolve()
+        except OSError:
+            return False
 
     def import_intake(self, operator: str | None = None, accept_valid: bool = False,
                       progress: Progress | None = None) -> list[ImportResult]:
@@ -165,5 +182,5 @@ class Study:
         for item in self.intake_files():
             if item.status == "new":
                 results.append(self.store.import_file(item.path, operator=operator, accept_valid=accept_valid,
-                                                      progress=progress))
+                                                      progress=progress, follow_links=False))
         return results

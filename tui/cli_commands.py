@@ -75,7 +75,8 @@ def _each_file(names, work):
 def check(args) -> int:
     with _open(args) as study:
         def one(name):
-            result = study.store.check_file(name, accept_valid=args.accept_valid, recheck=True)
+            result = study.store.check_file(name, accept_valid=args.accept_valid, recheck=True,
+                                            follow_links=not study.in_drop_folder(name))
             if result.outcome in (Outcome.STORED, Outcome.PARTIAL):
                 verb = "would store" if result.outcome == Outcome.STORED else "would store (quarantining the rest)"
                 result = replace(result, message=f"{result.file_name}: {verb} {result.n_stored} of "
@@ -90,7 +91,7 @@ def import_(args) -> int:
             progress = fmt.Progress(f"importing {Path(name).name}")
             try:
                 return study.store.import_file(name, operator=args.operator, accept_valid=args.accept_valid,
-                                               progress=progress)
+                                               progress=progress, follow_links=not study.in_drop_folder(name))
             finally:
                 progress.done()
         return _each_file(args.files, one)

@@ -281,22 +281,26 @@ def list_intake(study_dir: Path) -> list[dict]:
     for f in study.intake_files():
         status = f"{f.status} ({f.batch_id})" if f.batch_id is not None else f.status
         out.append({"name": f.name, "path": f.path, "size": f.size, "status": status, "batch": f.batch_id,
-                    "state": f.status})
+                    "state": f.status, "problem": f.problem})
     return out
 
 
 def check_file(study_dir: Path, path: Path):
-    """Check a batch file against the study (nothing stored); returns (ImportResult, preview frame or None)."""
-    from fieldslope.common.errors import FieldslopeError, SheetError
+    """Check a batch file against the study (nothing stored); returns (ImportResult, preview frame or None).
+
+    The file is read as an import reads it (regular files only, a link in the drop folder not followed, a
+    file over the size cap never read whole); a file that cannot be read raises SheetError (one sentence)."""
+    from fieldslope.common.errors import SheetError
+    from fieldslope.schemas.batch_file import read_batch_file
+    from fieldslope.schemas.batch_plan import BatchPlan
     from fieldslope.schemas.readers import read_sheet
     from fieldslope.schemas.study import Study
 
-    try:
-        data = Path(path).read_bytes()
-    except OSError as exc:
-        raise FieldslopeError(f"{path}: cannot read the file ({exc.strerror}); check the path and permissions.") from None
     study = Study.open(study_dir, readonly=True)
     try:
+        data = read_batch_file(Path(path), follow_links=not study.in_drop_folder(path))
+        if isinstance(data, BatchPlan):          # over the size cap: refused from its size alone
+            return study.store.check_file(path), None
         result = study.store.check_bytes(Path(path).name, data)
     finally:
         _close(study)
@@ -311,6 +315,7 @@ def import_file(study_dir: Path, path: Path, accept_valid: bool, operator: str):
     """Take a batch file in (its own writing connection); returns the ImportResult."""
     study = _writing(study_dir)
     try:
-        return study.store.import_file(Path(path), operator=operator, accept_valid=accept_valid)
+        return study.store.import_file(Path(path), operator=operator, accept_valid=accept_valid,
+                                       follow_links=not study.in_drop_folder(path))
     finally:
         _close(study)

@@ -153,8 +153,20 @@ class IntakeScreen(StudyScreen):
         f = self.files[table.cursor_row]
         return None if f["state"] == "arriving" else Path(f["path"])
 
+    def _selected_problem(self) -> str:
+        """The sentence of a drop-folder entry that is not a file (a link, folder, pipe or device)."""
+        table = self.query_one("#intake-files", DataTable)
+        if not self.files or not 0 <= table.cursor_row < len(self.files):
+            return ""
+        return self.files[table.cursor_row].get("problem", "")
+
     def action_check(self) -> None:
         path = self._selected()
+        problem = self._selected_problem()
+        if problem:
+            self.current, self.checked = None, None
+            self.query_one("#intake-summary", Static).update(assemble((problem, "$error")))
+            return
         if path is None:
             self.query_one("#intake-summary", Static).update("Pick a file first (a file still arriving is skipped until its size settles).")
             return

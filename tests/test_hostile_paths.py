@@ -1,0 +1,106 @@
+"""Paths that are not plain batch files: links in the drop folder, pipes, devices and folders.
+
+A symbolic link in the drop folder is never followed (someone could point it at any file this account can
+read and have its bytes kept in the record); anything that is not a regular file gets one sentence, from the
+drop-folder scan, ``fieldslope import PATH``, ``fieldslope check PATH`` and the dashboard's Intake screen.
+"""
+
+from __future__ import annotations
+
+import os
+
+import pytest
+
+from fieldslope.common.errors import SheetError
+from fieldslope.tui.cli import main
+from tests.test_tui_screens import make_app, ready, screen_text, wait_for
+
+
+@pytest.fixture
+def outside(tmp_path, write_batch, hopper_rows):
+    """A valid batch file outside the study."""
+    return write_batch(hopper_rows("2024", "Gull Flat", n=6, seed=4), "elsewhere.csv")
+
+
+@pytest.fixture
+def odd_entries(study, outside):
+    """A link to a valid batch, a pipe and a folder in the drop folder."""
+    intake = study.intake_dir
+    os.symlink(outside, intake / "linked.csv")
+    os.mkfifo(intake / "pipe.csv")
+    (intake / "sub.csv").mkdir()
+    return intake
+
+
+def test_the_drop_folder_lists_links_pipes_and_folders_with_a_sentence_and_takes_none_in(study, odd_entries):
+    for _ in range(2):                                     # two looks, as a file must settle
+        listed = {f.name: f for f in study.intake_files()}
+    assert {n: f.status for n, f in listed.items()} == {"linked.csv": "not a file", "pipe.csv": "not a file",
+                                                       "sub.csv": "not a file"}
+    assert "symbolic link" in listed["linked.csv"].problem and "never followed" in listed["linked.csv"].problem
+    assert "not a regular file" in listed["pipe.csv"].problem
+    assert "is a folder" in listed["sub.csv"].problem
+    assert study.import_intake(operator="t") == []
+    assert study.store.batches() == []
+
+
+def test_a_link_in_the_drop_folder_is_refused_but_a_link_given_elsewhere_is_read(study, odd_entries, tmp_path):
+    with pytest.raises(SheetError, match="symbolic link"):
+        study.store.import_file(odd_entries / "linked.csv", operator="t", follow_links=False)
+    elsewhere = tmp_path / "my-link.csv"
+    os.symlink(odd_entries / ".." / ".." / "batches" / "elsewhere.csv", elsewhere)
+    assert study.store.import_file(elsewhere, operator="t").outcome == "stored"
+
+
+@pytest.mark.parametrize("command", ["import", "check"])
+@pytest.mark.parametrize("name, words", [("linked.csv", "symbolic link"), ("pipe.csv", "not a regular file"),
+                                         ("sub.csv", "is a folder")])
+def test_the_command_line_refuses_each_with_one_sentence(study, odd_entries, capsys, command, name, words):
+    code = main([command, str(odd_entries / name), "--study", str(study.root)])
+    err = capsys.readouterr().err
+    assert code == 1
+    assert words in err and len(err.strip().splitlines()) == 1 and "unexpected" not in err
+    assert study.store.batches() == []
+
+
+def test_a_device_is_refused_before_it_is_read(study, capsys):
+    code = main(["import", os.devnull, "--study", str(study.root)])
+    err = capsys.readouterr().err
+    assert code == 1 and "not a regular file" in err
+    assert study.store.batches() == []
+
+
+def test_the_drop_folder_scan_hashes_a_large_file_in_chunks(study):
+    import hashlib
+    import tracemalloc
+
+    big = study.intake_dir / "big.csv"
+    with open(big, "wb") as fh:                     # 300 MB, sparse: costs no disk
+        fh.write(b"tag,season\n")
+        fh.truncate(300_000_000)
+    tracemalloc.start()
+    for _ in range(2):
+        listed = study.intake_files()
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert [f.status for f in listed] == ["new"]
+    assert peak < 16 * 2**20, peak
+    digest = hashlib.sha256()
+    with open(big, "rb") as fh:
+        while chunk := fh.read(1 << 22):
+            digest.update(chunk)
+    assert study._digests[("big.csv", *study._sizes["big.csv"])] == digest.hexdigest()
+
+
+async def test_the_intake_screen_names_what_is_not_a_file(study, odd_entries):
+    app = make_app(study.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("1")
+        await wait_for(app, pilot, lambda: len(app.screen.files) == 3, what="the drop folder listing")
+        assert [f["status"] for f in app.screen.files] == ["not a file"] * 3
+        await pilot.press("c")                       # the first: linked.csv
+        await pilot.pause()
+        text = screen_text(app)
+        assert "linked.csv: is a symbolic link" in text
+        assert app.is_running
