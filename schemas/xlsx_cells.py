@@ -13,7 +13,10 @@ import warnings
 import zipfile
 from fieldslope.common.errors import SheetError
 
-MAX_UNPACKED = 500 * 1024 * 1024   # a workbook unpacking to more than this is refused (zip bomb)
+# A workbook unpacking to more than this is refused (zip bomb). openpyxl parses about 1-2 MB of sheet XML a
+# second here, so 64 MB (some 200,000 rows of 7 columns) is about a minute at most; larger sheets come as CSV.
+MAX_UNPACKED = 64 * 1024 * 1024
+CHUNK = 1 << 20
 _INCOMPLETE = ("the workbook is incomplete (still being written or damaged); "
                "wait until it is fully saved or copied, then import it again.")
 
@@ -55,32 +58,50 @@ def _hostile_xml(exc: BaseException | None) -> bool:
     return False
 
 
-def _check_archive(label: str, data: bytes) -> None:
+def _check_archive(label: str, data: bytes) -> set[str]:
+    """Refuse what is not a workbook or unpacks to more than MAX_UNPACKED; return the parts holding formulas.
+
+    The sizes declared in the zip directory are checked first (a bomb is refused at once), then every part is
+    inflated once with a byte budget, so a part whose declared size lies is stopped at the budget too, in
+    well under a second (inflating runs at hundreds of MB a second; parsing the XML is the slow part). The
+    same pass notes which parts hold formula elements.
+    """
     try:
         with zipfile.ZipFile(io.BytesIO(data)) as zf:
             infos = zf.infolist()
-    except Exception:  # noqa: BLE001 - zipfile raises many kinds (BadZipFile, unsupported compression, ...)
+            names = {info.filename for info in infos}
+            if "xl/workbook.xml" not in names:
+                if "mimetype" in names or "content.xml" in names:
+                    raise SheetError(f"{label}: this is an OpenDocument spreadsheet; save it as .xlsx or CSV.")
+                raise SheetError(f"{label}: this is a zip archive, not an XLSX workbook; import the sheet itself.")
+            if sum(info.file_size for info in infos) > MAX_UNPACKED:
+                raise SheetError(_too_big(label))
+            return _inflate_within_budget(label, zf, infos)
+    except SheetError:
+        raise
+    except Exception:  # noqa: BLE001 - zipfile raises many kinds (BadZipFile, unsupported compression, CRC, ...)
         raise SheetError(f"{label}: {_INCOMPLETE}") from None
-    names = {info.filename for info in infos}
-    if "xl/workbook.xml" not in names:
-        if "mimetype" in names or "content.xml" in names:
-            raise SheetError(f"{label}: this is an OpenDocument spreadsheet; save it as .xlsx or CSV.")
-        raise SheetError(f"{label}: this is a zip archive, not an XLSX workbook; import the sheet itself.")
-    if sum(info.file_size for info in infos) > MAX_UNPACKED:
-        raise SheetError(f"{label}: the workbook unpacks to more than {MAX_UNPACKED // 2**20} MB; "
-                         "save the sheet as CSV or split it.")
 
 
-def _has_formulas(data: bytes, part: str) -> bool:
-    """Whether the worksheet's XML holds any formula element (read in chunks, not all at once)."""
-    with zipfile.ZipFile(io.BytesIO(data)) as zf, zf.open(part) as stream:
-        tail = b""
-        while chunk := stream.read(1 << 20):
-            window = tail + chunk
-            if b"<f>" in window or b"<f " in window or b"<f/>" in window:
-                return True
-            tail = window[-3:]
-    return False
+def _too_big(label: str) -> str:
+    return (f"{label}: the workbook unpacks to more than {MAX_UNPACKED // 2**20} MB, more than a batch sheet "
+            "holds; save the sheet as CSV or split it.")
+
+
+def _inflate_within_budget(label: str, zf: zipfile.ZipFile, infos: list[zipfile.ZipInfo]) -> set[str]:
+    budget, formulas = MAX_UNPACKED, set()
+    for info in infos:
+        with zf.open(info) as stream:
+            tail = b""
+            while chunk := stream.read(CHUNK):
+                budget -= len(chunk)
+                if budget < 0:
+                    raise SheetError(_too_big(label))
+                window = tail + chunk
+                if b"<f>" in window or b"<f " in window or b"<f/>" in window:
+                    formulas.add(info.filename)
+                tail = window[-3:]
+    return formulas
 
 
 def _refuse_unsaved_formulas(label: str, data: bytes, rows: list[tuple[int, list[str | None]]]) -> None:
@@ -92,8 +113,10 @@ def _refuse_unsaved_formulas(label: str, data: bytes, rows: list[tuple[int, list
     try:
         ws = wb.worksheets[0]
         ws.reset_dimensions()
-        cells = []
-        for (number, cached), formulas in zip(rows, ws.iter_rows(min_row=1, values_only=True)):
+        cells, cached_rows = [], dict(rows)
+        for number, formulas in enumerate(ws.iter_rows(min_row=1, max_row=max(cached_rows, default=1),
+                                                       values_only=True), start=1):
+            cached = cached_rows.get(number, [])
             for col, formula in enumerate(formulas):
                 if formula is not None and (col >= len(cached) or cached[col] is None):
                     cells.append(f"{get_column_letter(col + 1)}{number}")
@@ -111,7 +134,7 @@ def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> tuple[list[tuple[i
 
     The notes say what was left out, e.g. further worksheets.
     """
-    _check_archive(label, data)
+    formula_parts = _check_archive(label, data)
     import openpyxl  # slow import: only when a workbook arrives
 
     rows: list[tuple[int, list[str | None]]] = []
@@ -131,14 +154,19 @@ def read_xlsx_rows(label: str, data: bytes, max_rows: int) -> tuple[list[tuple[i
                                  f"{others}{more}: import each as its own file if it holds records.")
                 if hasattr(ws, "reset_dimensions"):
                     ws.reset_dimensions()   # stored dimensions may be wrong; read what is there
-                for number, values in enumerate(ws.iter_rows(min_row=1, values_only=True), start=1):
-                    if number > max_rows + 1 and any(v is not None for v in values):
-                        raise SheetError(f"{label}: more than {max_rows:,} data rows; split it into smaller batches.")
-                    rows.append((number, [cell_text(v) for v in values]))
+                # at most one row past the cap is looked at: a row numbered a billion would otherwise make
+                # openpyxl hand over every blank row before it, for minutes
+                last = max_rows + 2
+                for number, values in enumerate(ws.iter_rows(min_row=1, max_row=last, values_only=True), start=1):
+                    if number == last:
+                        raise SheetError(f"{label}: more than {max_rows:,} data rows (the sheet goes on past row "
+                                         f"{last - 1:,}); split it into smaller batches.")
+                    if any(v is not None for v in values):     # blank rows are left out here already
+                        rows.append((number, [cell_text(v) for v in values]))
                 part = getattr(ws, "_worksheet_path", None)
             finally:
                 wb.close()
-            if part and _has_formulas(data, part):
+            if part and part.lstrip("/") in formula_parts:
                 _refuse_unsaved_formulas(label, data, rows)
     except SheetError:
         raise

@@ -104,3 +104,22 @@ async def test_the_intake_screen_names_what_is_not_a_file(study, odd_entries):
         text = screen_text(app)
         assert "linked.csv: is a symbolic link" in text
         assert app.is_running
+
+
+def test_the_dashboards_check_refuses_a_huge_file_without_reading_it_whole(study, tmp_path):
+    import tracemalloc
+
+    from fieldslope.tui.loading import check_file
+
+    big = tmp_path / "scan.csv"
+    with open(big, "wb") as fh:                     # 1.2 GB, sparse: costs no disk
+        fh.write(b"tag,season,site\n")
+        fh.truncate(1_200_000_000)
+    tracemalloc.start()
+    result, preview = check_file(study.root, big)
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert result.outcome == "refused" and "over the 50 MB limit" in result.message and preview is None
+    assert "damaged" not in result.message
+    assert peak < 32 * 2**20, peak
+    assert study.store.batches() == []

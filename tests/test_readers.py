@@ -458,3 +458,73 @@ def test_xlsx_float_noise_shown_as_a_spreadsheet_shows_it(tmp_path):
     # spreadsheets keep and show at most 15 significant digits (common practice; from memory)
     data = xlsx_bytes(tmp_path, [["tag", "season", "femur"], ["1", 2025, 0.1 + 0.2], ["2", 2025, -0.125]])
     assert column(read_sheet("w.xlsx", data), "femur") == ["0.3", "-0.125"]
+
+
+def _bomb(tmp_path, megabytes: int, declare: int | None = None) -> bytes:
+    """A real workbook whose sheet XML carries ``megabytes`` MB of blanks (a few hundred kB zipped); with
+    ``declare`` the zip directory claims the sheet unpacks to that many bytes (a lying size)."""
+    import struct
+    import zipfile
+
+    base = xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025]])
+    src, out = zipfile.ZipFile(io.BytesIO(base)), io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            body = src.read(info)
+            if info.filename != "xl/worksheets/sheet1.xml":
+                dst.writestr(info.filename, body)
+                continue
+            head, tail = body.split(b"</sheetData>")
+            with dst.open(info.filename, "w") as fh:       # streamed: the test never holds the blanks at once
+                fh.write(head)
+                for _ in range(megabytes):
+                    fh.write(b" " * 2**20)
+                fh.write(b"</sheetData>" + tail)
+    data = bytearray(out.getvalue())
+    if declare is not None:
+        at = data.index(b"PK\x01\x02")
+        while at >= 0:                                      # central directory entries: sizes at +20, +24
+            name_len = struct.unpack_from("<H", data, at + 28)[0]
+            if data[at + 46:at + 46 + name_len] == b"xl/worksheets/sheet1.xml":
+                struct.pack_into("<I", data, at + 24, declare)
+            at = data.find(b"PK\x01\x02", at + 4)
+    return bytes(data)
+
+
+def test_a_workbook_unpacking_to_hundreds_of_mb_is_refused_before_parsing(tmp_path, monkeypatch):
+    from fieldslope.schemas import xlsx_cells
+
+    data = _bomb(tmp_path, 200)
+    assert len(data) < 2**20                                # under 1 MB on disk, 200 MB unpacked
+
+    def never(*args, **kwargs):
+        raise AssertionError("the XML of a bomb was handed to the parser")
+
+    monkeypatch.setattr(openpyxl, "load_workbook", never)
+    inflated = []
+    real_open = xlsx_cells.zipfile.ZipFile.open
+    monkeypatch.setattr(xlsx_cells.zipfile.ZipFile, "open", lambda *a, **k: inflated.append(a[1]) or real_open(*a, **k))
+    message = refused("w.xlsx", data)
+    assert "unpacks to more than 64 MB" in message and "damaged" not in message
+    assert inflated == []                                    # refused from the sizes its directory declares
+
+
+def test_a_workbook_lying_about_its_unpacked_size_is_stopped_before_parsing(tmp_path, monkeypatch):
+    data = _bomb(tmp_path, 200, declare=1000)
+
+    def never(*args, **kwargs):
+        raise AssertionError("the XML of a bomb was handed to the parser")
+
+    monkeypatch.setattr(openpyxl, "load_workbook", never)
+    message = refused("w.xlsx", data)                        # the budgeted inflate pass stops it
+    assert "damaged" in message or "unpacks to more than" in message
+
+
+def test_a_row_numbered_a_billion_does_not_make_the_reader_walk_every_blank_row(tmp_path, monkeypatch):
+    monkeypatch.setattr(readers, "MAX_ROWS", 1000)
+    data = xlsx_bytes(tmp_path, [["tag", "season"], ["1", 2025]])
+    data = edit_sheet_xml(data, b"</sheetData>",
+                          b'<row r="1000000000"><c r="A1000000000" t="inlineStr"><is><t>9</t></is></c></row>'
+                          b"</sheetData>")
+    message = refused("w.xlsx", data)
+    assert "more than 1,000 data rows" in message
