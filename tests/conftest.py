@@ -109,3 +109,25 @@ def hopper_rows():
         return out
 
     return rows
+
+
+@pytest.fixture
+def huge_file(tmp_path: Path) -> Path:
+    """A 1.2 GB CSV with a header line, sparse (costs no disk)."""
+    big = tmp_path / "scan.csv"
+    with open(big, "wb") as fh:
+        fh.write(b"tag,season,site\n")
+        fh.truncate(1_200_000_000)
+    return big
+
+
+def peak_memory(work):
+    """(work(), the peak bytes Python allocated while it ran), by tracemalloc."""
+    import tracemalloc
+
+    tracemalloc.start()
+    try:
+        out = work()
+        return out, tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()

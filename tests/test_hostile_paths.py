@@ -72,17 +72,14 @@ def test_a_device_is_refused_before_it_is_read(study, capsys):
 
 def test_the_drop_folder_scan_hashes_a_large_file_in_chunks(study):
     import hashlib
-    import tracemalloc
+
+    from tests.conftest import peak_memory
 
     big = study.intake_dir / "big.csv"
     with open(big, "wb") as fh:                     # 300 MB, sparse: costs no disk
         fh.write(b"tag,season\n")
         fh.truncate(300_000_000)
-    tracemalloc.start()
-    for _ in range(2):
-        listed = study.intake_files()
-    peak = tracemalloc.get_traced_memory()[1]
-    tracemalloc.stop()
+    listed, peak = peak_memory(lambda: [study.intake_files() for _ in range(2)][-1])
     assert [f.status for f in listed] == ["new"]
     assert peak < 16 * 2**20, peak
     digest = hashlib.sha256()
@@ -106,19 +103,11 @@ async def test_the_intake_screen_names_what_is_not_a_file(study, odd_entries):
         assert app.is_running
 
 
-def test_the_dashboards_check_refuses_a_huge_file_without_reading_it_whole(study, tmp_path):
-    import tracemalloc
-
+def test_the_dashboards_check_refuses_a_huge_file_without_reading_it_whole(study, huge_file):
     from fieldslope.tui.loading import check_file
+    from tests.conftest import peak_memory
 
-    big = tmp_path / "scan.csv"
-    with open(big, "wb") as fh:                     # 1.2 GB, sparse: costs no disk
-        fh.write(b"tag,season,site\n")
-        fh.truncate(1_200_000_000)
-    tracemalloc.start()
-    result, preview = check_file(study.root, big)
-    peak = tracemalloc.get_traced_memory()[1]
-    tracemalloc.stop()
+    (result, preview), peak = peak_memory(lambda: check_file(study.root, huge_file))
     assert result.outcome == "refused" and "over the 50 MB limit" in result.message and preview is None
     assert "damaged" not in result.message
     assert peak < 32 * 2**20, peak

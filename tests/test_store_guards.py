@@ -79,18 +79,13 @@ def test_a_deleted_write_ahead_log_is_named_not_called_a_full_disk(stored, tmp_p
     assert "write-ahead log" in sentence and "deleted" in sentence and "full" not in sentence
 
 
-def test_a_huge_file_is_refused_from_its_size_and_only_its_head_is_kept(study, tmp_path):
+def test_a_huge_file_is_refused_from_its_size_and_only_its_head_is_kept(study, huge_file):
     import hashlib
-    import tracemalloc
 
-    big = tmp_path / "scan.csv"
-    with open(big, "wb") as fh:                   # 1.2 GB, sparse: costs no disk
-        fh.write(b"tag,season,site\n")
-        fh.truncate(1_200_000_000)
-    tracemalloc.start()
-    result = study.store.import_file(big, operator="t")
-    peak = tracemalloc.get_traced_memory()[1]
-    tracemalloc.stop()
+    from tests.conftest import peak_memory
+
+    big = huge_file
+    result, peak = peak_memory(lambda: study.store.import_file(big, operator="t"))
     assert result.outcome == "refused" and "over the 50 MB limit" in result.message
     assert peak < 32 * 2**20, peak                 # read in chunks, never whole
     batch = study.store.batches()[-1]
