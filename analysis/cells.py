@@ -59,6 +59,17 @@ class Prepared:
     notes: list[tuple[str, str]] = field(default_factory=list)  # (quantity, sentence)
 
 
+def too_large(values: np.ndarray) -> bool:
+    """Values so large that their mean or variance overflows double precision (a kept 1e200, say): the
+    cell's estimates that use them would be inf or NaN, so that cell leaves them out with a note."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        return not (np.isfinite(np.mean(values)) and np.isfinite(np.var(values)))
+
+
+def _largest(values: np.ndarray) -> str:
+    return f"{np.nanmax(np.abs(values)):.3g}"
+
+
 def natural_key(text: str) -> list:
     """Sort key that orders '2' before '10' inside text.
 
@@ -149,6 +160,10 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
     if np.any(Wf < 0):
         prep.notes.append(("", f"{fitness} has negative values {where}; fitness must be 0 or more, so nothing is estimated for it."))
         return prep
+    if too_large(Wf):
+        prep.notes.append(("", f"{fitness} holds a value too large to compute with ({_largest(Wf)}) {where}, so "
+                               "nothing is estimated for it there; check the value (fieldslope history)."))
+        return prep
     prep.binary = kind == "binary" and is_binary(Wf)
     if kind == "binary" and not prep.binary:
         prep.notes.append((Q.GRADIENT_LOGISTIC, f"{fitness} is declared 0/1 but has other values {where}, so it has no logistic gradient."))
@@ -159,6 +174,11 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
             prep.notes.append((Q.DIFFERENTIAL, f"Only {len(r)} individuals {where} have {name} and {fitness}; at least {MIN_SINGLE} are needed for its differential."))
             continue
         zj = cell.z[r, j]
+        if too_large(zj):
+            prep.notes.append((Q.DIFFERENTIAL, f"{name} holds a value too large to compute with ({_largest(zj)}) "
+                                               f"{where}, so it has no estimates there for {fitness}; check the "
+                                               "value (fieldslope history)."))
+            continue
         if constant_columns(zj[:, None]):
             prep.notes.append((Q.DIFFERENTIAL, f"{name} is constant {where}, so it cannot be standardized and has no differential for {fitness}."))
             continue
@@ -172,6 +192,11 @@ def prepare(cell: Cell, fitness: str, kind: str, traits: tuple[str, ...]) -> Pre
         prep.notes.append((Q.GRADIENT, f"Only {len(r)} individuals {where} have {fitness} and every trait; gradients need at least {p + 2}."))
         return prep
     zc = cell.z[r]
+    huge = [traits[j] for j in range(p) if too_large(zc[:, j])]
+    if huge:
+        prep.notes.append((Q.GRADIENT, f"{', '.join(huge)} holds a value too large to compute with {where}, so no "
+                                       f"gradients are estimated there for {fitness}."))
+        return prep
     const = [traits[j] for j in constant_columns(zc)]
     if const:
         prep.notes.append((Q.GRADIENT, f"{', '.join(const)} is constant among complete cases {where}, so no gradients are estimated for {fitness}."))
