@@ -85,18 +85,40 @@ class Protocol:
         return (self.id_col, self.season_col, *self.groups)
 
 
-def load_protocol(path: str | Path) -> Protocol:
-    """Read and check ``protocol.toml``; raise :class:`ProtocolError` with file, key and line."""
+MAX_PROTOCOL_BYTES = 1024 * 1024   # a protocol is a few kB of text; never read more than this
+
+
+def read_protocol_bytes(path: str | Path) -> bytes:
+    """The protocol file's bytes, reading at most ``MAX_PROTOCOL_BYTES`` (+1 to tell it is larger): a device,
+    an endless pipe or a huge file given by mistake is refused after 1 MB, never read whole."""
     path = Path(path)
     try:
-        text = path.read_bytes().decode("utf-8-sig")
+        with open(path, "rb") as fh:
+            data = fh.read(MAX_PROTOCOL_BYTES + 1)
     except FileNotFoundError:
         raise ProtocolError(f"{path}: protocol file not found; give the path of a protocol.toml.") from None
-    except UnicodeDecodeError:
-        raise ProtocolError(f"{path}: protocol file is not UTF-8 text; save it as UTF-8.") from None
+    except IsADirectoryError:
+        raise ProtocolError(f"{path}: is a folder; give the path of the protocol.toml file itself.") from None
     except OSError as exc:
         raise ProtocolError(f"{path}: cannot read protocol file ({exc.strerror}).") from None
-    return parse_protocol(text, path)
+    if len(data) > MAX_PROTOCOL_BYTES:
+        raise ProtocolError(f"{path}: more than {MAX_PROTOCOL_BYTES // 2**20} MB (only that much was read), but a "
+                            "protocol is a few kB of text; give the path of the protocol.toml file.")
+    return data
+
+
+def decode_protocol(data: bytes, path: str | Path) -> Protocol:
+    """Check protocol bytes (UTF-8, with or without byte-order mark) as ``load_protocol`` does."""
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        raise ProtocolError(f"{path}: protocol file is not UTF-8 text; save it as UTF-8.") from None
+    return parse_protocol(text, Path(path))
+
+
+def load_protocol(path: str | Path) -> Protocol:
+    """Read and check ``protocol.toml``; raise :class:`ProtocolError` with file, key and line."""
+    return decode_protocol(read_protocol_bytes(path), path)
 
 
 def parse_protocol(text: str, path: Path | None = None) -> Protocol:

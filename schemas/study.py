@@ -2,10 +2,14 @@
 
 from __future__ import annotations
 
+import contextlib
+import errno
 import hashlib
 import os
 import shutil
+import sqlite3
 import stat
+import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -42,6 +46,88 @@ def is_study(path: str | os.PathLike) -> bool:
     return (path / PROTOCOL_FILE).is_file() and (path / DB_FILE).is_file()
 
 
+def _short(path: Path, limit: int = 70) -> str:
+    text = str(path)
+    return text if len(text) <= limit else f"{text[:limit - 20]}…{text[-19:]}"
+
+
+def init_failure_sentence(root: Path, exc: OSError) -> str:
+    """One sentence for an operating-system failure while a study folder is made (nothing was kept)."""
+    where = _short(root)
+    code = exc.errno
+    if code in (errno.EACCES, errno.EPERM):
+        return (f"{where}: cannot create the study here (permission denied); nothing was made: choose a folder "
+                f"you may write to, or ask for write access to {_short(root.parent)}.")
+    if code == errno.ENAMETOOLONG:
+        return (f"{where}: the path is too long for this file system (a name over 255 bytes or a path over "
+                "4096); nothing was made: choose a shorter folder name.")
+    if code in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)):
+        return (f"{where}: the disk is full (or the account's quota is used up); nothing was made: free some "
+                "space and run init again.")
+    if code == errno.EROFS:
+        return f"{where}: the disk is read-only; nothing was made: choose a folder on a writable disk."
+    return (f"{where}: cannot create the study folder ({exc.strerror or exc}); nothing was made: check the path "
+            "and permissions.")
+
+
+def _write_study(folder: Path, data: bytes, protocol: Protocol) -> None:
+    """The drop folder, the protocol (synced to disk) and the record store, inside ``folder``."""
+    intake = folder / INTAKE_DIR
+    intake.mkdir(exist_ok=True)
+    # several accounts on one station laptop: the group may write the store and drop batches;
+    # setgid keeps new files (the -wal and -shm files too) in the folder's group
+    os.chmod(intake, 0o2770)
+    tmp = folder / (PROTOCOL_FILE + ".tmp")
+    with open(tmp, "wb") as fh:
+        fh.write(data)
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, folder / PROTOCOL_FILE)
+    try:
+        Store.create(folder / DB_FILE, protocol).close()
+    except sqlite3.Error as exc:         # SQLite's own failure (e.g. disk full while it writes the schema)
+        full = getattr(exc, "sqlite_errorname", "") == "SQLITE_FULL"
+        raise OSError(errno.ENOSPC if full else errno.EIO, "disk full" if full else str(exc)) from None
+
+
+def _build_beside(root: Path, data: bytes, protocol: Protocol) -> None:
+    """A new folder: made under a temporary name beside ``root`` and renamed into place when whole."""
+    parent = root.parent
+    made = []                                         # parent folders made here, removed again on failure
+    for folder in reversed([parent, *parent.parents]):
+        if not folder.exists():
+            folder.mkdir()
+            made.append(folder)
+    work = None
+    try:
+        work = Path(tempfile.mkdtemp(prefix=f".{root.name[:40]}.", suffix=".creating", dir=parent))
+        _write_study(work, data, protocol)
+        os.chmod(work, 0o2770)
+        os.rename(work, root)
+    except BaseException:
+        if work is not None:
+            shutil.rmtree(work, ignore_errors=True)
+        for folder in reversed(made):
+            with contextlib.suppress(OSError):
+                folder.rmdir()
+        raise
+
+
+def _build_in_place(root: Path, data: bytes, protocol: Protocol) -> None:
+    """A folder that exists already (perhaps holding other files): what is made is removed on failure."""
+    had_intake = (root / INTAKE_DIR).exists()
+    try:
+        _write_study(root, data, protocol)
+    except BaseException:
+        for name in (PROTOCOL_FILE + ".tmp", PROTOCOL_FILE, DB_FILE, *(DB_FILE + x for x in ("-wal", "-shm", "-journal"))):
+            with contextlib.suppress(OSError):
+                (root / name).unlink()
+        if not had_intake:
+            with contextlib.suppress(OSError):
+                (root / INTAKE_DIR).rmdir()
+        raise
+
+
 @dataclass(frozen=True)
 class IntakeFile:
     path: Path
@@ -71,30 +157,30 @@ class Study:
 
     @classmethod
     def create(cls, root: str | os.PathLike, protocol_file: str | os.PathLike) -> "Study":
-        """Make a study folder from a protocol file; refuse a folder that already holds a study."""
+        """Make a study folder from a protocol file; refuse a folder that already holds a study.
+
+        The protocol is read once (at most 1 MB) and checked before anything is touched. A new folder is
+        built under a temporary name beside it and renamed into place when whole; in a folder that exists
+        already, whatever was made is removed again on failure. Either way a permission error, a path too
+        long, or a full disk leaves no half-made study, and is said in one sentence."""
+        from fieldslope.schemas.protocol import decode_protocol, read_protocol_bytes
+
         root = Path(root).expanduser()
-        protocol = load_protocol(protocol_file)          # check before touching the folder
-        if (root / PROTOCOL_FILE).exists() or (root / DB_FILE).exists():
-            raise StudyError(f"{root}: this folder already holds a study; open it with --study {root}, "
-                             "or choose a new folder.")
-        if root.exists() and not root.is_dir():
-            raise StudyError(f"{root}: is a file, not a folder; choose a folder for the study.")
+        data = read_protocol_bytes(protocol_file)
+        protocol = decode_protocol(data, protocol_file)         # check before touching the folder
         try:
-            fresh = not root.exists()
-            root.mkdir(parents=True, exist_ok=True)
-            (root / INTAKE_DIR).mkdir(exist_ok=True)
-            # several accounts on one station laptop: the group may write the store and drop batches;
-            # setgid keeps new files (the -wal and -shm files too) in the folder's group
-            for folder in ([root] if fresh else []) + [root / INTAKE_DIR]:
-                os.chmod(folder, 0o2770)
-            tmp = root / (PROTOCOL_FILE + ".tmp")
-            shutil.copyfile(protocol_file, tmp)
-            os.replace(tmp, root / PROTOCOL_FILE)
+            if (root / PROTOCOL_FILE).exists() or (root / DB_FILE).exists():
+                raise StudyError(f"{root}: this folder already holds a study; open it with --study {root}, "
+                                 "or choose a new folder.")
+            if root.exists() and not root.is_dir():
+                raise StudyError(f"{root}: is a file, not a folder; choose a folder for the study.")
+            if root.exists():
+                _build_in_place(root, data, protocol)
+            else:
+                _build_beside(root, data, protocol)
         except OSError as exc:
-            raise StudyError(f"{root}: cannot create the study folder ({exc.strerror}); check the path and "
-                             "permissions.") from None
-        store = Store.create(root / DB_FILE, protocol)
-        return cls(root, load_protocol(root / PROTOCOL_FILE), store)
+            raise StudyError(init_failure_sentence(root, exc)) from None
+        return cls.open(root)
 
     @classmethod
     def open(cls, root: str | os.PathLike, readonly: bool = False) -> "Study":

@@ -112,3 +112,72 @@ def test_the_dashboards_check_refuses_a_huge_file_without_reading_it_whole(study
     assert "damaged" not in result.message
     assert peak < 32 * 2**20, peak
     assert study.store.batches() == []
+
+
+# -- init: a device as protocol, a path too long, no permission, a full disk ----------------------------
+
+@pytest.mark.parametrize("source", ["/dev/zero", "huge"])
+def test_init_reads_at_most_1_mb_of_a_device_or_huge_protocol(tmp_path, huge_file, capsys, source):
+    import fieldslope.tui.cli_commands  # noqa: F401 - imported first, so only the reading is measured
+    from tests.conftest import peak_memory
+
+    protocol = huge_file if source == "huge" else source
+    target = tmp_path / "new-study"
+    code, peak = peak_memory(lambda: main(["init", str(target), "--protocol", str(protocol)]))
+    err = capsys.readouterr().err
+    assert code == 1 and "more than 1 MB (only that much was read)" in err and len(err.splitlines()) == 1
+    assert peak < 8 * 2**20, peak
+    assert not target.exists()
+
+
+def _leftovers(folder):
+    return sorted(p.name for p in folder.iterdir())
+
+
+def test_init_with_a_path_too_long_says_so_and_makes_nothing(tmp_path, protocol_file, capsys):
+    before = _leftovers(tmp_path)
+    for target in (tmp_path / ("x" * 300), tmp_path.joinpath(*["y" * 200] * 25)):   # a name, then a path
+        assert main(["init", str(target), "--protocol", str(protocol_file)]) == 1
+        err = capsys.readouterr().err
+        assert "the path is too long for this file system" in err and len(err.splitlines()) == 1
+        assert len(err) < 400                               # the path itself is shortened in the sentence
+    assert _leftovers(tmp_path) == before
+
+
+@pytest.mark.parametrize("where", ["new folder", "existing folder"])
+@pytest.mark.parametrize("fault", ["disk full while the store is made", "disk full while the protocol is written",
+                                   "permission denied"])
+def test_init_failing_midway_leaves_no_half_made_study(tmp_path, protocol_file, capsys, monkeypatch, where, fault):
+    import errno
+    import sqlite3
+
+    from fieldslope.schemas import store_schema, study as study_mod
+
+    target = tmp_path / "field" / "new-study"
+    if where == "existing folder":
+        target.mkdir(parents=True)
+        (target / "notes.txt").write_text("kept")
+    before = _leftovers(tmp_path)
+    if fault == "disk full while the store is made":
+        def full(path):
+            open(path, "wb").close()                        # SQLite had begun the file when the disk filled
+            exc = sqlite3.OperationalError("database or disk is full")
+            exc.sqlite_errorname = "SQLITE_FULL"
+            raise exc
+        monkeypatch.setattr(store_schema, "create_file", full)
+    elif fault == "disk full while the protocol is written":
+        def fsync(fd):
+            raise OSError(errno.ENOSPC, "No space left on device")
+        monkeypatch.setattr(study_mod.os, "fsync", fsync)
+    else:
+        def denied(*args, **kwargs):
+            raise PermissionError(errno.EACCES, "Permission denied")
+        monkeypatch.setattr(study_mod.Store, "create", denied)
+    code = main(["init", str(target), "--protocol", str(protocol_file)])
+    err = capsys.readouterr().err
+    assert code == 1 and len(err.splitlines()) == 1 and "unexpected" not in err
+    assert ("disk is full" in err) if "full" in fault else ("permission denied" in err)
+    assert "nothing was made" in err
+    assert _leftovers(tmp_path) == before
+    if where == "existing folder":
+        assert _leftovers(target) == ["notes.txt"]
