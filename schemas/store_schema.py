@@ -174,8 +174,7 @@ def missing_triggers(conn: sqlite3.Connection) -> list[str]:
 def connect(path: Path, readonly: bool = False) -> sqlite3.Connection:
     """A connection with the house settings: autocommit, WAL, FULL sync, foreign keys, busy timeout."""
     if readonly:
-        conn = sqlite3.connect(f"{Path(path).resolve().as_uri()}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S,
-                               isolation_level=None, check_same_thread=False)
+        conn = _connect_readonly(path)
     else:
         conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT_S, isolation_level=None,
                                check_same_thread=False)
@@ -187,6 +186,35 @@ def connect(path: Path, readonly: bool = False) -> sqlite3.Connection:
         if mode != "wal":
             retry_locked(lambda: conn.execute("PRAGMA journal_mode = WAL"))
     conn.execute("PRAGMA synchronous = FULL")
+    return conn
+
+
+def _connect_readonly(path: Path) -> sqlite3.Connection:
+    """A read-only connection; in a folder this account cannot write, an immutable one.
+
+    SQLite reads a WAL database through its ``-shm`` file, which it must create when no other program has the
+    store open; in a folder that is read-only for this account that fails (SQLITE_READONLY_DIRECTORY or
+    CANTOPEN), so the store is opened ``immutable`` instead (no locks, no ``-shm``): the record as the file
+    holds it. That is refused when a non-empty ``-wal`` holds changes not yet in the file (they would be
+    left out without a word)."""
+    uri = Path(path).resolve().as_uri()
+    conn = sqlite3.connect(f"{uri}?mode=ro", uri=True, timeout=BUSY_TIMEOUT_S, isolation_level=None,
+                           check_same_thread=False)
+    try:
+        conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+        return conn
+    except sqlite3.OperationalError as exc:
+        code = getattr(exc, "sqlite_errorname", "") or ""
+        if code not in ("SQLITE_READONLY_DIRECTORY", "SQLITE_CANTOPEN", "SQLITE_READONLY_CANTINIT"):
+            raise
+        conn.close()
+    wal = Path(f"{path}-wal")
+    if wal.exists() and wal.stat().st_size > 0:
+        raise StoreError(f"{path}: the store's folder is read-only for this account and its write-ahead log "
+                         f"({wal.name}) holds changes not yet in the store file; ask someone who may write the "
+                         "folder to open the study once (that folds them in), then browse it again.")
+    conn = sqlite3.connect(f"{uri}?mode=ro&immutable=1", uri=True, isolation_level=None, check_same_thread=False)
+    conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
     return conn
 
 

@@ -41,6 +41,12 @@ def resolve_study_dir(arg: str | os.PathLike | None) -> Path:
     return default_study_dir()
 
 
+def account_can_write(root: str | os.PathLike) -> bool:
+    """Whether this account may write the study's store and create its journal files beside it."""
+    root = Path(root)
+    return os.access(root / DB_FILE, os.W_OK) and os.access(root, os.W_OK)
+
+
 def is_study(path: str | os.PathLike) -> bool:
     path = Path(path)
     return (path / PROTOCOL_FILE).is_file() and (path / DB_FILE).is_file()
@@ -183,7 +189,9 @@ class Study:
         return cls.open(root)
 
     @classmethod
-    def open(cls, root: str | os.PathLike, readonly: bool = False) -> "Study":
+    def open(cls, root: str | os.PathLike, readonly: bool | None = False) -> "Study":
+        """Open a study folder. ``readonly=None`` (browsing): read-only when this account cannot write the
+        store or its folder, else as usual (so a store that needs an upgrade is upgraded)."""
         root = Path(root).expanduser()
         if not root.exists():
             raise StudyError(f"{root}: no study folder here; create one with "
@@ -193,6 +201,8 @@ class Study:
             raise StudyError(f"{root}: not a fieldslope study (no {missing}); create one with "
                              f"fieldslope init DIR --protocol FILE, or pick another folder with --study DIR.")
         protocol = load_protocol(root / PROTOCOL_FILE)
+        if readonly is None:
+            readonly = not account_can_write(root)
         return cls(root, protocol, Store(root / DB_FILE, protocol, readonly=readonly))
 
     def close(self) -> None:

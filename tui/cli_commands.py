@@ -25,7 +25,8 @@ def run(args) -> int:
             "changes": changes, "report": report}[command](args)
 
 
-def _open(args, readonly: bool = False) -> Study:
+def _open(args, readonly: bool | None = False) -> Study:
+    """The study of ``--study``; ``readonly=None`` for browsing (read-only when this account cannot write)."""
     study = Study.open(resolve_study_dir(args.study), readonly=readonly)
     if study.store.damaged:     # opened read-only after an unclean shutdown: say so once, then carry on reading
         fmt.say(f"fieldslope: {study.store.damaged}", file=sys.stderr)
@@ -73,7 +74,7 @@ def _each_file(names, work):
 
 
 def check(args) -> int:
-    with _open(args) as study:
+    with _open(args, readonly=None) as study:
         def one(name):
             result = study.store.check_file(name, accept_valid=args.accept_valid, recheck=True,
                                             follow_links=not study.in_drop_folder(name))
@@ -98,7 +99,7 @@ def import_(args) -> int:
 
 
 def flags(args) -> int:
-    with _open(args) as study:
+    with _open(args, readonly=None) as study:
         fmt.print_flags(study.store.flags(include_resolved=args.all))
     return 0
 
@@ -115,7 +116,7 @@ def resolve(args) -> int:
 def batches(args) -> int:
     from fieldslope.tui import batch_list
 
-    with _open(args) as study:
+    with _open(args, readonly=None) as study:
         found = study.store.batches()
     if args.day is not None:
         found = batch_list.on_day(found, args.day)
@@ -124,7 +125,7 @@ def batches(args) -> int:
 
 
 def history(args) -> int:
-    with _open(args) as study:
+    with _open(args, readonly=None) as study:
         frame = study.store.history(args.individual)
     if frame.empty:
         raise FieldslopeError(f"{args.individual!r} is not on record; check the ID (IDs are compared as text, "
@@ -136,7 +137,7 @@ def history(args) -> int:
 def estimate(args) -> int:
     from fieldslope.tui.bridge import estimates_for_frame
 
-    with _open(args) as study:
+    with _open(args, readonly=None) as study:
         protocol = study.protocol
         frame = study.store.effective_frame(without_open_outliers=args.without_open_outliers)
         h2 = study.store.heritability()

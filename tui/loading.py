@@ -50,9 +50,9 @@ def open_study(study_dir: Path):
 
 def writable(db_path: Path) -> bool:
     """True if this user may write the store file and create its journal files beside it."""
-    import os
+    from fieldslope.schemas.study import account_can_write
 
-    return os.access(db_path, os.W_OK) and os.access(db_path.parent, os.W_OK)
+    return account_can_write(Path(db_path).parent)
 
 
 LOCKED_SENTENCE = ("The record store is in use by another program, so the dashboard is read-only for now: "
