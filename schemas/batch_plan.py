@@ -24,6 +24,13 @@ class BatchPlan:
     def __init__(self, name, data, sha, report: CheckReport | None, refusal: str = ""):
         self.name, self.data, self.sha, self.report, self.refusal = name, data, sha, report, refusal
 
+    @property
+    def notes(self) -> tuple[str, ...]:
+        """What the reader says about how the file was read (further worksheets left out, a guessed
+        encoding): shown with the check and kept with the batch."""
+        sheet = self.report.sheet if self.report is not None else None
+        return tuple(sheet.notes) if sheet is not None else ()
+
     @classmethod
     def make(cls, protocol: Protocol, name: str, data: bytes, progress: Progress) -> "BatchPlan":
         from fieldslope.schemas.readers import read_sheet

@@ -16,7 +16,6 @@ parts that receive the connection: ``store_intake.Intake`` (taking a batch in),
 from __future__ import annotations
 
 import contextlib
-import getpass
 import hashlib
 import sqlite3
 import threading
@@ -33,6 +32,7 @@ from fieldslope.schemas import store_heritability as h2
 from fieldslope.schemas import store_queries as queries
 from fieldslope.schemas import store_schema as schema
 from fieldslope.schemas.batch_plan import BatchPlan, Progress
+from fieldslope.schemas.operator import who
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.batch_file import read_batch_file
 from fieldslope.schemas.records import RowError
@@ -41,13 +41,6 @@ from fieldslope.schemas.store_intake import OPTIONAL_TEXT, Evaluation, Intake, d
 from fieldslope.schemas.store_quarantine import QuarantineFix
 from fieldslope.schemas.store_resolve import FlagResolver, checked_request
 from fieldslope.schemas.store_types import BatchInfo, HeritabilityEntry, ImportResult, Resolution, StoredFlag
-
-
-def default_operator() -> str:
-    try:
-        return getpass.getuser()
-    except Exception:  # no login name (containers): still say something true
-        return "unknown"
 
 
 class Store:
@@ -268,8 +261,8 @@ class Store:
         """Read (see ``batch_file.read_batch_file``), check and store one batch file."""
         data = read_batch_file(Path(path), follow_links=follow_links)
         if isinstance(data, BatchPlan):     # over the size cap: only the record of its refusal is stored
-            operator = operator or default_operator()
-            return self._write(lambda conn: self.intake.store(conn, data, operator, accept_valid,
+            people = who(operator)
+            return self._write(lambda conn: self.intake.store(conn, data, people, accept_valid,
                                                               progress or (lambda *a: None)))
         return self.import_bytes(Path(path).name, data, operator=operator, accept_valid=accept_valid,
                                  progress=progress)
@@ -284,9 +277,9 @@ class Store:
             plan = BatchPlan(name, data, None, None)
             return Evaluation(plan, Outcome.DUPLICATE, duplicate_of=earlier[0],
                               message=duplicate_message(name, *earlier)).result(earlier[0])
+        people = who(operator)
         plan = BatchPlan.make(self.protocol, name, data, progress)
-        operator = operator or default_operator()
-        return self._write(lambda conn: self.intake.store(conn, plan, operator, accept_valid, progress))
+        return self._write(lambda conn: self.intake.store(conn, plan, people, accept_valid, progress))
 
     def check_bytes(self, name: str, data: bytes, accept_valid: bool = False, recheck: bool = False) -> ImportResult:
         """Run every check an import would run, without writing anything. Bytes already taken in give
@@ -348,8 +341,8 @@ class Store:
                      operator: str | None = None) -> Resolution:
         """Keep, exclude or set (correct) the value behind a flag; the old value stays on record."""
         reason = checked_request(action, value, reason)
-        operator = operator or default_operator()
-        return self._write(lambda c: self.resolver.resolve(c, int(flag_id), action, value, reason, operator))
+        people = who(operator)
+        return self._write(lambda c: self.resolver.resolve(c, int(flag_id), action, value, reason, people))
 
     def typed_text(self, field: str, text: str) -> str:
         """Check a value typed for ``field``; return it as stored, or raise RecordError saying why."""
@@ -359,8 +352,8 @@ class Store:
     def set_heritability(self, trait: str, value: float, se: float | None, source: str,
                          operator: str | None = None) -> None:
         source = h2.checked_entry(self.protocol, trait, value, se, source)
-        operator = operator or default_operator()
-        self._write(lambda c: h2.add(c, trait, value, se, source, operator))
+        people = who(operator)
+        self._write(lambda c: h2.add(c, trait, value, se, source, people))
 
     def heritability_entries(self) -> pd.DataFrame:
         """Every entered h² in the order entered, as a table (columns ``store_heritability.COLUMNS``)."""

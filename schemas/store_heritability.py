@@ -9,7 +9,7 @@ from fieldslope.schemas.batch_plan import now
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.store_types import HeritabilityEntry, RecordError
 
-COLUMNS = ["id", "trait", "value", "se", "source", "operator", "created"]
+COLUMNS = ["id", "trait", "value", "se", "source", "operator", "created", "login"]
 
 
 def checked_entry(protocol: Protocol, trait: str, value: float, se: float | None, source: str) -> str:
@@ -26,9 +26,11 @@ def checked_entry(protocol: Protocol, trait: str, value: float, se: float | None
     return source.strip()
 
 
-def add(conn: sqlite3.Connection, trait: str, value: float, se: float | None, source: str, operator: str) -> None:
-    conn.execute("INSERT INTO heritability(trait, value, se, source, operator, created) VALUES (?,?,?,?,?,?)",
-                 (trait, float(value), None if se is None else float(se), source, operator, now()))
+def add(conn: sqlite3.Connection, trait: str, value: float, se: float | None, source: str,
+        people: tuple[str, str]) -> None:
+    """Keep one entry; ``people`` is (operator, login)."""
+    conn.execute("INSERT INTO heritability(trait, value, se, source, operator, login, created) VALUES (?,?,?,?,?,?,?)",
+                 (trait, float(value), None if se is None else float(se), source, *people, now()))
 
 
 def rows(conn: sqlite3.Connection) -> list[tuple]:
@@ -38,7 +40,7 @@ def rows(conn: sqlite3.Connection) -> list[tuple]:
 
 def entries(rows_: list[tuple]) -> tuple[HeritabilityEntry, ...]:
     return tuple(HeritabilityEntry(int(i), str(t), float(v), None if s is None else float(s), str(src), str(op),
-                                   str(c)) for i, t, v, s, src, op, c in rows_)
+                                   str(c), str(lg)) for i, t, v, s, src, op, c, lg in rows_)
 
 
 def latest(rows_: list[tuple]) -> dict[str, tuple[float, float | None, str]]:

@@ -46,7 +46,8 @@ class Evaluation:
             batch_id=self.duplicate_of if self.outcome == Outcome.DUPLICATE else batch_id,
             n_rows=report.n_rows if report else 0, n_stored=len(self.valid) if stored else 0,
             n_quarantined=len(self.bad_rows) if self.outcome == Outcome.PARTIAL else 0,
-            errors=tuple(self.errors), flags=tuple(self.flags), message=self.message, checked_only=checked_only)
+            errors=tuple(self.errors), flags=tuple(self.flags), message=self.message, checked_only=checked_only,
+            notes=self.plan.notes)
 
 
 class Intake:
@@ -95,19 +96,20 @@ class Intake:
             f", {len(bad_rows)} quarantined (fix them with fieldslope resolve)" if bad_rows else "") + "."
         return Evaluation(plan, outcome, errors=errors, flags=flags, valid=valid, bad_rows=bad_rows, message=msg)
 
-    def store(self, conn: sqlite3.Connection, plan: BatchPlan, operator: str, accept_valid: bool,
+    def store(self, conn: sqlite3.Connection, plan: BatchPlan, people: tuple[str, str], accept_valid: bool,
               progress: Progress) -> ImportResult:
-        """Check the batch again inside the write transaction and store what the outcome allows."""
+        """Check the batch again inside the write transaction and store what the outcome allows; ``people`` is
+        (operator, login), kept with the batch beside the reader's notes."""
         out = self.evaluate(conn, plan, accept_valid)
         if out.outcome == Outcome.DUPLICATE:
             return out.result(out.duplicate_of)
         sheet = plan.report.sheet if plan.report else None
         errors_json = json.dumps([e.__dict__ for e in out.errors])
         cur = conn.execute(
-            "INSERT INTO batches(file_name, sha256, raw, encoding, delimiter, operator, received, outcome, n_rows, "
-            "n_stored, n_quarantined, errors, message) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?)",
+            "INSERT INTO batches(file_name, sha256, raw, encoding, delimiter, operator, login, notes, received, "
+            "outcome, n_rows, n_stored, n_quarantined, errors, message) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
             (plan.name, plan.sha, plan.data, sheet.encoding if sheet else "", sheet.delimiter if sheet else "",
-             operator, now(), out.outcome, plan.report.n_rows if plan.report else 0,
+             *people, "\n".join(plan.notes), now(), out.outcome, plan.report.n_rows if plan.report else 0,
              len(out.valid) if out.outcome != Outcome.REFUSED else 0,
              len(out.bad_rows) if out.outcome == Outcome.PARTIAL else 0, errors_json, out.message))
         batch_id = cur.lastrowid

@@ -27,8 +27,8 @@ from fieldslope.schemas.store_supersede import supersede
 from fieldslope.schemas.store_types import RecordError, Resolution
 
 #: the one audit row of a decision on a flag (keep, exclude or set), shared by every resolver
-INSERT_RESOLUTION = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, created, after_batch) "
-                     "VALUES (?,?,?,?,?,?,?,?)")
+INSERT_RESOLUTION = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, login, created, "
+                     "after_batch) VALUES (?,?,?,?,?,?,?,?,?)")
 
 _POINT_NUMBER = re.compile(r"^[+-]?\d*\.\d+$")
 
@@ -71,7 +71,7 @@ class QuarantineFix:
         self.protocol, self.fields, self.evaluate = protocol, fields, evaluate
 
     def resolve(self, conn: sqlite3.Connection, flag_id: int, qid: int, field: str, flagged: str, action: str,
-                value: str | None, reason: str, operator: str) -> Resolution:
+                value: str | None, reason: str, people: tuple[str, str]) -> Resolution:
         """Exclude the row, or set one of its cells (the row joins the record when no error is left)."""
         batch_id, row, payload, _ = conn.execute(
             "SELECT batch_id, row, cells, errors FROM quarantine WHERE id = ?", (qid,)).fetchone()
@@ -81,13 +81,13 @@ class QuarantineFix:
             others = conn.execute("SELECT id, value FROM flags WHERE quarantine_id = ? AND id <> ? ORDER BY id",
                                   (qid, flag_id)).fetchall()
             when = now()
-            conn.executemany(INSERT_RESOLUTION, [(fid, "exclude", old, None, reason, operator, when, after)
+            conn.executemany(INSERT_RESOLUTION, [(fid, "exclude", old, None, reason, *people, when, after)
                                                   for fid, old in [(flag_id, flagged), *others]])
             also = f"; its {len(others)} other flag(s) closed with the same reason" if others else ""
             return Resolution(flag_id, "exclude", old=flagged,
                               message=f"flag {flag_id}: row {row} of batch {batch_id} stays out of the record{also}.")
         return self._set(conn, flag_id, qid, batch_id, row, json.loads(payload), field, flagged, value, reason,
-                         operator, after)
+                         people, after)
 
     @staticmethod
     def _refuse_if_closed(conn: sqlite3.Connection, qid: int, batch_id: int, row: int, action: str) -> None:
@@ -108,7 +108,8 @@ class QuarantineFix:
                               "leave the row out with --exclude.")
 
     def _set(self, conn: sqlite3.Connection, flag_id: int, qid: int, batch_id: int, row: int, data: dict,
-             field: str, flagged: str, value: str | None, reason: str, operator: str, after: int) -> Resolution:
+             field: str, flagged: str, value: str | None, reason: str, people: tuple[str, str],
+             after: int) -> Resolution:
         """Set one cell of the kept-aside row, check the row again, and let it join once it is valid."""
         fixes = dict(conn.execute(
             "SELECT f.field, r.new FROM resolutions r JOIN flags f ON f.id = r.flag_id "
@@ -125,7 +126,7 @@ class QuarantineFix:
         still = [e for e in outcome.errors if e.column == field]
         if still:
             raise RecordError(f"{value!r} for {field} is still not usable: {still[0].reason}; nothing was changed.")
-        res_id = conn.execute(INSERT_RESOLUTION, (flag_id, "set", flagged, str(value).strip(), reason, operator,
+        res_id = conn.execute(INSERT_RESOLUTION, (flag_id, "set", flagged, str(value).strip(), reason, *people,
                                                    now(), after)).lastrowid
         if outcome.errors:
             left = tuple(e.sentence() for e in outcome.errors)

@@ -37,7 +37,8 @@ class FlagResolver:
         self.protocol, self.fields, self.quarantine = protocol, fields, quarantine
 
     def resolve(self, conn: sqlite3.Connection, flag_id: int, action: str, value: str | None, reason: str,
-                operator: str) -> Resolution:
+                people: tuple[str, str]) -> Resolution:
+        """Keep, exclude or set; ``people`` is (operator, login) as ``operator.who`` gives them."""
         row = conn.execute("SELECT kind, individual, season, field, value, quarantine_id, record_id FROM flags "
                            "WHERE id = ?", (flag_id,)).fetchone()
         if row is None:
@@ -50,17 +51,17 @@ class FlagResolver:
                               f"{ind} in {season}, so there is nothing to resolve; see fieldslope history {ind}.")
         if quarantine_id is not None:
             return self.quarantine.resolve(conn, flag_id, quarantine_id, field, flagged, action, value,
-                                           reason, operator)
+                                           reason, people)
         after = last_batch_id(conn)
         if action != "set":
-            conn.execute(INSERT_RESOLUTION, (flag_id, action, flagged, None, reason, operator, now(), after))
+            conn.execute(INSERT_RESOLUTION, (flag_id, action, flagged, None, reason, *people, now(), after))
             verb = "kept" if action == "keep" else "left out of the estimates"
             return Resolution(flag_id, action, old=flagged, message=f"flag {flag_id}: {ind} {season} "
                               f"{field or 'record'} {verb}.")
-        return self._set(conn, flag_id, ind, season, field, value, reason, operator, after)
+        return self._set(conn, flag_id, ind, season, field, value, reason, people, after)
 
     def _set(self, conn: sqlite3.Connection, flag_id: int, ind: str, season: str, field: str, value: str | None,
-             reason: str, operator: str, after: int) -> Resolution:
+             reason: str, people: tuple[str, str], after: int) -> Resolution:
         if field in ("", self.protocol.id_col, self.protocol.season_col) or field not in self.fields:
             raise RecordError(f"flag {flag_id} concerns the whole record of {ind} in {season}; resolve it with "
                               "--keep or --exclude.")
@@ -80,8 +81,8 @@ class FlagResolver:
         stamp = now()
         conn.executemany(
             INSERT_RESOLUTION,
-            [(flag_id, "set", old, new, reason, operator, stamp, after)]
-            + [(sid, "set", old, new, f"{reason} (corrected under flag {flag_id})", operator, stamp, after)
+            [(flag_id, "set", old, new, reason, *people, stamp, after)]
+            + [(sid, "set", old, new, f"{reason} (corrected under flag {flag_id})", *people, stamp, after)
                for sid in siblings])
         return Resolution(flag_id, "set", old=old, new=new,
                           message=f"flag {flag_id}: {ind} {season} {field} set from {old or 'blank'} to {new}.")

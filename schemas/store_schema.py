@@ -18,7 +18,7 @@ from typing import Callable
 
 from fieldslope.common.errors import BusyError, StoreError
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 BUSY_TIMEOUT_S = 5.0
 RETRY_DELAYS = (0.05, 0.1, 0.2, 0.4, 0.8, 1.0, 1.0)   # then give up (about 45 s with the busy timeouts)
 BUSY_SENTENCE = ("the record store is busy: another fieldslope is taking in a batch; try again in a moment "
@@ -157,8 +157,17 @@ BEGIN SELECT RAISE(ABORT, 'fieldslope records are append-only: {t} rows cannot b
 _GUARDED = (*_APPEND_ONLY, "supersessions")
 _V3 = _no_replace(_GUARDED)
 
+# v4: beside the name typed as operator, the account's login name (batches, resolutions, entered h²); and the
+# reader's notes on a batch file (further worksheets left out, a guessed encoding), one per line.
+_V4 = """
+ALTER TABLE batches ADD COLUMN login TEXT NOT NULL DEFAULT '';
+ALTER TABLE batches ADD COLUMN notes TEXT NOT NULL DEFAULT '';
+ALTER TABLE resolutions ADD COLUMN login TEXT NOT NULL DEFAULT '';
+ALTER TABLE heritability ADD COLUMN login TEXT NOT NULL DEFAULT '';
+"""
+
 # MIGRATIONS[v] brings a database from version v to v + 1.
-MIGRATIONS: dict[int, str] = {0: _V1, 1: _V2, 2: _V3}
+MIGRATIONS: dict[int, str] = {0: _V1, 1: _V2, 2: _V3, 3: _V4}
 
 
 def expected_triggers() -> set[str]:

@@ -25,6 +25,7 @@ class ImportResult:
     message: str = ""
     checked_only: bool = False
     earlier: str = ""             # a recheck of bytes already taken in: the sentence naming that batch
+    notes: tuple[str, ...] = ()   # the reader's notes: further worksheets left out, a guessed encoding
 
     @property
     def ok(self) -> bool:
@@ -49,6 +50,14 @@ class BatchInfo:
     message: str
     encoding: str = ""
     delimiter: str = ""
+    login: str = ""               # the account's login name, beside the operator name typed
+    notes: tuple[str, ...] = ()   # the reader's notes on the file (further worksheets left out, encoding)
+
+    @property
+    def by(self) -> str:
+        """Who took it in: the operator, with the login name when that differs."""
+        from fieldslope.schemas.operator import by_text
+        return by_text(self.operator, self.login)
 
 
 @dataclass(frozen=True)
@@ -70,6 +79,7 @@ class StoredFlag:
     reason: str = ""
     new_value: str = ""
     quarantined: bool = False
+    resolved_login: str = ""      # the login name of the account that resolved it
 
     @property
     def is_open(self) -> bool:
@@ -87,6 +97,7 @@ class HeritabilityEntry:
     source: str
     operator: str
     created: str
+    login: str = ""               # the account's login name, beside the operator name
 
 
 @dataclass(frozen=True)

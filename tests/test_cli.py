@@ -310,7 +310,8 @@ def test_batches_lists_the_days_intake(folder, protocol_file, capsys):
     lines = out.splitlines()
     assert lines[0] == "3 batches (1 partial, 1 refused, 1 stored); times are local"
     assert lines[1].startswith("#1 ") and "stored   12 rows stored  by ana" in lines[1]
-    assert lines[2].strip() == "measured.csv"
+    from fieldslope.schemas.operator import login_name
+    assert lines[2].strip() == ("measured.csv" if login_name() == "ana" else f"measured.csv (login {login_name()})")
     assert "refused  2 rows, none stored (1 error)  by bo" in lines[3]
     assert "partial  1 of 2 rows stored, 1 quarantined  by bo" in lines[5]
     assert all(len(line) <= 80 for line in lines)

@@ -5,16 +5,21 @@ from __future__ import annotations
 from tests.test_tui_screens import filled, make_app, ready, screen_text, wait_for  # noqa: F401 (fixture)
 
 
+async def check_by_path(app, pilot, path) -> None:
+    """Once the figures are in: Intake, open ``path`` by its path (/), and wait for its check."""
+    await wait_for(app, pilot, lambda: ready(app))
+    await pilot.press("1", "slash")
+    app.screen.query_one("#intake-path").value = str(path)
+    await pilot.press("enter")
+    await wait_for(app, pilot, lambda: app.screen.checked is not None, what="the check")
+
+
 async def test_a_file_opened_by_path_keeps_its_result_when_the_empty_folder_is_looked_at_again(
         filled, write_batch, hopper_rows):
     path = write_batch(hopper_rows("2025", "Reed Bend", n=5, seed=7, start=500), "by-path.csv")
     app = make_app(filled.root)
     async with app.run_test(size=(80, 24)) as pilot:
-        await wait_for(app, pilot, lambda: ready(app))
-        await pilot.press("1", "slash")
-        app.screen.query_one("#intake-path").value = str(path)
-        await pilot.press("enter")
-        await wait_for(app, pilot, lambda: app.screen.checked is not None, what="the check")
+        await check_by_path(app, pilot, path)
         for _ in range(2):                          # the drop folder is looked at again (every 1.5 s)
             app.screen.action_rescan()
             await app.workers.wait_for_complete()
@@ -44,11 +49,7 @@ async def test_intake_lists_the_batches_taken_in(filled):
 async def test_a_file_taken_in_before_names_its_batch_once(filled, tmp_path):
     app = make_app(filled.root)
     async with app.run_test(size=(80, 24)) as pilot:
-        await wait_for(app, pilot, lambda: ready(app))
-        await pilot.press("1", "slash")
-        app.screen.query_one("#intake-path").value = str(tmp_path / "batches" / "2024-1.csv")
-        await pilot.press("enter")
-        await wait_for(app, pilot, lambda: app.screen.checked is not None, what="the check")
+        await check_by_path(app, pilot, tmp_path / "batches" / "2024-1.csv")
         assert "2024-1.csv: already taken in as batch 2; nothing to do." in screen_text(app)
 
 

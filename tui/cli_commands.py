@@ -50,6 +50,8 @@ def _report(result) -> None:
         print(line, file=out)
     if result.earlier:
         fmt.say(result.earlier, file=out)
+    for note in result.notes:     # how the file was read: further worksheets left out, a guessed encoding
+        print(fmt.wrap(f"note: {note}", indent=""), file=out)
     if result.outcome == Outcome.REFUSED:
         fmt.say(f"fieldslope: {result.message}", file=err)
         return

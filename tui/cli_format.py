@@ -14,6 +14,7 @@ from typing import TYPE_CHECKING, Iterable, TextIO
 
 from fieldslope.common.names import Q, flag_label
 from fieldslope.common.words import plural
+from fieldslope.schemas.operator import by_text
 from fieldslope.tui.number_text import tau2_text
 from fieldslope.tui.safe_text import escape_controls
 
@@ -95,7 +96,8 @@ def print_flags(flags, out: TextIO | None = None) -> None:
         print(wrap(f"{f.message} ({f.file_name}, row {f.row})"), file=out)
         if f.status != "open" and f.reason:
             change = f"set to {f.new_value}; " if f.status == "set" else ""
-            print(wrap(f"{change}why: {f.reason} ({f.resolved_at})"), file=out)
+            login = f"; login {f.resolved_login}" if f.resolved_login and f.resolved_login != f.resolved_by else ""
+            print(wrap(f"{change}why: {f.reason} ({f.resolved_at}{login})"), file=out)
 
 
 def print_batches(batches, day=None, out: TextIO | None = None) -> None:
@@ -114,7 +116,10 @@ def print_batches(batches, day=None, out: TextIO | None = None) -> None:
     for b in batches:
         print(f"#{b.id:<4} {when_text(b.received)}  {b.outcome:<8} {rows_text(b)}  by {escape_controls(b.operator)}",
               file=out)
-        print(f"      {escape_controls(b.file_name)}", file=out)
+        login = f" (login {b.login})" if b.login and b.login != b.operator else ""
+        print(f"      {escape_controls(b.file_name + login)}", file=out)
+        for note in b.notes:      # how the file was read: further worksheets left out, a guessed encoding
+            print(wrap(f"note: {note}", indent="      "), file=out)
 
 
 def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = None) -> None:
@@ -146,7 +151,7 @@ def _source(r) -> str:
     if not missing(r.batch):
         parts.append(f"batch {int(r.batch)}")
     if r.operator:
-        parts.append(f"by {escape_controls(r.operator)}")
+        parts.append(f"by {escape_controls(by_text(r.operator, getattr(r, 'login', '')))}")
     return ", ".join(parts)
 
 

@@ -20,7 +20,7 @@ from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.safe_text import escape_controls
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import FormScreen
-from fieldslope.tui.screens.intake import operator_name
+from fieldslope.schemas.operator import login_name
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
 from fieldslope.tui.widgets.pictures import histogram_strip
@@ -208,7 +208,7 @@ class FlagsScreen(StudyScreen):
                         reason: str) -> None:
         from fieldslope.tui.loading import resolve_flags
 
-        results = resolve_flags(study_dir, flag_ids, action, value, reason, operator_name())
+        results = resolve_flags(study_dir, flag_ids, action, value, reason, login_name())
         msg = (getattr(results[0], "message", "") if len(results) == 1 else
                f"{plural(len(results), 'flag')}: {action} recorded with the reason given.")
         self.post_message(self.Resolved(msg or f"{action} recorded."))

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import getpass
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -16,19 +15,13 @@ from textual.widgets import DataTable, Input, Static, TabbedContent, TabPane
 
 from fieldslope.common.names import Outcome, flag_label
 from fieldslope.common.words import plural
+from fieldslope.schemas.operator import login_name
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.safe_text import escape_controls
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.dialogs import ConfirmScreen
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
-
-
-def operator_name() -> str:
-    try:
-        return getpass.getuser()
-    except Exception:  # no login name (some containers)
-        return "unknown"
 
 
 PICK_HINT = "Pick a file and press c to check it; i takes it in, a takes its valid rows."
@@ -68,6 +61,7 @@ class IntakeScreen(StudyScreen):
         self.current: Path | None = None
         self.checked = None
         self.problems: list[str] = []
+        self.batch_notes: dict[str, tuple[str, ...]] = {}
 
     def body(self) -> ComposeResult:
         yield Static(id="intake-folder", classes="choices")
@@ -85,6 +79,7 @@ class IntakeScreen(StudyScreen):
                 yield LiteralTable(id="intake-sheet", cursor_type="row")
             with TabPane("Taken in", id="intake-taken"):
                 yield LiteralTable(id="intake-batches", cursor_type="row", zebra_stripes=True)
+                yield Static(id="intake-batch-notes", classes="notes")
 
     def on_mount(self) -> None:
         self.query_one("#intake-files", DataTable).add_columns("file", "size", "status")
@@ -123,7 +118,24 @@ class IntakeScreen(StudyScreen):
         for b in reversed(snap.batches):
             b = b if isinstance(b, BatchInfo) else BatchInfo(**b)
             table.add_row(str(b.id), when_text(b.received, short=True), b.outcome, f"{b.n_stored}/{b.n_rows}", b.operator,
-                          b.file_name, key=str(b.id))
+                          b.file_name + (f" ({plural(len(b.notes), 'note')})" if b.notes else ""), key=str(b.id))
+        self.batch_notes = {str(b.id): ((f"Taken in by {b.by}.",) if b.by != b.operator else ()) + b.notes
+                            for b in snap.batches if isinstance(b, BatchInfo)}
+        self._show_batch_notes(table.cursor_row)
+
+    def _show_batch_notes(self, row: int) -> None:
+        """Who took the highlighted batch in (with the login name when it differs from the operator) and the
+        reader's notes on it (further worksheets left out, a guessed encoding)."""
+        table = self.query_one("#intake-batches", DataTable)
+        notes: tuple = ()
+        if 0 <= row < table.row_count:
+            notes = self.batch_notes.get(table.coordinate_to_cell_key((row, 0)).row_key.value, ())
+        self.query_one("#intake-batch-notes", Static).update(literal("\n".join(
+            n if n.startswith("Taken in by ") else f"Note: {n}" for n in notes)))
+
+    @on(DataTable.RowHighlighted, "#intake-batches")
+    def _batch_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        self._show_batch_notes(event.cursor_row)
 
     def action_rescan(self) -> None:
         self._list_worker(self.app.study_dir)
@@ -192,8 +204,12 @@ class IntakeScreen(StudyScreen):
         self.query_one("#intake-summary", Static).update(_summary_line(msg.path.name, r))
         report = self.query_one("#intake-report", DataTable)
         report.clear()
-        self.problems = [e.sentence() for e in r.errors] + [f"row {f.row}: {f.message}" for f in r.flags]
+        notes = getattr(r, "notes", ())
+        self.problems = ([f"Note: {n}" for n in notes] + [e.sentence() for e in r.errors]
+                         + [f"row {f.row}: {f.message}" for f in r.flags])
         self.query_one("#intake-problem", Static).update(literal(self.problems[0] if self.problems else ""))
+        for n in notes:                 # how the file was read: further worksheets left out, a guessed encoding
+            report.add_row("", "", "", f"note: {n}")
         for e in r.errors:
             report.add_row(str(e.row), e.column, e.value or "", f"ERROR {e.reason}")
         for f in r.flags:
@@ -234,7 +250,7 @@ class IntakeScreen(StudyScreen):
                             severity="warning")
             return
         n_store = r.n_rows - (bad if accept_valid else 0)
-        lines = [f"File: {escape_controls(self.current)}", f"Operator: {escape_controls(operator_name())}",
+        lines = [f"File: {escape_controls(self.current)}", f"Operator: {escape_controls(login_name())}",
                  f"Rows stored as records: {n_store} of {r.n_rows}"]
         if accept_valid and bad:
             lines.append(f"Rows kept in quarantine (visible and fixable on Flags): {bad}")
@@ -256,7 +272,7 @@ class IntakeScreen(StudyScreen):
     def _import_worker(self, study_dir: Path, path: Path, accept_valid: bool) -> None:
         from fieldslope.tui.loading import import_file
 
-        self.post_message(self.TakenIn(import_file(study_dir, path, accept_valid, operator_name())))
+        self.post_message(self.TakenIn(import_file(study_dir, path, accept_valid, login_name())))
 
     def on_intake_screen_taken_in(self, msg: TakenIn) -> None:
         r = msg.result

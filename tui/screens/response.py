@@ -25,7 +25,7 @@ from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.screens.base import StudyScreen
 from fieldslope.tui.screens.choices import ChoiceKeys, Choices
 from fieldslope.tui.screens.dialogs import FormScreen
-from fieldslope.tui.screens.intake import operator_name
+from fieldslope.schemas.operator import login_name
 from fieldslope.tui.snapshot import ALL, Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble
 from fieldslope.tui.widgets.pictures import fmt
@@ -265,7 +265,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     def _h2_worker(self, study_dir: Path, trait: str, value: float, se: float | None, source: str) -> None:
         from fieldslope.tui.loading import set_heritability
 
-        set_heritability(study_dir, trait, value, se, source, operator_name())
+        set_heritability(study_dir, trait, value, se, source, login_name())
         self.post_message(self.H2Saved(f"h² of {trait} = {value:g} kept ({source})."))
 
     @on(H2Saved)     # (by name the handler would be on_response_screen_h2saved: easy to get wrong)
