@@ -68,8 +68,8 @@ class PedigreeSummary:
     inbred: int
 
     def describe(self) -> str:
-        return (f"Pedigree: {self.individuals} individuals ({self.founders} founders), {self.max_depth} generations "
-                f"deep; {self.full_sib_families} full-sib, {self.half_sib_families} half-sib families; "
+        return (f"Pedigree: {self.individuals} individuals ({self.founders} founders), {self.max_depth} "
+                f"generation{'' if self.max_depth == 1 else 's'} deep; {self.full_sib_families} full-sib, {self.half_sib_families} half-sib families; "
                 f"mean inbreeding {self.mean_inbreeding:.4f} ({self.inbred} inbred).")
 
 

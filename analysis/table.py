@@ -52,6 +52,7 @@ from fieldslope.analysis.permute import SeasonPermuter, permute_season
 from fieldslope.analysis.point import point_block
 from fieldslope.analysis.progress import Progress, ProgressCallback
 from fieldslope.analysis.resample import SeasonResampler, bootstrap_season, percentile_interval
+from fieldslope.analysis.response_agreement import disagreements
 from fieldslope.analysis.response_interval import multi_response_intervals, response_intervals
 from fieldslope.common.names import ALL, Q
 
@@ -256,6 +257,9 @@ def estimate_table(
                               "Genetic correlations not entered are taken equal to the phenotypic correlations of each cell."))
     table = pd.DataFrame(rows, columns=COLUMNS)
     table["n"] = table["n"].astype("Int64")
+    if genetics is not None:  # the three predictions of the response, side by side: say where they disagree
+        notes.extend(Note(ALL, ALL, d.fitness, Q.RESPONSE_PRICE, d.sentence())
+                     for d in disagreements(table, genetics.rows, genetics.h2))
     return Estimates(table=table, notes=tuple(notes))
 
 

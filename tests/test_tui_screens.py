@@ -683,3 +683,81 @@ def test_response_notes_are_cut_between_sentences_never_inside_one():
     assert whole_sentences(notes, 50) == "First note here. (2 more notes: fieldslope estimate lists them all.)"
     assert whole_sentences(notes, 100) == ("First note here. Second note, a longer one. "
                                            "(1 more note: fieldslope estimate lists them all.)")
+
+
+@pytest.fixture
+def with_pedigree(study, write_batch):
+    """Two seasons at two sites; the 2025 hoppers are offspring of 2024 pairs (invented: breeding values
+    passed on by the infinitesimal model, so the animal models have something to find)."""
+    import numpy as np
+
+    rng = np.random.default_rng(5)
+    G = np.array([[0.06, 0.012], [0.012, 0.008]])   # additive (co)variances of wing and tibia, mm²
+    E = np.array([[0.06, 0.004], [0.004, 0.012]])
+    parents: dict[str, list] = {}
+    for season in ("2024", "2025"):
+        for site in ("Gull Flat", "Reed Bend"):
+            n = 120
+            a = rng.multivariate_normal([0, 0], G, size=n)
+            dams = sires = [""] * n
+            if season == "2025":
+                ids, breeding = parents[site]
+                d, s = rng.integers(0, 60, n), rng.integers(60, 120, n)   # females 0-59, males 60-119
+                a = (breeding[d] + breeding[s]) / 2 + rng.multivariate_normal([0, 0], G / 2, size=n)
+                dams, sires = [ids[i] for i in d], [ids[i] for i in s]
+            z = np.array([4.5, 1.7]) + a + rng.multivariate_normal([0, 0], E, size=n)
+            alive = (rng.random(n) < 1 / (1 + np.exp(-(0.3 + 2.0 * (z[:, 0] - 4.5))))).astype(int)
+            clutch = rng.poisson(3 + 2 * np.maximum(z[:, 1] - 1.5, 0)) * alive
+            ids = [f"{site[:2].upper()}{season[-2:]}-{i:04d}" for i in range(n)]
+            rows = [{"tag": ids[i], "season": season, "site": site, "wing": f"{z[i, 0]:.2f}", "tibia": f"{z[i, 1]:.2f}",
+                     "survived": int(alive[i]), "clutch": int(clutch[i]), "dam": dams[i], "sire": sires[i]}
+                    for i in range(n)]
+            parents[site] = (ids, a)
+            path = write_batch(rows, f"{season}-{site}.csv")
+            assert study.store.import_file(path, operator="test").outcome == "stored"
+    return study
+
+
+async def test_response_uses_the_pedigree_g_once_fitted_and_never_waits_for_it(with_pedigree, monkeypatch):
+    """While the animal models are fitted (held back here) the screen answers keys and shows the phenotypic-G
+    Gβ; once they are in, Gβ is the one `fieldslope estimate` prints (pedigree h² and genetic correlations in G)
+    and the notes say which G was used."""
+    import threading
+
+    from fieldslope.tui import bridge
+
+    fitted = bridge.pedigree_genetics
+    release = threading.Event()
+
+    def held(*args, **kwargs):
+        release.wait(30)
+        return fitted(*args, **kwargs)
+
+    monkeypatch.setattr(bridge, "pedigree_genetics", held)
+    app = make_app(with_pedigree.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("4")
+        await pilot.pause(0.2)
+        assert "fitting the animal models" in screen_text(app)
+        phenotypic = app.snapshot.value("2025", "all", "total", "response_multi", "wing")["estimate"]
+        assert fmt(phenotypic) in str(app.screen.query_one("#resp-table").get_row("wing")[7])
+        await pilot.press("1")          # the screen is free while the worker waits
+        await pilot.pause(0.2)
+        assert app.current_mode == "intake"
+        await pilot.press("4")
+        release.set()
+        await wait_for(app, pilot, lambda: "Pedigree: 480 individuals" in screen_text(app),
+                       timeout=90, what="the pedigree fit")
+        snap = app.snapshot
+        cli = bridge.estimates_for_frame(snap.frame, snap.protocol, bootstrap=0, h2=snap.h2, genetics=fitted(
+            snap.frame, snap.protocol))
+        t = cli.table
+        for trait in ("wing", "tibia"):
+            want = t[(t.season == "2025") & (t.site == "all") & (t.fitness == "total")
+                     & (t.quantity == "response_multi") & (t.term == trait)]["estimate"].iloc[0]
+            assert str(app.screen.query_one("#resp-table").get_row(trait)[7]) == fmt(want), trait
+            if trait == "wing":
+                assert fmt(want) != fmt(phenotypic)   # the pedigree G is not the phenotypic one
+        shown = screen_text(app)
+        assert "animal model" in shown and "phenotypic correlations" not in shown

@@ -20,6 +20,7 @@ from textual.widgets import DataTable, Input, Label, Static
 from textual.worker import Worker, WorkerState
 
 from fieldslope.analysis.response import breeders_response
+from fieldslope.analysis.response_agreement import brief, disagreements
 from fieldslope.common.names import Q
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.screens.base import StudyScreen
@@ -55,12 +56,16 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     class PedigreeFitted(Message):
         version: int
         genetics: object  # fieldslope.analysis.genetics.Genetics
+        estimates: object  # fieldslope.analysis.table.Estimates with it (point estimates): Gβ with the pedigree G
 
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
         self.form: FormScreen | None = None     # the open h² form, until the store answers
         self.choices = Choices()
         self._genetics = None
+        self._with_pedigree: dict = {}  # (season, site, fitness, quantity, term) -> row, estimates with the pedigree G
+        self._pedigree_notes: tuple = ()
+        self._pedigree_table = None
         self._genetics_version: int | None = None
         self._fitting: int | None = None  # the data version being fitted
         self._pedigree_text = ""
@@ -124,7 +129,8 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             s = snap.value(**key, quantity=Q.DIFFERENTIAL, term=trait)
             r = snap.value(**key, quantity=Q.RESPONSE, term=trait)
             rp = snap.value(**key, quantity=Q.RESPONSE_PCT, term=trait)
-            rm = snap.value(**key, quantity=Q.RESPONSE_MULTI, term=trait)
+            rm = (self._with_pedigree.get((c.season, c.site, c.fitness, Q.RESPONSE_MULTI, trait)) if gen is not None
+                  else snap.value(**key, quantity=Q.RESPONSE_MULTI, term=trait))
             ped = _genetics_row(gen, Q.HERITABILITY_PEDIGREE, trait, "")
             price = _genetics_row(gen, Q.RESPONSE_PRICE, trait, c.fitness or "")
             span = "–"
@@ -144,10 +150,15 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         if snap.protocol.trait_names:
             table.move_cursor(row=max(0, min(keep, len(snap.protocol.trait_names) - 1)))
         order = (Q.RESPONSE_MULTI, Q.RESPONSE, Q.RESPONSE_PCT, Q.HERITABILITY)   # the G assumption first
-        picked = [n for n in snap.notes if getattr(n, "quantity", "") in order
+        picked = [n for n in (self._pedigree_notes if gen is not None else snap.notes)
+                  if getattr(n, "quantity", "") in order
                   and getattr(n, "season", c.season) in (c.season, ALL)]
         picked.sort(key=lambda n: order.index(n.quantity))
         notes = [getattr(n, "message", str(n)) for n in picked]
+        if gen is not None:   # the three predictions side by side: say first where they disagree
+            found = [d for d in disagreements(self._pedigree_table, gen.rows, gen.h2) if d.fitness == (c.fitness or "")]
+            first = sum(getattr(n, "quantity", "") == Q.RESPONSE_MULTI for n in picked)   # after which G
+            notes[first:first] = [brief(found)] if found else []
         head = "Δz̄ = G·β_raw (Lande 1979). "
         room = 4 * max(40, self.size.width - 4) - len(head) - 12   # the notes box is 4 lines high
         g_text = head + whole_sentences(list(dict.fromkeys(notes)), room)
@@ -160,16 +171,20 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             return
         self._fitting = snap.data_version
         self._pedigree_text = "Pedigree: fitting the animal models…"
-        self._pedigree_worker(snap.frame, snap.protocol, snap.data_version)
+        self._pedigree_worker(snap.frame, snap.protocol, snap.h2, snap.data_version)
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="resp-pedigree")
-    def _pedigree_worker(self, frame, protocol, version: int) -> None:
-        from fieldslope.tui.bridge import pedigree_genetics
+    def _pedigree_worker(self, frame, protocol, h2, version: int) -> None:
+        from fieldslope.tui.bridge import estimates_for_frame, pedigree_genetics
 
         def progress(done: int, total: int, label: str) -> None:
             self.post_message(self.PedigreeProgress(f"Pedigree: fitting animal models, {done} of {total} ({label})…"))
 
-        self.post_message(self.PedigreeFitted(version, pedigree_genetics(frame, protocol, progress=progress)))
+        genetics = pedigree_genetics(frame, protocol, progress=progress)
+        self.post_message(self.PedigreeProgress("Pedigree: Δz̄ = Gβ with the pedigree G…"))
+        # the point estimates again, now with the pedigree h² and genetic correlations in G
+        estimates = estimates_for_frame(frame, protocol, bootstrap=0, h2=h2, genetics=genetics)
+        self.post_message(self.PedigreeFitted(version, genetics, estimates))
 
     def on_response_screen_pedigree_progress(self, msg: PedigreeProgress) -> None:
         if self._fitting is not None:
@@ -179,6 +194,10 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
     def on_response_screen_pedigree_fitted(self, msg: PedigreeFitted) -> None:
         self._fitting = None
         self._genetics, self._genetics_version = msg.genetics, msg.version
+        table = msg.estimates.table
+        self._pedigree_table, self._pedigree_notes = table, msg.estimates.notes
+        self._with_pedigree = {k: dict(estimate=v) for k, v in zip(
+            zip(table["season"], table["site"], table["fitness"], table["quantity"], table["term"]), table["estimate"])}
         notes = [n[-1] for n in msg.genetics.notes]
         self._pedigree_text = msg.genetics.summary or (notes[0] if notes else "")
         if self.app.snapshot is not None:
