@@ -126,7 +126,7 @@ def disagreements(table: pd.DataFrame, price_rows: list[dict], h2: dict[str, tup
 
 
 def brief(found: list[Disagreement]) -> str:
-    """One short sentence for a narrow screen: which traits' predictions disagree, and which pairs."""
-    parts = [f"{d.trait} ({'; '.join(f'{a} vs {b}' for a, b in d.pairs)})" for d in found]
-    return (f"Predictions disagree beyond their uncertainty for {', '.join(parts)}: "
-            "fieldslope estimate says by how much and why.")
+    """One short sentence for a narrow screen, in the Response table's column names (R, Gβ, Price)."""
+    short = {BREEDER: "R", LANDE: "Gβ", PRICE: "Price"}
+    parts = [f"{d.trait} ({'; '.join(f'{short[a]} vs {short[b]}' for a, b in d.pairs)})" for d in found]
+    return f"Predictions disagree beyond their uncertainty: {', '.join(parts)}; see fieldslope estimate."

@@ -55,7 +55,8 @@ def test_a_price_response_far_outside_the_seasons_range_is_named():
     text = d.sentence()
     assert "For total, the predicted responses of wing" in text and "Morrissey, Kruuk & Wilson 2010" in text
     assert "over 3 seasons" in text and "Lande & Arnold 1983" not in text
-    assert brief(found).startswith("Predictions disagree beyond their uncertainty for wing (R = h²S vs Robertson")
+    assert brief(found) == ("Predictions disagree beyond their uncertainty: wing (R vs Price; Gβ vs Price); "
+                            "see fieldslope estimate.")
 
 
 def test_a_price_response_within_the_seasons_range_agrees_even_away_from_their_mean():
