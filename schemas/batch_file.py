@@ -92,6 +92,8 @@ def file_sha256(path: Path) -> str:
 
 
 def _oversize(name: str, fh) -> BatchPlan:
+    import hashlib
+
     from fieldslope.schemas.readers import MAX_BYTES
 
     digest, head, size = hashlib.sha256(), b"", 0

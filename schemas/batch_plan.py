@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import hashlib
 from datetime import datetime, timezone
 from typing import Callable
 
@@ -35,6 +34,7 @@ class BatchPlan:
     def make(cls, protocol: Protocol, name: str, data: bytes, progress: Progress) -> "BatchPlan":
         from fieldslope.schemas.readers import read_sheet
         from fieldslope.schemas.validate import check_sheet
+        import hashlib
 
         sha = hashlib.sha256(data).hexdigest()
         progress(0, 1, "reading")

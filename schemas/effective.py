@@ -9,20 +9,13 @@ records, one for corrections, one for flags, then a pandas group-by.
 from __future__ import annotations
 
 import sqlite3
-from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from fieldslope.common.names import Kind
 from fieldslope.schemas.protocol import Protocol
-
-
-@dataclass(frozen=True)
-class FieldCol:
-    name: str
-    col: str      # SQL column in ``records``
-    kind: str     # "number" | "text"
+from fieldslope.schemas.store_types import FieldCol
 
 
 def output_fields(protocol: Protocol) -> list[str]:

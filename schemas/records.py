@@ -3,8 +3,13 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
-import pandas as pd
+if TYPE_CHECKING:  # pragma: no cover   (annotations only: flags, history and batches start without pandas)
+    import pandas as pd
+
+# Visit columns a batch may carry besides the protocol's: stored as text, never compared with the record.
+OPTIONAL_TEXT = ("date", "observer", "notes")
 
 
 @dataclass(frozen=True)

@@ -20,27 +20,32 @@ import hashlib
 import sqlite3
 import threading
 from dataclasses import replace
+from functools import cached_property
 from pathlib import Path
-
-import pandas as pd
+from typing import TYPE_CHECKING
 
 from fieldslope.common.errors import BusyError, RecordError, StoreError
 from fieldslope.common.names import Outcome
-from fieldslope.schemas import effective as eff
 from fieldslope.schemas import store_health as health
 from fieldslope.schemas import store_heritability as h2
+from fieldslope.schemas import store_history
 from fieldslope.schemas import store_queries as queries
 from fieldslope.schemas import store_schema as schema
 from fieldslope.schemas.batch_plan import BatchPlan, Progress
 from fieldslope.schemas.operator import who
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.batch_file import read_batch_file
-from fieldslope.schemas.records import RowError
-from fieldslope.schemas.store_history import history
-from fieldslope.schemas.store_intake import OPTIONAL_TEXT, Evaluation, Intake, duplicate_message
-from fieldslope.schemas.store_quarantine import QuarantineFix
-from fieldslope.schemas.store_resolve import FlagResolver, checked_request
-from fieldslope.schemas.store_types import BatchInfo, HeritabilityEntry, ImportResult, Resolution, StoredFlag
+from fieldslope.schemas.records import OPTIONAL_TEXT, RowError
+from fieldslope.schemas.store_types import (BatchInfo, FieldCol, HeritabilityEntry, ImportResult, Resolution,
+                                            StoredFlag)
+
+# The parts that need pandas (intake, resolving, the effective frame) are imported where they are used,
+# so that ``flags``, ``history`` and ``batches`` start without pandas and numpy.
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from fieldslope.schemas.store_intake import Intake
+    from fieldslope.schemas.store_resolve import FlagResolver
 
 
 class Store:
@@ -85,11 +90,24 @@ class Store:
                 self.close()
                 self.readonly = True
 
-    def _set_fields(self, fields: dict[str, eff.FieldCol]) -> None:
-        """The field columns, and the parts that work with them."""
+    def _set_fields(self, fields: dict[str, FieldCol]) -> None:
+        """The field columns (the parts that work with them are made on first use)."""
         self.fields = fields
-        self.intake = Intake(self.protocol, fields)
-        self.resolver = FlagResolver(self.protocol, fields, QuarantineFix(self.protocol, fields, self.intake.evaluate))
+        self.__dict__.pop("intake", None)
+        self.__dict__.pop("resolver", None)
+
+    @cached_property
+    def intake(self) -> Intake:
+        from fieldslope.schemas.store_intake import Intake
+
+        return Intake(self.protocol, self.fields)
+
+    @cached_property
+    def resolver(self) -> FlagResolver:
+        from fieldslope.schemas.store_quarantine import QuarantineFix
+        from fieldslope.schemas.store_resolve import FlagResolver
+
+        return FlagResolver(self.protocol, self.fields, QuarantineFix(self.protocol, self.fields, self.intake.evaluate))
 
     def _check_on_open(self, conn: sqlite3.Connection) -> sqlite3.Connection:
         """After an unclean shutdown: quick_check and foreign_key_check; if damaged, go read-only."""
@@ -251,8 +269,8 @@ class Store:
                 c.execute("INSERT INTO fields(name, col, kind) VALUES (?, ?, ?)", (name, col, kind))
         self._write(add)
 
-    def _load_fields(self, conn: sqlite3.Connection) -> dict[str, eff.FieldCol]:
-        rows = {r[0]: eff.FieldCol(*r) for r in conn.execute("SELECT name, col, kind FROM fields")}
+    def _load_fields(self, conn: sqlite3.Connection) -> dict[str, FieldCol]:
+        rows = {r[0]: FieldCol(*r) for r in conn.execute("SELECT name, col, kind FROM fields")}
         return {n: rows[n] for n, _ in self._wanted_fields() if n in rows}
 
     # -- taking batches in (store_intake) -------------------------------------------
@@ -270,7 +288,11 @@ class Store:
     def import_bytes(self, name: str, data: bytes, operator: str | None = None, accept_valid: bool = False,
                      progress: Progress | None = None) -> ImportResult:
         """Check and store one batch; a refused batch stores only the record of its refusal."""
+        from fieldslope.schemas.store_intake import Evaluation, duplicate_message
+
         progress = progress or (lambda done, total, stage: None)
+        import hashlib     # here, not at the top: only a batch needs it (start-up of the listing commands)
+
         sha = hashlib.sha256(data).hexdigest()
         earlier = self._read(lambda conn: queries.earlier_batch(conn, sha))
         if earlier is not None:     # quick answer without reading the sheet (checked again when writing)
@@ -299,6 +321,8 @@ class Store:
 
     def check_file(self, path: str | Path, accept_valid: bool = False, recheck: bool = False,
                    follow_links: bool = True) -> ImportResult:
+        from fieldslope.schemas.store_intake import Evaluation
+
         data = read_batch_file(Path(path), follow_links=follow_links)
         if isinstance(data, BatchPlan):
             return Evaluation(data, Outcome.REFUSED, message=data.refusal).result(None, checked_only=True)
@@ -319,6 +343,8 @@ class Store:
 
     def effective_frame(self, without_open_outliers: bool = False, as_of_batch: int | None = None) -> pd.DataFrame:
         """Per individual and season the current value of every field (see DEVELOPERS.md)."""
+        from fieldslope.schemas import effective as eff
+
         return self._read(lambda c: eff.effective(c, self.protocol, self.fields,
                                                   without_open_outliers=without_open_outliers, as_of=as_of_batch))
 
@@ -333,13 +359,19 @@ class Store:
         raise RecordError(f"there is no flag {flag_id}; list the flags with fieldslope flags --all.")
 
     def history(self, individual: str) -> pd.DataFrame:
-        """One individual's values, flags and changes in time order."""
-        return self._read(lambda c: history(c, self.fields, str(individual)))
+        """One individual's values, flags and changes in time order, as a table."""
+        return self._read(lambda c: store_history.history(c, self.fields, str(individual)))
+
+    def history_events(self, individual: str) -> list[store_history.Event]:
+        """The same as plain records (no pandas)."""
+        return self._read(lambda c: store_history.events(c, self.fields, str(individual)))
 
     # -- resolving flags (store_resolve, store_quarantine) -------------------------------
     def resolve_flag(self, flag_id: int, action: str, value: str | None = None, reason: str = "",
                      operator: str | None = None) -> Resolution:
         """Keep, exclude or set (correct) the value behind a flag; the old value stays on record."""
+        from fieldslope.schemas.store_resolve import checked_request
+
         reason = checked_request(action, value, reason)
         people = who(operator)
         return self._write(lambda c: self.resolver.resolve(c, int(flag_id), action, value, reason, people))
@@ -357,6 +389,8 @@ class Store:
 
     def heritability_entries(self) -> pd.DataFrame:
         """Every entered h² in the order entered, as a table (columns ``store_heritability.COLUMNS``)."""
+        import pandas as pd
+
         return pd.DataFrame(self._read(h2.rows), columns=h2.COLUMNS)
 
     def heritability_records(self) -> tuple[HeritabilityEntry, ...]:

@@ -7,23 +7,13 @@ individual and season, columns = protocol fields) and the batch's valid rows.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pandas as pd
 
 from fieldslope.common.names import Kind
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import FlagNote, RowError
-
-
-def show(value) -> str:
-    """A value as a person reads it (numbers without a trailing .0)."""
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return ""
-    if isinstance(value, float):
-        return f"{value:.12g}"
-    return str(value)
+from fieldslope.schemas.store_types import show
 
 
 def census_unknown(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame) -> list[RowError]:

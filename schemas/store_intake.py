@@ -22,7 +22,7 @@ from fieldslope.schemas.store_quarantine import quarantine_rows
 from fieldslope.schemas.store_rows import insert_flags, insert_records
 from fieldslope.schemas.store_supersede import supersede
 from fieldslope.schemas.store_types import ImportResult
-from fieldslope.schemas.validate import OPTIONAL_TEXT    # visit notes: stored, never compared with the record
+from fieldslope.schemas.records import OPTIONAL_TEXT    # visit notes: stored, never compared with the record
 
 
 def duplicate_message(name: str, batch_id: int, received: str) -> str:

@@ -18,7 +18,7 @@ import pandas as pd
 from fieldslope.common.errors import SheetError
 from fieldslope.common.names import Kind
 from fieldslope.schemas.batch_plan import BatchPlan, now
-from fieldslope.schemas.effective import FieldCol
+from fieldslope.schemas.store_types import FieldCol
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import CheckReport, FlagNote, RowError, Sheet
 from fieldslope.schemas.store_queries import last_batch_id

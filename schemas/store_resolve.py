@@ -11,7 +11,7 @@ import sqlite3
 from fieldslope.schemas import effective as eff
 from fieldslope.schemas.batch_plan import now
 from fieldslope.schemas.protocol import Protocol
-from fieldslope.schemas.store_checks import show
+from fieldslope.schemas.store_types import show
 from fieldslope.schemas.store_queries import last_batch_id
 from fieldslope.schemas.store_quarantine import INSERT_RESOLUTION, QuarantineFix
 from fieldslope.schemas.store_types import RecordError, Resolution

@@ -11,10 +11,10 @@ import numpy as np
 import pandas as pd
 
 from fieldslope.schemas.batch_plan import Progress
-from fieldslope.schemas.effective import FieldCol
+from fieldslope.schemas.store_types import FieldCol
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import FlagNote
-from fieldslope.schemas.store_checks import show
+from fieldslope.schemas.store_types import show
 
 CHUNK = 20_000   # rows per executemany call (progress is reported between chunks)
 

@@ -2,12 +2,31 @@
 
 from __future__ import annotations
 
+import math
 from collections import Counter
 from dataclasses import dataclass, field
 
 from fieldslope.common.errors import FieldslopeError, RecordError
 from fieldslope.common.names import Outcome
 from fieldslope.schemas.records import FlagNote, RowError
+
+
+def show(value) -> str:
+    """A value as a person reads it (numbers without a trailing .0)."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    if isinstance(value, float):
+        return f"{value:.12g}"
+    return str(value)
+
+
+@dataclass(frozen=True)
+class FieldCol:
+    """A protocol field and the SQL column of ``records`` holding it."""
+
+    name: str
+    col: str      # SQL column in ``records``
+    kind: str     # "number" | "text"
 
 
 @dataclass(frozen=True)

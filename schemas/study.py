@@ -258,6 +258,8 @@ class Study:
 
         key = (path.name, *look)
         if key not in self._digests:
+            import hashlib
+
             try:
                 self._digests[key] = file_sha256(path)
             except (OSError, SheetError):

@@ -31,9 +31,7 @@ from fieldslope.common.errors import SheetError
 from fieldslope.common.names import Kind
 from fieldslope.schemas.id_checks import mangled_id_reasons
 from fieldslope.schemas.protocol import Protocol
-from fieldslope.schemas.records import CheckReport, FlagNote, RowError, Sheet
-
-OPTIONAL_TEXT = ("date", "observer", "notes")
+from fieldslope.schemas.records import OPTIONAL_TEXT, CheckReport, FlagNote, RowError, Sheet
 
 
 # -- which column is what ----------------------------------------------------

@@ -42,6 +42,12 @@ def run(*args: str, cwd: Path, env: dict | None = None) -> subprocess.CompletedP
                           capture_output=True, text=True, timeout=120)
 
 
+def run_code(code: str, cwd: Path) -> subprocess.CompletedProcess:
+    """Python code in a fresh interpreter (what a command imports is seen in its ``sys.modules``)."""
+    return subprocess.run([sys.executable, "-c", code], cwd=cwd, env={**os.environ, "PYTHONPATH": str(REPO)},
+                          capture_output=True, text=True, timeout=120)
+
+
 def call(capsys, *args: str) -> tuple[int, str, str]:
     code = main(list(args))
     out, err = capsys.readouterr()
@@ -200,9 +206,30 @@ def test_subcommands_do_not_import_textual(folder, protocol_file):
             "main(['import', 'measured.csv', '--study', 'st']); "
             "main(['estimate', '--bootstrap', '0', '--format', 'csv', '--study', 'st']); "
             "sys.exit(1 if any(m == 'textual' or m.startswith('textual.') for m in sys.modules) else 0)")
-    r = subprocess.run([sys.executable, "-c", code], cwd=folder, env={**os.environ, "PYTHONPATH": str(REPO)},
-                       capture_output=True, text=True, timeout=120)
+    r = run_code(code, folder)
     assert r.returncode == 0, r.stderr
+
+
+def test_listing_commands_do_not_import_pandas_or_numpy(folder, protocol_file):
+    """flags, history, batches and --help only read the store: they start without pandas and numpy
+    (importing them is most of a short command's time; figures: benchmarks/bench_startup.py)."""
+    assert run("init", "st", "--protocol", str(protocol_file), cwd=folder).returncode == 0
+    assert run("import", "measured.csv", "late.csv", "--study", "st", cwd=folder).returncode == 1  # late.csv refused
+    code = ("import contextlib, io, json, sys; from fieldslope.tui.cli import main\n"
+            "out = io.StringIO()\n"
+            "with contextlib.redirect_stdout(out):\n"
+            "    codes = [main(['flags', '--all', '--study', 'st']), main(['history', 'H01', '--study', 'st']),\n"
+            "             main(['batches', '--day', 'today', '--study', 'st'])]\n"
+            "    with contextlib.suppress(SystemExit):\n"
+            "        main(['--help'])\n"
+            "print(json.dumps({'codes': codes, 'text': out.getvalue(),\n"
+            "                  'heavy': sorted(m for m in ('pandas', 'numpy', 'scipy', 'pandera') if m in sys.modules)}))")
+    r = run_code(code, folder)
+    assert r.returncode == 0, r.stderr
+    got = json.loads(r.stdout)
+    assert got["codes"] == [0, 0, 0] and got["heavy"] == []
+    text = got["text"]
+    assert "H01: 5 events" in text and "measured.csv" in text and "late.csv" in text and "usage:" in text
 
 
 def test_demo_and_dashboard_are_wired(folder, protocol_file, capsys, monkeypatch):

@@ -128,11 +128,11 @@ def batches(args) -> int:
 
 def history(args) -> int:
     with _open(args, readonly=None) as study:
-        frame = study.store.history(args.individual)
-    if frame.empty:
+        events = study.store.history_events(args.individual)
+    if not events:
         raise FieldslopeError(f"{args.individual!r} is not on record; check the ID (IDs are compared as text, "
                               "leading zeros included).")
-    fmt.print_history(frame, args.individual)
+    fmt.print_history(events, args.individual)
     return 0
 
 

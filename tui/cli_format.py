@@ -10,7 +10,7 @@ import math
 import sys
 import textwrap
 from collections import Counter
-from typing import TYPE_CHECKING, Iterable, TextIO
+from typing import TYPE_CHECKING, Iterable, Sequence, TextIO
 
 from fieldslope.common.names import Q, flag_label
 from fieldslope.common.words import plural
@@ -20,6 +20,8 @@ from fieldslope.tui.safe_text import escape_controls
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
+
+    from fieldslope.schemas.store_history import Event
 
 WIDTH = 80
 MAX_LISTED = 50
@@ -122,13 +124,13 @@ def print_batches(batches, day=None, out: TextIO | None = None) -> None:
             print(wrap(f"note: {note}", indent="      "), file=out)
 
 
-def print_history(frame: pd.DataFrame, individual: str, out: TextIO | None = None) -> None:
+def print_history(events: Sequence[Event], individual: str, out: TextIO | None = None) -> None:
     """Every event on one line with its value whole (wrapped, never cut); where it came from (file, row,
     batch, operator) on an indented line whenever that changes."""
     out = out or sys.stdout
-    print(f"{escape_controls(individual)}: {plural(len(frame), 'event')} (times in UTC)", file=out)
+    print(f"{escape_controls(individual)}: {plural(len(events), 'event')} (times in UTC)", file=out)
     source = None
-    for r in frame.itertuples(index=False):
+    for r in events:
         when = str(r.time).replace("T", " ")[:16]
         value = escape_controls(r.value)
         if r.event == "corrected":
