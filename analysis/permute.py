@@ -153,13 +153,19 @@ def permutation_indices(rng: np.random.Generator, n: int, size: int) -> np.ndarr
 class SeasonPermuter:
     """Permutation statistics of one season's cells (and their pooled block), chunk by chunk."""
 
-    def __init__(self, preps: dict[str, list[Prepared]], traits: tuple[str, ...], pooled: bool):
+    def __init__(self, preps: dict[str, list[Prepared]], traits: tuple[str, ...], pooled: bool,
+                 fitness: set[str] | None = None, sites: set[str] | None = None):
+        """``preps`` holds every fitness measure of the season: the random draws follow all of them, in
+        their order, so asking for some measures (``fitness``) or sites (``sites``, ALL for the pooled
+        block) computes only those and gives the p-values the whole table has."""
         self.preps = preps
         self.traits = traits
         self.p = len(traits)
-        self.pooled = pooled
         first = next(iter(preps.values()))
         self.sites = [pr.cell.site for pr in first]
+        self.pooled = pooled and (sites is None or ALL in sites)
+        self.wanted_fitness = set(preps) if fitness is None else set(fitness)
+        self.wanted_cells = {c for c, site in enumerate(self.sites) if sites is None or site in sites or self.pooled}
         self.designs: dict[tuple, CellDesign] = {}
         self.parts: dict[tuple[str, int], tuple[tuple, int]] = {}  # (fitness, cell) -> (design key, column)
         self.tests: list[BlockTests] = []
@@ -167,13 +173,21 @@ class SeasonPermuter:
             cs = [c for c, pr in enumerate(plist) if pr.multi is not None]
             for c in cs:
                 self.parts[(f, c)] = self.add_design(c, plist[c], f)
-            blocks = [(self.sites[c], [c]) for c in cs]
-            if pooled and cs:
+            if f not in self.wanted_fitness:
+                continue
+            blocks = [(self.sites[c], [c]) for c in cs if sites is None or self.sites[c] in sites]
+            if self.pooled and cs:
                 blocks.append((ALL, cs))
             for site, block in blocks:
                 self.add_block(site, f, [self.parts[(f, c)] for c in block])
+        # designs whose permuted products are worked out (the others' permutations are only drawn)
+        self.needed = {key for t in self.tests for key, _ in t.parts}
+        self.needed |= {key for (f, c), (key, _) in self.parts.items() if self.wanted(f, c)}
         for design in self.designs.values():
             design.Y = np.column_stack([design.X, *design.w])
+
+    def wanted(self, f: str, c: int) -> bool:
+        return f in self.wanted_fitness and c in self.wanted_cells
 
     def add_design(self, c: int, pr: Prepared, f: str) -> tuple[tuple, int]:
         key = (c, pr.multi.rows.tobytes())
@@ -197,7 +211,7 @@ class SeasonPermuter:
         """All statistics for permutations ``orders`` (design key -> s x n row orders: row i of the
         permuted design is row order[i]); differentials of samples other than the complete cases use
         ``fitness_of(f, c, sample)`` (s x n shuffled fitness)."""
-        K = {key: permuted_products(self.designs[key], idx) for key, idx in orders.items()}
+        K = {key: permuted_products(self.designs[key], idx) for key, idx in orders.items() if key in self.needed}
         out = self.differential_statistics(K, fitness_of)
         for tests in self.tests:
             d = tests.L.shape[1]
@@ -216,6 +230,9 @@ class SeasonPermuter:
                 for j, s in enumerate(pr.single or []):
                     if s is None:
                         continue
+                    if not self.wanted(f, c):     # draw its shuffled fitness as the whole table would
+                        self.differential_sums(f, c, j, s, K, fitness_of, draw_only=True)
+                        continue
                     raw, std = self.differential_sums(f, c, j, s, K, fitness_of)
                     n, name = len(s.W), self.traits[j]
                     out[(self.sites[c], f, Q.DIFFERENTIAL, name)] = raw / n
@@ -228,12 +245,18 @@ class SeasonPermuter:
                     out[(ALL, f, Q.DIFFERENTIAL_STD, self.traits[j])] = sum(s for _, s, _ in got) / N
         return out
 
-    def differential_sums(self, f, c, j, s, K, fitness_of) -> tuple[np.ndarray, np.ndarray]:
-        """n S and n S / sd of trait j in cell c (one value per permutation)."""
+    def differential_sums(self, f, c, j, s, K, fitness_of, draw_only: bool = False):
+        """n S and n S / sd of trait j in cell c (one value per permutation); with ``draw_only`` nothing
+        but the random draws the computation would make (None)."""
         key, col = self.parts.get((f, c), (None, None))
         if key is not None and np.array_equal(self.designs[key].rows, s.rows):
+            if draw_only:
+                return None
             std = K[key][:, 1 + j, col]
             return self.designs[key].sd[j] * std, std
+        if draw_only:
+            fitness_of(f, c, s)
+            return None
         z = s.z[:, 0]
         cols = np.column_stack([z - z.mean(), (z - z.mean()) / z.std(ddof=1)])
         raw, std = (fitness_of(f, c, s) @ cols / s.W.mean()).T

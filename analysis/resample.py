@@ -97,7 +97,9 @@ class SeasonResampler:
     """Replicate estimates of one season's cells (and their pooled block) for chunks of resamples."""
 
     def __init__(self, preps: dict[str, list[Prepared]], traits: tuple[str, ...], pooled: bool, logistic_blocks: set,
-                 glm_specs: dict | None = None):
+                 glm_specs: dict | None = None, cells: set[int] | None = None):
+        """``cells`` (default all) are the cells whose replicates are wanted; the counts of every cell are
+        drawn all the same (``bootstrap_season``), so the resamples of those wanted stay those of the seed."""
         self.preps = preps  # fitness -> one Prepared per cell (cells in the same order)
         self.traits = traits
         self.p = len(traits)
@@ -105,9 +107,13 @@ class SeasonResampler:
         first = next(iter(preps.values()))
         self.sites = [pr.cell.site for pr in first]
         self.n_cells = [len(pr.cell.z) for pr in first]
-        self.features = []
+        self.features: list = []
         self.parts: list[dict] = []
         for c in range(len(self.sites)):
+            if cells is not None and c not in cells:      # not wanted: no features, no moment product
+                self.features.append(None)
+                self.parts.append({})
+                continue
             fm = FeatureMatrix(self.n_cells[c])
             parts = {}
             for f, plist in preps.items():
@@ -138,8 +144,8 @@ class SeasonResampler:
                 self.add_first_step(site, f, c, beta)
         # generalized gradients (0/1 and count fitness): batched fits of their own, on the same resamples
         self.glm = BlockBootstrap(glm_specs or {}, preps, self.parts, self.features, traits, self.block_cells)
-        self.expand = [fm.columns for fm in self.features]  # position -> distinct column
-        self.features = [fm.matrix() for fm in self.features]
+        self.expand = [None if fm is None else fm.columns for fm in self.features]  # position -> distinct column
+        self.features = [None if fm is None else fm.matrix() for fm in self.features]
 
     def add_first_step(self, site: str, f: str, c: int, beta: np.ndarray) -> None:
         """Columns p(1-p) x~_a x~_b, (y - p) x~ and p(1-p)(1-2p) x~_a x~_b x~_c (a <= b <= c) at the
@@ -169,7 +175,7 @@ class SeasonResampler:
     def boot_chunk(self, counts: list[np.ndarray]) -> dict[tuple, np.ndarray]:
         """Replicates keyed (site, fitness, quantity, term) for counts (one B x n matrix per cell)."""
         out: dict[tuple, np.ndarray] = {}
-        moments = [(C @ F)[:, cols] for C, F, cols in zip(counts, self.features, self.expand)]
+        moments = [None if F is None else (C @ F)[:, cols] for C, F, cols in zip(counts, self.features, self.expand)]
         for f in self.preps:
             self.boot_opp(f, moments, out)
             self.boot_single(f, moments, out)

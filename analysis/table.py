@@ -141,18 +141,24 @@ def row_dicts(season: str, site: str, fitness: str, rows) -> list[dict]:
 
 
 def attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, B, P, seed, tick, used_h2=None,
-                       glm_specs=None, genetic_correlations=None) -> list[Note]:
+                       glm_specs=None, genetic_correlations=None, fitness=None, sites=None) -> list[Note]:
     """Fill ci_low, ci_high (bootstrap) and p_value (permutation; bootstrap for the generalized gamma
-    rows, ``generalized.bootstrap_p``) of a season's rows in place."""
+    rows, ``generalized.bootstrap_p``) of a season's rows in place.
+
+    ``preps_by_f`` holds every fitness measure (the permutations are drawn for all of them); only the
+    measures in ``fitness`` and the sites in ``sites`` (default all; ALL = pooled) are worked out."""
     notes: list[Note] = []
     logistic = {(r["site"], r["fitness"]) for r in season_rows if r["quantity"] == Q.GRADIENT_LOGISTIC}
     boot: dict = {}
     perm: dict = {}
     if B > 0:
-        resampler = SeasonResampler(preps_by_f, traits, pooled, logistic, glm_specs)
+        first = next(iter(preps_by_f.values()))
+        cells = None if sites is None or ALL in sites else {c for c, pr in enumerate(first) if pr.cell.site in sites}
+        resampler = SeasonResampler({f: p for f, p in preps_by_f.items() if fitness is None or f in fitness}, traits,
+                                    pooled and cells is None, logistic, glm_specs, cells)
         boot = bootstrap_season(resampler, season, B, seed, lambda k: tick(k, f"bootstrap, season {season}"))
     if P > 0:
-        permuter = SeasonPermuter(preps_by_f, traits, pooled)
+        permuter = SeasonPermuter(preps_by_f, traits, pooled, fitness, sites)
         perm = permute_season(permuter, season, P, seed, lambda k: tick(k, f"permutations, season {season}"))
     failed: dict[tuple, dict] = {}  # (site, fitness) -> {"worst": resamples, "none": [rows without interval]}
     for r in season_rows:
@@ -196,6 +202,7 @@ def estimate_table(
     genetics: "Genetics | None" = None,
     random_effects: str = "dl",
     only_seasons: Sequence[str] | None = None,
+    only_sites: Sequence[str] | None = None,
 ) -> Estimates:
     """All estimates for the effective data ``frame`` under ``design``.
 
@@ -208,7 +215,9 @@ def estimate_table(
     trait pairs to r_g (default: the phenotypic correlations, said in a note).
     ``fitness`` picks the fitness measures (default all, totals included);
     ``only_seasons`` the seasons to estimate (default all; heritability still
-    uses every season's records, and across-season rows need two or more).
+    uses every season's records, and across-season rows need two or more); ``only_sites`` the sites
+    (ALL for the pooled rows; default all). These three restrict the work, not just the rows: the random
+    draws are those of the whole table, so the rows asked for have the whole table's numbers.
     ``progress(done, total, label)`` is called during resampling. ``genetics``
     (from ``analysis.genetics.pedigree_estimates``, fitted separately because it
     is slow) adds the animal-model rows; its heritabilities and genetic
@@ -224,11 +233,13 @@ def estimate_table(
     """
     fitness_names = list(fitness) if fitness is not None else list(design.fitness_names)
     check_frame(frame, design, fitness_names)
+    wanted_f = None if fitness is None else set(fitness_names)
+    wanted_sites = None if only_sites is None else set(only_sites)
     permutations = bootstrap if permutations is None else permutations
     # many small matrix products: one BLAS thread is faster and leaves a core for the dashboard
     with np.errstate(all="ignore"), threadpool_limits(limits=BLAS_THREADS, user_api="blas"):
         data = add_totals(frame, design)
-        seasons = split_cells(data, design, fitness_names)
+        seasons = split_cells(data, design, list(design.fitness_names))
         if only_seasons is not None:  # work only for what was asked
             seasons = {k: v for k, v in seasons.items() if k in set(only_seasons)}
         h_rows, h_notes, used_h2 = heritabilities(data, design, h2)
@@ -238,7 +249,7 @@ def estimate_table(
             h_notes += genetics.notes + use_pedigree(genetics, used_h2, design.traits)
             genetic_correlations = {**genetics.rg, **(genetic_correlations or {})}
         run = Run(design, fitness_names, bootstrap, permutations, seed, used_h2, genetic_correlations,
-                  Progress(len(seasons) * (bootstrap + permutations), progress))
+                  Progress(len(seasons) * (bootstrap + permutations), progress), wanted_f, wanted_sites)
         rows: list[dict] = []
         notes: list[Note] = [Note(*n) for n in h_notes]
         rg_assumed = False
@@ -275,6 +286,8 @@ class Run:
     used_h2: dict  # trait -> (h2, se or None), as the responses use it
     genetic_correlations: dict | None
     ticker: Progress
+    wanted_fitness: set[str] | None = None  # asked for a subset of the measures (else None: all)
+    wanted_sites: set[str] | None = None    # asked for some sites (ALL: the pooled rows), else None
 
 
 def season_estimates(run: Run, season: str, cells: list, rows: list[dict], notes: list[Note]) -> bool:
@@ -290,13 +303,15 @@ def season_estimates(run: Run, season: str, cells: list, rows: list[dict], notes
     season_rows, preps_by_f, pooled = [], {}, not (len(cells) == 1 and cells[0].site == ALL)
     rg_assumed = False
     glm_specs: dict = {}  # (site, fitness) -> the generalized gradients' fitted models
-    for f in run.fitness_names:
+    for f in run.design.fitness_names:        # every measure: the permutations are drawn for all
         preps_by_f[f] = [prepare(c, f, total_kind(run.design, f), traits) for c in cells]
-        rg_assumed |= fitness_estimates(run, season, traits, f, preps_by_f[f], pooled, season_rows, notes, glm_specs)
+        if f in run.fitness_names:
+            rg_assumed |= fitness_estimates(run, season, traits, f, preps_by_f[f], pooled, season_rows, notes,
+                                            glm_specs)
     if run.bootstrap > 0 or run.permutations > 0:
         notes.extend(attach_uncertainty(season, season_rows, preps_by_f, traits, pooled, run.bootstrap,
                                         run.permutations, run.seed, run.ticker.tick, run.used_h2, glm_specs,
-                                        run.genetic_correlations))
+                                        run.genetic_correlations, run.wanted_fitness, run.wanted_sites))
     rows.extend(season_rows)
     return rg_assumed
 
@@ -318,6 +333,8 @@ def fitness_estimates(run: Run, season: str, traits, f: str, preps: list, pooled
                           "(see their notes)."))
     rg_assumed = False
     for site, block in units:
+        if run.wanted_sites is not None and site not in run.wanted_sites:
+            continue
         where = f"in season {season}, site {site}"
         res = point_block(block, traits, where, tests=run.permutations > 0)
         notes.extend(Note(season, site, f, q, m) for q, m in res.notes)

@@ -246,3 +246,28 @@ def test_asking_for_one_season_computes_only_it_and_gives_the_same_numbers(demo_
     assert set(one.season) == {"2024", "all"} and set(one[one.season == "all"].quantity) == {"heritability"}
     full = estimates[estimates.season == "2024"].reset_index(drop=True)
     pd.testing.assert_frame_equal(one[one.season == "2024"].reset_index(drop=True), full)
+
+
+@pytest.mark.parametrize("ask", [{"fitness": "survived"}, {"fitness": "brood"}, {"site": "all"},
+                                 {"site": "Upper Ridge"}, {"season": "2025", "site": "all", "fitness": "total"}])
+def test_asking_for_a_fitness_measure_or_site_computes_only_it_and_gives_the_same_numbers(demo_study, estimates,
+                                                                                          ask):
+    """The permutations are drawn for every measure and site whatever is asked, so the rows asked for
+    equal the whole table's (estimates, intervals and permutation p-values)."""
+    from fieldslope.schemas.study import Study
+    from fieldslope.tui.bridge import estimates_for_frame
+
+    with Study.open(demo_study[0]) as study:
+        frame = study.store.effective_frame()
+        protocol = study.protocol
+    one = estimates_for_frame(frame, protocol, bootstrap=BOOTSTRAP, seed=SEED, **ask).table
+    asked = pd.Series(True, index=one.index)
+    for col, value in ask.items():
+        assert set(one[col]) <= {value, "all", ""}      # heritability rows: season and site all, no fitness
+        asked &= one[col] == value
+    mine = one[asked].reset_index(drop=True)
+    full = estimates
+    for col, value in ask.items():
+        full = full[full[col] == value]
+    assert len(mine) > 10
+    pd.testing.assert_frame_equal(mine, full.reset_index(drop=True))

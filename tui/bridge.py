@@ -41,11 +41,14 @@ def estimates_for_frame(
     genetics=None,
     season: str | None = None,
     random_effects: str = "dl",
+    site: str | None = None,
+    fitness: str | None = None,
 ):
     """Estimates for an effective-data frame (see DEVELOPERS.md for its columns).
 
-    ``season`` restricts the work to one season; ``random_effects`` picks the interval of the mean
-    gradient across seasons ("dl" or "hk", as ``estimate_table``). ``pedigree`` fits the animal
+    ``season``, ``site`` (ALL for the pooled rows) and ``fitness`` restrict the work to one season, site
+    or fitness measure; the rows asked for have the whole table's numbers. ``random_effects`` picks the
+    interval of the mean gradient across seasons ("dl" or "hk", as ``estimate_table``). ``pedigree`` fits the animal
     models first (slow: the command line does, the dashboard's live refresh does not); ``genetics`` passes a fit already made.
     """
     from fieldslope.analysis.table import estimate_table  # heavy: imported on first use
@@ -55,6 +58,10 @@ def estimates_for_frame(
     kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2, "genetics": genetics, "random_effects": random_effects}
     if season is not None:
         kwargs["only_seasons"] = [season]
+    if site is not None:
+        kwargs["only_sites"] = [site]
+    if fitness is not None:
+        kwargs["fitness"] = [fitness]
     if seed is not None:
         kwargs["seed"] = seed
     return estimate_table(frame, design_from_protocol(protocol), **kwargs)

@@ -153,9 +153,9 @@ def estimate(args) -> int:
     try:
         est = estimates_for_frame(frame, protocol, bootstrap=args.bootstrap, seed=args.seed, h2=h2 or None,
                                   progress=progress, pedigree=not args.skip_pedigree,
-                                  season=args.season, random_effects=args.random_effects)
-        # --season restricts the work (same numbers); --fitness and --site filter afterwards: the pooled
-        # block needs every site, and the permutation p-values depend on the set of fitness measures
+                                  season=args.season, random_effects=args.random_effects, site=args.site,
+                                  fitness=args.fitness)
+        # --season, --site and --fitness restrict the work (the rows asked for have the whole table's numbers)
     finally:
         progress.done()
     table = est.table
