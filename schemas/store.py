@@ -341,6 +341,11 @@ class Store:
     def last_batch_id(self) -> int:
         return self._read(queries.last_batch_id)
 
+    def record_state(self) -> tuple[int, ...]:
+        """Changes whenever a batch, a resolution or an h² is added (``store_queries.record_state``); unlike
+        ``data_version`` the same in every process and connection, so it can key results kept on disk."""
+        return self._read(queries.record_state)
+
     def effective_frame(self, without_open_outliers: bool = False, as_of_batch: int | None = None) -> pd.DataFrame:
         """Per individual and season the current value of every field (see DEVELOPERS.md)."""
         from fieldslope.schemas import effective as eff

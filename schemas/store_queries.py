@@ -35,6 +35,17 @@ def last_batch_id(conn: sqlite3.Connection) -> int:
     return conn.execute("SELECT coalesce(max(id), 0) FROM batches").fetchone()[0]
 
 
+# every table a change of the record adds rows to (all append-only: rows are never updated or deleted)
+STATE_TABLES = ("batches", "records", "flags", "resolutions", "quarantine", "supersessions", "heritability")
+
+
+def record_state(conn: sqlite3.Connection) -> tuple[int, ...]:
+    """The last row id of each of ``STATE_TABLES``: the tables are append-only, so equal tuples mean the
+    same record (what anything computed from the record, such as the estimates, depends on)."""
+    return tuple(conn.execute("SELECT " + ", ".join(f"(SELECT coalesce(max(id), 0) FROM {t})"
+                                                    for t in STATE_TABLES)).fetchone())
+
+
 def earlier_batch(conn: sqlite3.Connection, sha: str) -> tuple[int, str] | None:
     """(id, received) of a batch already taken in with these exact bytes, or None."""
     return conn.execute("SELECT id, received FROM batches WHERE sha256 = ? AND outcome <> 'refused'",

@@ -154,7 +154,7 @@ def _after(stamp: str, since: Since) -> bool:
     return d is not None and (d >= since.moment if since.inclusive else d > since.moment)
 
 
-def gather(study, when: str | None) -> dict:
+def gather(study, when: str | None, say=None) -> dict:
     """Everything ``changes`` reports, as plain data."""
     store = study.store
     batches = store.batches()
@@ -172,7 +172,7 @@ def gather(study, when: str | None) -> dict:
         "flags_opened": [_flag(f) for f in opened],
         "flags_resolved": [_flag(f) for f in resolved if f.status != "set"],
         "corrections": [_flag(f) for f in resolved if f.status == "set"],
-        "moved": moved_estimates(study, since.batch) if (new_batches or resolved) else [],
+        "moved": moved_estimates(study, since.batch, say) if (new_batches or resolved) else [],
         "last_batch": max((b.id for b in batches), default=0),
     }
     return out
@@ -184,19 +184,28 @@ def _flag(f) -> dict:
             "new_value": f.new_value, "batch": f.batch_id, "message": f.message}
 
 
-def moved_estimates(study, then_batch: int) -> list[dict]:
+def moved_estimates(study, then_batch: int, say=None) -> list[dict]:
     """Estimates whose value now differs from the value after batch ``then_batch`` by more than that
     earlier value's OLS standard error, largest moves (in standard errors) first."""
+    from fieldslope.tui.estimate_cache import kept
+
+    if then_batch <= 0:
+        return []
+    # kept for the next run on the same record (tui.estimate_cache)
+    return kept(study, {"what": "moved", "then": then_batch}, lambda: _moved(study, then_batch), say)
+
+
+def _moved(study, then_batch: int) -> list[dict]:
     from fieldslope.tui.bridge import estimates_for_frame
 
     store, protocol = study.store, study.protocol
     now_frame = store.effective_frame()
     if now_frame.empty:
         return []
-    now = estimates_for_frame(now_frame, protocol, bootstrap=0).table
-    then_frame = store.effective_frame(as_of_batch=then_batch) if then_batch > 0 else None
-    if then_frame is None or then_frame.empty:
+    then_frame = store.effective_frame(as_of_batch=then_batch)
+    if then_frame.empty:
         return []
+    now = estimates_for_frame(now_frame, protocol, bootstrap=0).table
     then = estimates_for_frame(then_frame, protocol, bootstrap=0).table
     key = ["season", "site", "fitness", "quantity", "term"]
     both = then.merge(now, on=key, suffixes=("_then", "_now"))

@@ -138,26 +138,31 @@ def history(args) -> int:
 
 def estimate(args) -> int:
     from fieldslope.tui.bridge import estimates_for_frame
+    from fieldslope.tui.estimate_cache import cached, table_options
 
     with _open(args, readonly=None) as study:
         protocol = study.protocol
         frame = study.store.effective_frame(without_open_outliers=args.without_open_outliers)
         h2 = study.store.heritability()
-    if frame.empty:
-        raise FieldslopeError("no records yet; take in batch files with fieldslope import FILE first.")
-    _check_choice("season", args.season, sorted(frame[protocol.season_col].dropna().astype(str).unique()))
-    if protocol.groups and args.site is not None and args.site != ALL:
-        _check_choice("site", args.site, sorted(frame[protocol.groups[0]].dropna().astype(str).unique()))
-    _check_choice("fitness", args.fitness, list(protocol.fitness))
-    progress = fmt.Progress("estimating")
-    try:
-        est = estimates_for_frame(frame, protocol, bootstrap=args.bootstrap, seed=args.seed, h2=h2 or None,
-                                  progress=progress, pedigree=not args.skip_pedigree,
-                                  season=args.season, random_effects=args.random_effects, site=args.site,
-                                  fitness=args.fitness)
-        # --season, --site and --fitness restrict the work (the rows asked for have the whole table's numbers)
-    finally:
-        progress.done()
+        if frame.empty:
+            raise FieldslopeError("no records yet; take in batch files with fieldslope import FILE first.")
+        _check_choice("season", args.season, sorted(frame[protocol.season_col].dropna().astype(str).unique()))
+        if protocol.groups and args.site is not None and args.site != ALL:
+            _check_choice("site", args.site, sorted(frame[protocol.groups[0]].dropna().astype(str).unique()))
+        _check_choice("fitness", args.fitness, list(protocol.fitness))
+        progress = fmt.Progress("estimating")
+        pedigree = not args.skip_pedigree
+        options = table_options(bootstrap=args.bootstrap, seed=args.seed, season=args.season, site=args.site,
+                                fitness=args.fitness, pedigree=pedigree, without_open_outliers=args.without_open_outliers,
+                                random_effects=args.random_effects)
+        try:
+            # --season, --site and --fitness restrict the work (the rows asked for have the whole table's numbers)
+            est = cached(study, options, lambda: estimates_for_frame(
+                frame, protocol, bootstrap=args.bootstrap, seed=args.seed, h2=h2 or None, progress=progress,
+                pedigree=pedigree, season=args.season, site=args.site, fitness=args.fitness,
+                random_effects=args.random_effects), say=_say_trouble)
+        finally:
+            progress.done()
     table = est.table
     for col, value in (("season", args.season), ("site", args.site), ("fitness", args.fitness)):
         if value is not None:
@@ -177,6 +182,10 @@ def estimate(args) -> int:
     else:
         sys.stdout.write(text)
     return 0
+
+
+def _say_trouble(sentence: str) -> None:
+    fmt.say(f"fieldslope: {sentence}", file=sys.stderr)
 
 
 def _note_matches(note, args) -> bool:
@@ -224,7 +233,7 @@ def summary(args) -> int:
         progress = fmt.Progress("summary")
         try:
             info = view.gather(study, fitness=args.fitness, bootstrap=args.bootstrap, seed=args.seed,
-                               progress=progress)
+                               progress=progress, say=_say_trouble)
         finally:
             progress.done()
     sys.stdout.write(json.dumps(info, indent=1, allow_nan=False) + "\n" if args.format == "json"
@@ -239,7 +248,7 @@ def changes(args) -> int:
 
     started = datetime.now(timezone.utc)
     with _open(args, readonly=True) as study:
-        info = view.gather(study, args.since)
+        info = view.gather(study, args.since, say=_say_trouble)
         root = study.root
     sys.stdout.write(json.dumps(info, indent=1, allow_nan=False) + "\n" if args.format == "json"
                      else view.text(info))
@@ -257,7 +266,7 @@ def report(args) -> int:
     with _open(args, readonly=True) as study:
         progress = fmt.Progress("report")
         try:
-            result = page.build(study, options, progress=progress)
+            result = page.build(study, options, progress=progress, say=_say_trouble)
         finally:
             progress.done()
     written = page.write(result, Path(args.output), Path(args.figures) if args.figures else None)

@@ -146,11 +146,13 @@ def quantity_order(names) -> list[str]:
     return [q for q in ORDER if q in names] + sorted(q for q in names if q not in ORDER)
 
 
-def build(study, options: Options, progress=None) -> Report:
-    """The whole page for ``study`` (a schemas.study.Study)."""
+def build(study, options: Options, progress=None, say=None) -> Report:
+    """The whole page for ``study`` (a schemas.study.Study); ``say`` hears a sentence when what was worked
+    out cannot be kept for the next run (``tui.estimate_cache``)."""
     from fieldslope.common.errors import FieldslopeError
     from fieldslope.tui import report_figures as figs
     from fieldslope.tui.bridge import estimates_for_frame
+    from fieldslope.tui.estimate_cache import cached, table_options
     from fieldslope.tui.summary import gather as summary_cells
 
     protocol, store = study.protocol, study.store
@@ -163,20 +165,23 @@ def build(study, options: Options, progress=None) -> Report:
     seasons_all = sorted(frame[protocol.season_col].dropna().astype(str).unique())
     if options.season is not None and options.season not in seasons_all:
         raise FieldslopeError(f"there is no season {options.season!r} on record; choose one of {', '.join(seasons_all)}.")
-    est = estimates_for_frame(frame, protocol, bootstrap=options.bootstrap, seed=options.seed,
-                              h2=store.heritability() or None, progress=progress)
+    # one fitness measure (the whole table's numbers for it), kept for the next run (tui.estimate_cache)
+    est = cached(study, table_options(bootstrap=options.bootstrap, seed=options.seed, fitness=fitness),
+                 lambda: estimates_for_frame(frame, protocol, bootstrap=options.bootstrap, seed=options.seed,
+                                             h2=store.heritability() or None, progress=progress, fitness=fitness),
+                 say=say)
     table = est.table
     sites_all = sorted(s for s in set(table["site"]) if s != ALL)
     if options.site is not None and options.site != ALL and options.site not in sites_all:
         raise FieldslopeError(f"there is no site {options.site!r} on record; choose one of {', '.join(sites_all)} or all.")
     seasons = [options.season] if options.season else seasons_all
-    info = summary_cells(study, bootstrap=0)
+    info = summary_cells(study, bootstrap=0, say=say)
     batches = store.batches()
     figures: list = []
     out: list[str] = []
     w = out.append
     pg = _Page(study, protocol, store, frame, est, table, options, fitness, seasons, seasons_all, sites_all,
-               info, batches, figures, w, figs, options.site or ALL, list(protocol.trait_names))
+               info, batches, figures, w, figs, options.site or ALL, list(protocol.trait_names), say)
     for section in (_page_head, _study_section, _selection_section, _fitness_functions_section,
                     _surfaces_section, _across_section, _response_section, _closing_sections):
         section(pg)
@@ -206,6 +211,7 @@ class _Page:
     figs: object
     pic_site: str
     traits: list
+    say: object = None     # hears a sentence when a result cannot be kept for the next run
 
 
 def _page_head(pg: _Page) -> None:
@@ -265,7 +271,10 @@ def _study_section(pg: _Page) -> None:
           + "".join(f"<td class=\"num\">{c['measured'].get(m, 0)}</td>" for m in measures)
           + f"<td class=\"num\">{c['open_flags']}</td></tr>")
     w("</table>")
-    series, days = _intake_series(store, protocol, batches)
+    from fieldslope.tui.estimate_cache import kept
+
+    days = _intake_days(batches)
+    series = kept(pg.study, {"what": "intake series"}, lambda: _intake_series(store, protocol, batches), pg.say)
     if series:
         fig = figs.intake_figure(series, "intake", png=options.png)
         figures.append(fig)
@@ -324,6 +333,7 @@ def _fitness_functions_section(pg: _Page) -> None:
         pg.protocol, pg.frame, pg.options, pg.fitness, pg.seasons, pg.figures, pg.w, pg.figs, pg.pic_site)
     from fieldslope.analysis.fitness_spline import fitness_function
     from fieldslope.analysis.table import DEFAULT_SEED
+    from fieldslope.tui.estimate_cache import kept
 
     w(f"<h2 id=\"{_slug('Fitness functions')}\">Fitness functions</h2>")
     w("<p class=\"note\">Relative fitness against each standardized trait (within cells), with a cubic smoothing "
@@ -337,9 +347,12 @@ def _fitness_functions_section(pg: _Page) -> None:
             if len(x) < 5:
                 w(f"<p class=\"note\">{esc(trait)}, {esc(where)}: too few individuals for a curve.</p>")
                 continue
-            try:
-                ff = fitness_function(x, W, cells, resamples=options.bootstrap, seed=seed,
-                                      labels=(season, pic_site, trait))
+            try:     # the band's resamples are the slow part: kept for the next run on the same record
+                ff = kept(pg.study, {"what": "fitness function", "season": season, "site": pic_site, "trait": trait,
+                                     "fitness": fitness, "resamples": options.bootstrap, "seed": seed},
+                          lambda: fitness_function(x, W, cells, resamples=options.bootstrap, seed=seed,
+                                                   labels=(season, pic_site, trait)),
+                          pg.say, encode=_plain_curve, decode=_curve)
             except ValueError as exc:
                 w(f"<p class=\"note\">{esc(trait)}, {esc(where)}: no curve ({esc(exc)}).</p>")
                 continue
@@ -572,8 +585,8 @@ def _cell_data(frame, protocol, season, site, trait, fitness, paired: str | None
     return x[keep], W[keep], labels[keep]
 
 
-def _intake_series(store, protocol, batches):
-    """Individuals on record per site after each batch that changed them, and intake by day."""
+def _intake_days(batches) -> dict:
+    """Intake by day: batches, refused, rows stored and operators."""
     days: dict = {}
     for b in batches:
         d = days.setdefault(str(b.received)[:10], {"batches": 0, "refused": 0, "stored": 0, "operators": set()})
@@ -581,6 +594,29 @@ def _intake_series(store, protocol, batches):
         d["refused"] += b.outcome == "refused"
         d["stored"] += int(b.n_stored or 0)
         d["operators"].add(b.operator)
+    return days
+
+
+def _plain_curve(ff) -> dict:
+    """A fitness function as plain data (arrays as lists of floats, written exactly)."""
+    fit = ff.fit
+    return {"grid": ff.grid.tolist(), "curve": ff.curve.tolist(), "low": ff.low.tolist(), "high": ff.high.tolist(),
+            "n": ff.n, "resamples": ff.resamples, "knots": fit.knots.tolist(), "g": fit.g.tolist(),
+            "gamma": fit.gamma.tolist(), "lam": fit.lam, "edf": fit.edf, "gcv": fit.gcv}
+
+
+def _curve(d: dict):
+    import numpy as np
+
+    from fieldslope.analysis.fitness_spline import FitnessFunction, SplineFit
+
+    arr = {k: np.array(d[k], dtype=np.float64) for k in ("grid", "curve", "low", "high", "knots", "g", "gamma")}
+    fit = SplineFit(arr["knots"], arr["g"], arr["gamma"], float(d["lam"]), float(d["edf"]), float(d["gcv"]))
+    return FitnessFunction(arr["grid"], arr["curve"], arr["low"], arr["high"], fit, int(d["n"]), int(d["resamples"]))
+
+
+def _intake_series(store, protocol, batches) -> dict:
+    """Individuals on record per site after each batch that changed them: {site: [(batch, n), ...]}."""
     series: dict = {}
     groups = list(protocol.groups)
     last = None
@@ -604,7 +640,7 @@ def _intake_series(store, protocol, batches):
             points.insert(0, (taken[0], 0))
         if taken and points[-1][0] < taken[-1]:
             points.append((taken[-1], points[-1][1]))
-    return dict(sorted(series.items())), days
+    return dict(sorted(series.items()))
 
 
 def changes_html(info: dict) -> str:

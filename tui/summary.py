@@ -43,15 +43,25 @@ def _site_of(frame, protocol):
 
 
 def gather(study, *, fitness: str | None = None, bootstrap: int = 2000, seed: int | None = None,
-           progress=None) -> dict:
-    """Everything the summary shows, as plain data (the JSON output is exactly this)."""
+           progress=None, say=None) -> dict:
+    """Everything the summary shows, as plain data (the JSON output is exactly this). It is kept for the
+    next run on the same record (``tui.estimate_cache``: a new batch, resolution or h² makes it anew);
+    ``say`` hears a sentence when it cannot be kept."""
     from fieldslope.common.errors import FieldslopeError
+    from fieldslope.tui.estimate_cache import kept
 
-    protocol, store = study.protocol, study.store
+    protocol = study.protocol
     if fitness is not None and fitness not in protocol.fitness:
         raise FieldslopeError(f"there is no fitness measure {fitness!r}; choose one of "
                               f"{', '.join(protocol.fitness)}.")
     fitness = fitness or default_fitness(protocol)
+    info = kept(study, {"what": "summary", "fitness": fitness, "bootstrap": bootstrap, "seed": seed},
+                lambda: _gather(study, fitness, bootstrap, seed, progress), say)
+    return info | {"study": str(study.root)}      # as this run names the folder, not as the one that kept it
+
+
+def _gather(study, fitness: str, bootstrap: int, seed: int | None, progress) -> dict:
+    protocol, store = study.protocol, study.store
     frame = store.effective_frame()
     flags = store.flags()
     batches = store.batches()
@@ -107,8 +117,9 @@ def _latest_gradients(frame, protocol, fitness: str, bootstrap: int, seed, progr
     latest = sorted(frame[season_col].dropna().astype(str).unique())[-1]
     one = frame[frame[season_col].astype(str) == latest].reset_index(drop=True)
     # the latest season alone: its resamples depend only on the seed and the season's own rows,
-    # so these are the very numbers of the full estimates table (a test checks it)
-    est = estimates_for_frame(one, protocol, bootstrap=bootstrap, seed=seed, progress=progress)
+    # so these are the very numbers of the full estimates table (a test checks it); one fitness
+    # measure computed (the same numbers as with all)
+    est = estimates_for_frame(one, protocol, bootstrap=bootstrap, seed=seed, progress=progress, fitness=fitness)
     t = est.table
     t = t[(t["season"] == latest) & (t["site"] == ALL) & (t["fitness"] == fitness) & (t["quantity"] == Q.GRADIENT)]
     if t.empty:    # one cell only: its own rows are the season's estimate
