@@ -451,3 +451,23 @@ def test_estimate_random_effects_option_and_tau2_written_one_way(folder, protoco
     tau = [line for line in out.splitlines() if line.startswith("gradient_tau2") and " wing " in line]
     assert len(tau) == 1 and tau[0].split()[2] == tau2_text(got["dl"][("gradient_tau2", "wing")]["estimate"])
     assert tau2_text(0.000123456) == "0.000123" and tau2_text(12.3456) == "12.3" and tau2_text(None) == ""
+
+
+def test_bootstrap_0_leaves_the_animal_models_out_unless_asked(folder, protocol_file, capsys, monkeypatch):
+    """--bootstrap 0 is the quick look (point estimates): the slow pedigree fit only with --pedigree."""
+    from fieldslope.tui import bridge
+
+    study = str(folder / "st")
+    assert main(["init", study, "--protocol", str(protocol_file)]) == 0
+    assert main(["import", str(folder / "measured.csv"), "--study", study]) == 0
+    capsys.readouterr()
+    fits = []
+    real = bridge.pedigree_genetics
+    monkeypatch.setattr(bridge, "pedigree_genetics", lambda *a, **k: fits.append(1) or real(*a, **k))
+    code, out, err = call(capsys, "estimate", "--bootstrap", "0", "--format", "csv", "--study", study)
+    assert code == 0 and fits == [] and "add --pedigree" in one_line(err)
+    code, out, err = call(capsys, "estimate", "--bootstrap", "0", "--pedigree", "--format", "csv", "--study", study)
+    assert code == 0 and fits == [1] and err == ""
+    code, _, err = call(capsys, "estimate", "--bootstrap", "0", "--skip-pedigree", "--study", study)
+    assert code == 0 and fits == [1] and err == ""
+    assert call(capsys, "estimate", "--pedigree", "--skip-pedigree", "--study", study)[0] == 2

@@ -108,8 +108,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--fitness", metavar="NAME", help="only this fitness component or total")
     p.add_argument("--without-open-outliers", action="store_true",
                    help="leave out values with open outlier flags too (sensitivity)")
-    p.add_argument("--skip-pedigree", action="store_true",
-                   help="no animal models (the pedigree rows take a while on large studies)")
+    ped = p.add_mutually_exclusive_group()
+    ped.add_argument("--skip-pedigree", action="store_true",
+                     help="no animal models (the pedigree rows take a while on large studies)")
+    ped.add_argument("--pedigree", action="store_true",
+                     help="fit the animal models with --bootstrap 0 too (by default that quick look leaves them out)")
     p.add_argument("--random-effects", choices=("dl", "hk"), default="dl",
                    help="interval of the mean gradient across seasons when tau² > 0: dl, DerSimonian-Laird "
                         "(normal; default), or hk, Hartung-Knapp (t, wider with few seasons)")

@@ -151,7 +151,11 @@ def estimate(args) -> int:
             _check_choice("site", args.site, sorted(frame[protocol.groups[0]].dropna().astype(str).unique()))
         _check_choice("fitness", args.fitness, list(protocol.fitness))
         progress = fmt.Progress("estimating")
-        pedigree = not args.skip_pedigree
+        # --bootstrap 0 is the quick look: no animal models unless asked for (they take seconds to minutes)
+        pedigree = not args.skip_pedigree and (args.bootstrap > 0 or args.pedigree)
+        if not pedigree and not args.skip_pedigree and protocol.parent_cols:
+            fmt.say("fieldslope: --bootstrap 0 leaves the animal models (pedigree h², r_g) out; add --pedigree "
+                    "to fit them.", file=sys.stderr)
         options = table_options(bootstrap=args.bootstrap, seed=args.seed, season=args.season, site=args.site,
                                 fitness=args.fitness, pedigree=pedigree, without_open_outliers=args.without_open_outliers,
                                 random_effects=args.random_effects)
