@@ -262,3 +262,30 @@ def test_canonical_loading_intervals_from_sign_aligned_resamples_cover_the_true_
                 total += 1
                 assert r["ci_low"] > 0 or r["ci_high"] < 0 or abs(true[t, i]) < 0.5
     assert hits / total >= 0.90, hits / total
+
+
+@pytest.mark.parametrize("slope", [0.0, 0.9, 2.2])
+def test_batched_logistic_stops_within_its_stated_tolerance(slope):
+    """Resamples fitted at once stop on a Newton step below STEP_TOL; every coefficient and logistic
+    gradient is then within RESULT_TOL (relative to max(1, |value|)) of the maximum-likelihood fit of
+    the drawn individuals by statsmodels Logit (reference library; Newton's method, tol 1e-13). Started
+    from zero, so the stopping rule, not a close start, brings them there."""
+    from fieldslope.analysis.logistic import RESULT_TOL, batched_logistic
+    from fieldslope.analysis.point import with_intercept
+
+    rng = np.random.default_rng(int(slope * 10) + 3)
+    n, k, B = 160, 3, 60
+    x = rng.normal(size=(n, k - 1))
+    y = (rng.random(n) < 1 / (1 + np.exp(-(0.3 + x @ np.array([slope, -0.6 * slope]))))).astype(float)
+    X = with_intercept(x)
+    idx = rng.integers(0, n, size=(B, n))
+    T = np.broadcast_to(np.eye(k), (B, k, k)).copy()
+    beta, mean_pq, mean_w, ok = batched_logistic([(X, y, counts_from_indices(idx, n), T)], np.zeros((B, k)))
+    assert ok.all()
+    for b in range(B):
+        fit = sm.Logit(y[idx[b]], X[idx[b]]).fit(disp=0, tol=1e-13, maxiter=200)
+        p = fit.predict()
+        grad = fit.params[1:] * np.mean(p * (1 - p)) / y[idx[b]].mean()
+        assert np.max(np.abs(beta[b] - fit.params)) <= RESULT_TOL * max(1.0, np.max(np.abs(fit.params)))
+        mine = beta[b, 1:] * mean_pq[b] / mean_w[b]
+        assert np.max(np.abs(mine - grad)) <= RESULT_TOL * max(1.0, np.max(np.abs(grad)))
