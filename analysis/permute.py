@@ -132,12 +132,32 @@ def permuted_products(design: CellDesign, idx: np.ndarray) -> np.ndarray:
     K = np.empty((s, d, design.Y.shape[1]))
     K[:, 0, :] = design.Y.sum(axis=0)
     Xf, YT = design.X[:, 1:], np.ascontiguousarray(design.Y.T)
-    step = max(1, BLOCK // max(1, (d - 1) * n))
+    step = block_rows(design)
     for lo in range(0, s, step):
         part = idx[lo : lo + step]
         G = np.take(Xf, part.T, axis=0)  # n x s' x (d - 1): row i of permutation b is row part[b, i] of X
         K[lo : lo + len(part), 1:, :] = (YT @ G.reshape(n, -1)).reshape(-1, len(part), d - 1).transpose(1, 2, 0)
     return K
+
+
+def block_rows(design: CellDesign) -> int:
+    """Permutations per matrix product: the permuted design stays near BLOCK numbers."""
+    n, d = design.X.shape
+    return max(1, BLOCK // max(1, (d - 1) * n))
+
+
+def drawn_products(design: CellDesign, rng: np.random.Generator, size: int, needed: bool) -> np.ndarray | None:
+    """``permuted_products`` of ``size`` permutations drawn here block by block (the draws of one
+    ``permutation_indices`` call for all, so the same seed gives the same permutations), keeping only a
+    block's row orders at once: memory stays near BLOCK numbers however large n. Not ``needed``: the
+    permutations are only drawn (the stream goes on as for the whole table), None."""
+    n, step = design.X.shape[0], block_rows(design)
+    parts = []
+    for lo in range(0, size, step):
+        idx = permutation_indices(rng, n, min(step, size - lo))
+        if needed:
+            parts.append(permuted_products(design, idx))
+    return np.concatenate(parts) if needed else None
 
 
 def permutation_indices(rng: np.random.Generator, n: int, size: int) -> np.ndarray:
@@ -212,6 +232,10 @@ class SeasonPermuter:
         permuted design is row order[i]); differentials of samples other than the complete cases use
         ``fitness_of(f, c, sample)`` (s x n shuffled fitness)."""
         K = {key: permuted_products(self.designs[key], idx) for key, idx in orders.items() if key in self.needed}
+        return self.statistics_of(K, fitness_of)
+
+    def statistics_of(self, K: dict[tuple, np.ndarray], fitness_of) -> dict[tuple, np.ndarray]:
+        """All statistics from the permuted products ``K`` of the needed designs (``permuted_products``)."""
         out = self.differential_statistics(K, fitness_of)
         for tests in self.tests:
             d = tests.L.shape[1]
@@ -278,8 +302,8 @@ class SeasonPermuter:
                 cache[key] = shuffled(rng, s.W, size)
             return cache[key]
 
-        orders = {key: permutation_indices(rng, d.X.shape[0], size) for key, d in self.designs.items()}
-        return self.statistics(orders, fitness_of)
+        K = {key: drawn_products(d, rng, size, key in self.needed) for key, d in self.designs.items()}
+        return self.statistics_of({key: k for key, k in K.items() if k is not None}, fitness_of)
 
 
 def permutation_p(observed: float, replicates: np.ndarray) -> float:
