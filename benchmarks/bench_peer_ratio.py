@@ -32,25 +32,13 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 ONE_THREAD = {k: "1" for k in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")}
 
-PROTOCOL = """[study]
-name = "peer ratio"
-id = "id"
-season = "season"
-groups = ["site"]
+def protocol_text(parents: bool = False) -> str:
+    """A protocol for invented studies: three traits, 0/1 survival, dams and sires when ``parents``."""
+    text = ('[study]\nname = "benchmark"\nid = "tag"\nseason = "season"\ngroups = ["site"]\n'
+            + "".join(f"[traits.{t}]\nmin = -50\nmax = 200\n" for t in ("length", "depth", "spots"))
+            + '[fitness.survived]\nkind = "binary"\n')
+    return text + ('[parents]\nmother = "dam"\nfather = "sire"\n' if parents else "")
 
-[traits.length]
-min = 0
-max = 200
-[traits.depth]
-min = -50
-max = 100
-[traits.spots]
-min = -50
-max = 100
-
-[fitness.survived]
-kind = "binary"
-"""
 
 PEER = """
 import sys, time
@@ -58,7 +46,7 @@ sys.path.insert(0, {here!r})
 t0 = time.perf_counter()
 import pandas as pd
 import bench_estimation as be
-frame = pd.read_csv({csv!r}).rename(columns={{"survived": "alive"}})
+frame = pd.read_csv({csv!r}).rename(columns={{"survived": "alive", "tag": "id"}})
 t1 = time.perf_counter()
 be.statsmodels_loop(frame, {resamples})
 print(t1 - t0, time.perf_counter() - t1)
@@ -90,12 +78,12 @@ def main() -> None:
     env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"} | ONE_THREAD
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
-        frame = be.study(args.individuals).rename(columns={"alive": "survived"})
+        frame = be.study(args.individuals).rename(columns={"alive": "survived", "id": "tag"})
         frame["survived"] = frame["survived"].astype(int)
         frame["season"] = "2024"                                   # a season is a year
         csv = tmp / "peer_batch.csv"
         frame.to_csv(csv, index=False)
-        (tmp / "protocol.toml").write_text(PROTOCOL)
+        (tmp / "protocol.toml").write_text(protocol_text())
         study = tmp / "study"
         cli = [sys.executable, "-m", "fieldslope.tui.cli"]
         subprocess.run([*cli, "init", str(study), "--protocol", str(tmp / "protocol.toml")], check=True,

@@ -58,43 +58,27 @@ def whole(argv: list[str], runs: int, cache: Path | None = None) -> tuple[float,
     return statistics.median(walls), statistics.median(cpus)
 
 
-PROTOCOL = """[study]
-name = "start-up"
-id = "tag"
-season = "season"
-groups = ["site"]
-[traits.length]
-min = 0
-max = 200
-[traits.depth]
-min = -50
-max = 100
-[fitness.survived]
-kind = "binary"
-[parents]
-mother = "dam"
-father = "sire"
-"""
-
-
 def make_study(folder: Path, n: int, python: str) -> str:
     """A study of ``n`` invented individuals: half in 2023, half in 2024 with parents from 2023."""
     import numpy as np
 
     rng = np.random.default_rng(5)
     half = n // 2
-    lines = ["tag,season,site,length,depth,survived,dam,sire"]
+    lines = ["tag,season,site,length,depth,spots,survived,dam,sire"]
     for i in range(n):
         season, site = ("2023", i) if i < half else ("2024", i)
         dam = sire = ""
         if i >= half:
             dam, sire = f"T{2 * rng.integers(0, half // 2):06d}", f"T{2 * rng.integers(0, half // 2) + 1:06d}"
-        length, depth = rng.normal(50, 5), rng.normal(12, 2)
+        length, depth, spots = rng.normal(50, 5), rng.normal(12, 2), rng.normal(8, 3)
         alive = int(rng.random() < 1 / (1 + np.exp(-(0.08 * (length - 50)))))
-        lines.append(f"T{i:06d},{season},{('lower', 'middle', 'upper')[site % 3]},{length:.2f},{depth:.2f},{alive},"
+        lines.append(f"T{i:06d},{season},{('lower', 'middle', 'upper')[site % 3]},{length:.2f},{depth:.2f},{spots:.2f},{alive},"
                      f"{dam},{sire}")
     (folder / "batch.csv").write_text("\n".join(lines) + "\n")
-    (folder / "protocol.toml").write_text(PROTOCOL)
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    from bench_peer_ratio import protocol_text
+
+    (folder / "protocol.toml").write_text(protocol_text(parents=True))
     study = str(folder / "study")
     for argv in (["init", study, "--protocol", str(folder / "protocol.toml")],
                  ["import", str(folder / "batch.csv"), "--study", study]):
