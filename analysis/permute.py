@@ -50,6 +50,7 @@ class CellDesign:
     fcol: dict[str, int] = field(default_factory=dict)  # fitness -> its column in Y
     w: list[np.ndarray] = field(default_factory=list)  # relative fitness per column
     Y: np.ndarray | None = None  # [X, w ...], n x (d + F)
+    YT: np.ndarray | None = None  # Y transposed, contiguous (made once: every block of permutations uses it)
 
 
 @dataclass
@@ -131,7 +132,7 @@ def permuted_products(design: CellDesign, idx: np.ndarray) -> np.ndarray:
     s = len(idx)
     K = np.empty((s, d, design.Y.shape[1]))
     K[:, 0, :] = design.Y.sum(axis=0)
-    Xf, YT = design.X[:, 1:], np.ascontiguousarray(design.Y.T)
+    Xf, YT = design.X[:, 1:], design.YT
     step = block_rows(design)
     for lo in range(0, s, step):
         part = idx[lo : lo + step]
@@ -205,6 +206,7 @@ class SeasonPermuter:
         self.needed |= {key for (f, c), (key, _) in self.parts.items() if self.wanted(f, c)}
         for design in self.designs.values():
             design.Y = np.column_stack([design.X, *design.w])
+            design.YT = np.ascontiguousarray(design.Y.T)
 
     def wanted(self, f: str, c: int) -> bool:
         return f in self.wanted_fitness and c in self.wanted_cells
