@@ -33,15 +33,15 @@ CODE = ("bridge.py", "estimate_cache.py", "summary.py", "changes.py")
 def code_digest() -> str:
     """Digest of the estimators' sources (``fieldslope.analysis``) and of the modules here that shape what
     is kept (``CODE``): results kept by another version of the code are never read back."""
-    import importlib.util
+    from importlib.resources import files
 
-    spec = importlib.util.find_spec("fieldslope.analysis")
     h = hashlib.sha256()
-    for folder in spec.submodule_search_locations or ():
-        for path in sorted(Path(folder).glob("*.py")):
-            h.update(path.name.encode() + b"\0" + path.read_bytes())
+    analysis = files("fieldslope.analysis")
+    for entry in sorted((e for e in analysis.iterdir() if e.name.endswith(".py")), key=lambda e: e.name):
+        h.update(entry.name.encode() + b"\0" + entry.read_bytes())
+    here = files("fieldslope.tui")
     for name in CODE:
-        h.update(Path(__file__).with_name(name).read_bytes())
+        h.update(here.joinpath(name).read_bytes())
     return h.hexdigest()
 
 
