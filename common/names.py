@@ -67,11 +67,14 @@ class Kind:
     MISSING_FITNESS: Final = "missing_fitness"
     DUPLICATE_ID: Final = "duplicate_id"
     MANGLED_ID: Final = "mangled_id"
+    ID_PATTERN: Final = "id_pattern"            # an ID that does not match the protocol's [checks] id_pattern
+    SEASON_RANGE: Final = "season_range"        # a season outside the protocol's [checks] seasons
     # from the sheet against the record
     OUTLIER: Final = "outlier"
     DIFFERS_FROM_RECORD: Final = "differs_from_record"
     UNKNOWN_PARENT: Final = "unknown_parent"
     QUARANTINED: Final = "quarantined"
+    LOOKALIKE_ID: Final = "lookalike_id"        # a new ID that reads like one on record (case, spaces, O/0 ...)
 
 
 #: Every flag kind.
@@ -87,6 +90,9 @@ FLAG_LABELS: Final = {
     Kind.MANGLED_ID: "mangled ID",
     Kind.QUARANTINED: "quarantined",
     Kind.UNKNOWN_PARENT: "unknown parent",
+    Kind.LOOKALIKE_ID: "look-alike ID",
+    Kind.ID_PATTERN: "ID off pattern",
+    Kind.SEASON_RANGE: "season off range",
 }
 
 

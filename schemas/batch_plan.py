@@ -26,9 +26,11 @@ class BatchPlan:
     @property
     def notes(self) -> tuple[str, ...]:
         """What the reader says about how the file was read (further worksheets left out, a guessed
-        encoding): shown with the check and kept with the batch."""
-        sheet = self.report.sheet if self.report is not None else None
-        return tuple(sheet.notes) if sheet is not None else ()
+        encoding), then what the checks say about the whole sheet (columns not in the protocol, likely
+        causes of odd values): shown with the check and kept with the batch."""
+        if self.report is None:
+            return ()
+        return (*self.report.sheet.notes, *self.report.notes)
 
     @classmethod
     def make(cls, protocol: Protocol, name: str, data: bytes, progress: Progress) -> "BatchPlan":

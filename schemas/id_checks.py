@@ -10,7 +10,7 @@ from __future__ import annotations
 import re
 import unicodedata
 from collections import Counter
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 
 _MONTH = r"(?:jan|feb|mar|apr|may|jun|jul|aug|sep|sept|oct|nov|dec)[a-z]*\.?"
 _DATE_FORMS = [
@@ -75,3 +75,55 @@ def _padded_length(texts: list[str], forms: list[str | None], lengths: Counter) 
     zero_padded = any(len(t) == length and t.startswith("0") and f in ("five", "digits")
                       for t, f in zip(texts, forms))
     return length if zero_padded and n * 2 > len(texts) else 0
+
+
+# -- IDs that read like another ------------------------------------------------------------------
+
+# Characters read or typed for one another (common practice of field sheets and handwriting): each maps
+# to the digit it is taken for, after case is folded.
+_LOOKALIKE = str.maketrans({"o": "0", "q": "0", "i": "1", "l": "1", "|": "1", "s": "5", "z": "2", "b": "8",
+                            "g": "6"})
+
+
+_SEPARATORS = re.compile(r"[\s\-_./]+")
+
+
+def id_key(text: str) -> str:
+    """An ID with case, spaces and separators (- _ . /) and look-alike characters (O/0, l/1/I, S/5, Z/2, B/8,
+    G/6) folded: two IDs with the same key read alike on a sheet."""
+    folded = _SEPARATORS.sub("", unicodedata.normalize("NFKC", text).casefold())
+    return folded.translate(_LOOKALIKE)
+
+
+class LookalikeIndex:
+    """The IDs on record by their :func:`id_key`, to name the one a new ID reads like."""
+
+    def __init__(self, known: Iterable[str]):
+        self.known = set(known)
+        self.by_key: dict[str, str] = {}
+        for ind in self.known:
+            key = id_key(ind)
+            other = self.by_key.get(key)
+            self.by_key[key] = ind if other is None else min(ind, other)   # the same one whatever the order
+
+    def match(self, ind: str) -> str | None:
+        """The ID on record that ``ind`` reads like, when ``ind`` itself is not on record."""
+        if ind in self.known:
+            return None
+        return self.by_key.get(id_key(ind))
+
+
+def how_they_differ(new: str, old: str) -> str:
+    """In what the two IDs differ, in plain words: case, spaces, look-alike characters (``O for 0``)."""
+    parts = []
+    a, b = _SEPARATORS.sub("", new), _SEPARATORS.sub("", old)
+    if _SEPARATORS.findall(new) != _SEPARATORS.findall(old):
+        parts.append("spaces or separators")
+    if a != b and a.casefold() == b.casefold():
+        parts.append("case")
+    elif a.casefold() != b.casefold():
+        swaps = []
+        if len(a) == len(b):
+            swaps = sorted({f"{x} for {y}" for x, y in zip(a, b) if x.casefold() != y.casefold()})
+        parts.append("look-alike characters" + (f" ({', '.join(swaps[:3])})" if swaps else ""))
+    return " and ".join(parts) or "look-alike characters"

@@ -61,6 +61,8 @@ class Protocol:
     outlier_z: float = 4.0
     allowed: dict[str, tuple[str, ...]] = field(default_factory=dict)
     missing_codes: tuple[str, ...] = ("",)
+    id_pattern: str | None = None                 # [checks] id_pattern: every ID should match it whole
+    seasons: tuple[int, int] | None = None        # [checks] seasons = [first, last]: plausible seasons
 
     @property
     def trait_names(self) -> tuple[str, ...]:
@@ -225,6 +227,8 @@ class _Builder:
         elif outlier_z <= 0:
             raise self.fail("checks", "outlier_z", "must be positive", "a robust z of 3.5 to 5 is common practice")
         missing = self.text_list("checks", checks, "missing") if "missing" in checks else ()
+        id_pattern = self.id_pattern(checks)
+        seasons = self.season_range(checks)
         allowed_tbl = self.table("checks.allowed")
         allowed = {}
         for col in allowed_tbl:
@@ -257,7 +261,35 @@ class _Builder:
             outlier_z=outlier_z,
             allowed=allowed,
             missing_codes=("", *missing),
+            id_pattern=id_pattern,
+            seasons=seasons,
         )
+
+    def id_pattern(self, checks: dict) -> str | None:
+        """``[checks] id_pattern``: a regular expression every ID should match whole."""
+        pattern = self.text_key("checks", checks, "id_pattern")
+        if pattern is None:
+            return None
+        try:
+            re.compile(pattern)
+        except re.error as exc:
+            raise self.fail("checks", "id_pattern", f"is not a regular expression ({exc})",
+                            'write e.g. id_pattern = "[A-Z]{2}[0-9]{2}-[0-9]{4}"') from None
+        return pattern
+
+    def season_range(self, checks: dict) -> tuple[int, int] | None:
+        """``[checks] seasons = [first, last]``: the plausible seasons (years), both included."""
+        value = checks.get("seasons")
+        if value is None:
+            return None
+        if (not isinstance(value, list) or len(value) != 2
+                or not all(isinstance(v, int) and not isinstance(v, bool) and 1000 <= v <= 9999 for v in value)):
+            raise self.fail("checks", "seasons", f"must be two years, first and last, not {value!r}",
+                            "write e.g. seasons = [2020, 2030]")
+        if value[0] > value[1]:
+            raise self.fail("checks", "seasons", f"runs backwards ({value[0]} after {value[1]})",
+                            "write the first season first")
+        return value[0], value[1]
 
     def check_name(self, table: str, name: str) -> None:
         if not _NAME.match(name) or name.lower() in RESERVED_COLUMNS:

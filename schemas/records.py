@@ -48,7 +48,7 @@ class FlagNote:
     individual: str     # ID
     season: str
     field: str          # trait / fitness column, or "" for whole-record flags
-    kind: str           # out_of_range | outlier | missing_fitness | differs_from_record | duplicate_id | mangled_id
+    kind: str           # a flag kind of common.names.Kind (out_of_range, outlier, lookalike_id, ...)
     value: str
     message: str
 
@@ -68,6 +68,9 @@ class CheckReport:
     bad_rows: list[int] = field(default_factory=list)
     # True for a fitness census: ID + season + fitness only, completing earlier records
     census: bool = False
+    # sentences about the whole sheet: columns the protocol does not name (kept in the stored file, not
+    # used), likely causes of many odd values (two columns swapped, another unit); kept with the batch
+    notes: tuple[str, ...] = ()
 
     @property
     def n_rows(self) -> int:

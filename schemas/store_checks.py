@@ -1,5 +1,5 @@
 """Checks that need the record: census rows for unknown IDs, values that differ from the
-record, robust outliers within a cell, unknown parents.
+record, robust outliers within a cell, unknown parents, new IDs that read like one on record.
 
 Pure functions on pandas frames; the store supplies the current record (one row per
 individual and season, columns = protocol fields) and the batch's valid rows.
@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from fieldslope.common.names import Kind
+from fieldslope.schemas.id_checks import LookalikeIndex, how_they_differ, id_key
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import FlagNote, RowError
 from fieldslope.schemas.store_types import show
@@ -23,10 +24,16 @@ def census_unknown(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame
     keys = pd.MultiIndex.from_arrays([valid[protocol.id_col].astype(str), valid[protocol.season_col].astype(str)])
     known = keys.isin(record.index) if len(record) else np.zeros(len(valid), dtype=bool)
     out = []
+    alike = None
     for (ind, season), row, ok in zip(keys, valid["_row"], known):
         if not ok:
+            if alike is None:
+                alike = LookalikeIndex(record.index.get_level_values(0).astype(str) if len(record) else ())
+            twin = alike.match(ind)
+            hint = (f" ({twin!r} is, differing only in {how_they_differ(ind, twin)}: if that is meant, correct "
+                    "the ID)") if twin else ""
             out.append(RowError(int(row), protocol.id_col, ind,
-                                f"is not on record in season {season}; a fitness census only completes "
+                                f"is not on record in season {season}{hint}; a fitness census only completes "
                                 "individuals already recorded: import their measurements first or correct the ID"))
     return out
 
@@ -129,4 +136,38 @@ def unknown_parents(protocol: Protocol, valid: pd.DataFrame, known_ids: set[str]
             out.append(FlagNote(int(valid["_row"].iloc[i]), ind, season, col, Kind.UNKNOWN_PARENT, parent,
                                 f"{col} {parent!r} of {ind} is not on record in any season; check the ID "
                                 "(heritability uses only parents on record)"))
+    return out
+
+
+def lookalike_ids(protocol: Protocol, valid: pd.DataFrame, known_ids: set[str]) -> list[FlagNote]:
+    """A new ID (not on record in any season) that differs from one on record, or from another new ID of
+    this batch, only in case, spaces or look-alike characters (O/0, l/1/I, S/5 ...): flagged on each row,
+    naming the other ID, so a misread tag never becomes a new individual unnoticed."""
+    if valid.empty:
+        return []
+    ids = valid[protocol.id_col].astype(str).to_numpy(dtype=object)
+    seasons = valid[protocol.season_col].astype(str).to_numpy(dtype=object)
+    rows = valid["_row"].to_numpy()
+    new = [i for i, ind in enumerate(ids) if ind not in known_ids]
+    if not new:
+        return []
+    index = LookalikeIndex(known_ids)
+    by_key: dict[str, set[str]] = {}
+    for i in new:
+        by_key.setdefault(id_key(ids[i]), set()).add(ids[i])
+    out = []
+    for i in new:
+        ind = ids[i]
+        twin = index.match(ind)
+        if twin is not None:
+            where = "is on record"
+        else:
+            others = sorted(by_key[id_key(ind)] - {ind})
+            if not others:
+                continue
+            twin, where = others[0], "is also in this batch"
+        out.append(FlagNote(int(rows[i]), ind, seasons[i], protocol.id_col, Kind.LOOKALIKE_ID, ind,
+                            f"ID {ind!r} is new, but {twin!r} {where} and differs from it only in "
+                            f"{how_they_differ(ind, twin)}; if they are one individual, exclude this row and "
+                            "import it again with the ID corrected; if not, keep it"))
     return out

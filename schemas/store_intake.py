@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import sqlite3
+from dataclasses import replace
 
 import pandas as pd
 
@@ -76,20 +77,26 @@ class Intake:
                 valid = valid[~valid["_row"].isin({e.row for e in extra})]
         bad_rows = sorted({e.row for e in errors})
         n = report.n_rows
-        if errors and not accept_valid:
-            msg = (f"{plan.name}: {len(bad_rows)} of {plural(n, 'row')} {'has' if len(bad_rows) == 1 else 'have'} "
-                   "errors, so nothing was stored; fix them and "
-                   "import again, or import with --accept-valid to store the valid rows and quarantine the others.")
-            return Evaluation(plan, Outcome.REFUSED, errors=errors, message=msg)
         bad = set(bad_rows)
+        # the soft problems of the valid rows: stored as flags, or for a refused batch said by a check
         flags = [f for f in report.flags if f.row not in bad]
         compared = [f for f in self.fields if f in valid.columns and f not in OPTIONAL_TEXT]  # not visit notes
         flags += checks.differs_from_record(p, valid, record, compared)
         flags += checks.new_outliers(p, valid, record)
+        known = None
         if any(c in valid.columns and valid[c].notna().any() for c in p.parent_cols):
             known = {r[0] for r in conn.execute("SELECT DISTINCT individual FROM records")}
             flags += checks.unknown_parents(p, valid, known)
+        if not report.census:
+            if known is None:
+                known = {r[0] for r in conn.execute("SELECT DISTINCT individual FROM records")}
+            flags += checks.lookalike_ids(p, valid, known)
         flags.sort(key=lambda f: f.row)
+        if errors and not accept_valid:
+            msg = (f"{plan.name}: {len(bad_rows)} of {plural(n, 'row')} {'has' if len(bad_rows) == 1 else 'have'} "
+                   "errors, so nothing was stored; fix them and "
+                   "import again, or import with --accept-valid to store the valid rows and quarantine the others.")
+            return Evaluation(plan, Outcome.REFUSED, errors=errors, flags=flags, message=msg)
         outcome = Outcome.PARTIAL if errors else Outcome.STORED
         stored = len(valid)
         msg = f"{plan.name}: {stored} of {plural(n, 'row')} stored" + (
@@ -113,8 +120,8 @@ class Intake:
              len(out.valid) if out.outcome != Outcome.REFUSED else 0,
              len(out.bad_rows) if out.outcome == Outcome.PARTIAL else 0, errors_json, out.message))
         batch_id = cur.lastrowid
-        if out.outcome == Outcome.REFUSED:
-            return out.result(batch_id)
+        if out.outcome == Outcome.REFUSED:     # nothing stored, so no flags to speak of
+            return replace(out.result(batch_id), flags=())
         record_ids = insert_records(conn, self.protocol, self.fields, batch_id, batch_id, out.valid, progress)
         created = now()
         insert_flags(conn, batch_id, out.flags, record_ids, created)

@@ -3,14 +3,20 @@
 Three outcomes, as the intake rules ask:
 
 * the file is refused whole (:class:`SheetError`): no ID or season column, or a
-  column the protocol does not know;
+  column that is a near miss of a protocol column the sheet lacks (``elytrn``);
+  any other column the protocol does not name is kept in the stored file, not
+  used, and said once in the report's notes;
 * hard errors, one :class:`RowError` per bad cell (sheet row, column, value,
   reason): the row is refused;
 * soft flags, one :class:`FlagNote` per finding on an accepted row (refused
   rows get their errors only): ``out_of_range``, ``missing_fitness`` (one flag
   per blank component, so each can be resolved by setting that one value; a
   component column left wholly blank was not measured in this batch and is not
-  flagged), ``duplicate_id`` (every row of the pair) and ``mangled_id``.
+  flagged), ``duplicate_id`` (every row of the pair), ``mangled_id``, and, when the
+  protocol declares them, ``id_pattern`` and ``season_range``.
+
+Sentences about the whole sheet go into the report's notes: columns not in the
+protocol and the likely causes of many odd values (``schemas.diagnose``).
 
 Numbers are converted here (decimal comma honoured) so that one bad cell is
 reported by itself and the other cells of its column are still checked; the
@@ -20,6 +26,7 @@ value rules then run as one pandera schema built from the protocol.
 from __future__ import annotations
 
 import difflib
+import re
 import unicodedata
 from functools import lru_cache
 
@@ -29,6 +36,7 @@ import pandera.pandas as pa
 
 from fieldslope.common.errors import SheetError
 from fieldslope.common.names import Kind
+from fieldslope.schemas.diagnose import column_causes, unit_in_cell
 from fieldslope.schemas.id_checks import mangled_id_reasons
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import OPTIONAL_TEXT, CheckReport, FlagNote, RowError, Sheet
@@ -71,8 +79,7 @@ class _Roles:
                 raise SheetError(f"{label}: columns {twin[0]!r} and {c!r} are the same column in another case; "
                                  "merge them into one.")
             self.extra[c] = c.lower()
-        if unknown:
-            raise SheetError(_unknown_sentence(protocol, label, unknown))
+        self.notes = _unknown_columns(protocol, label, unknown, columns)
 
     @property
     def numeric(self) -> list[str]:
@@ -91,15 +98,37 @@ def _near(name: str, candidates: list[str]) -> list[str]:
     return difflib.get_close_matches(name, candidates, n=1, cutoff=0.75)
 
 
-def _unknown_sentence(protocol: Protocol, label: str, unknown: list[str]) -> str:
-    names = [protocol.id_col, protocol.season_col, *protocol.groups, *protocol.trait_names,
-             *protocol.component_names, *protocol.parent_cols, *OPTIONAL_TEXT]
-    c = unknown[0]
-    near = _near(c, names)
-    hint = f"rename it to {near[0]!r} if that is meant, or " if near else "rename it to a protocol column or "
-    others = f" (also {', '.join(map(repr, unknown[1:]))})" if len(unknown) > 1 else ""
-    return (f"{label}: column {c!r}{others} is not in the protocol; {hint}add it to protocol.toml "
-            "as a trait or fitness component.")
+MAX_NAMED = 10     # columns named in one sentence; the rest are counted
+
+
+def _unknown_columns(protocol: Protocol, label: str, unknown: list[str], columns: list[str]) -> tuple[str, ...]:
+    """Columns the protocol does not name. A near miss of a protocol column the sheet lacks (``elytrn`` for
+    ``elytron``) refuses the file, naming both; any other is kept in the stored file, not used, and said
+    once (a near miss of a column the sheet has, or of date, observer or notes, says which)."""
+    expected = [protocol.id_col, protocol.season_col, *protocol.groups, *protocol.trait_names,
+                *protocol.component_names, *protocol.parent_cols]
+    notes, plain = [], []
+    for c in unknown:
+        near = _near(c, [*expected, *OPTIONAL_TEXT])
+        if near and near[0] in expected and near[0] not in columns:
+            raise SheetError(f"{label}: column {c!r} is not in the protocol, but it is a near miss of {near[0]!r}, "
+                             f"which the protocol names and this sheet lacks; rename the column to {near[0]!r} if "
+                             "that is meant, or add it to protocol.toml.")
+        if near:
+            notes.append(f"column {c!r} is not in the protocol; it is a near miss of {near[0]!r}"
+                         + (", which the sheet also has" if near[0] in columns else "")
+                         + f"; it is kept in the stored file but not used (rename it to {near[0]!r} if that is "
+                         "meant).")
+        else:
+            plain.append(c)
+    if plain:
+        named = ", ".join(map(repr, plain[:MAX_NAMED])) + (
+            f" and {len(plain) - MAX_NAMED} more" if len(plain) > MAX_NAMED else "")
+        one = len(plain) == 1
+        notes.insert(0, f"{'column' if one else 'columns'} {named} {'is' if one else 'are'} not in the protocol: "
+                        f"kept in the stored file, not used in checks or estimates (add "
+                        f"{'it' if one else 'them'} to protocol.toml to use {'it' if one else 'them'}).")
+    return tuple(notes)
 
 
 # -- the pandera schema (built once per protocol) -------------------------------
@@ -215,7 +244,7 @@ def _to_numbers(text: pd.Series, decimal: str, codes: list[str],
 def _odd_character(value: str) -> str | None:
     """A reason naming a look-alike or invisible character that spoils a number, e.g. a Unicode minus."""
     for ch in value:
-        if ch.isascii() and ch.isprintable() and ch != " ":
+        if ch.isascii() and ch.isprintable():
             continue
         if ch.isalpha():
             return None     # plain text, not a spoiled number
@@ -253,10 +282,12 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
         spec = protocol.fitness.get(col)
         numbers, problems = _to_numbers(text[col], sheet.decimal, codes, spec.kind if spec is not None else "")
         typed[col] = numbers
+        unit = protocol.traits[col].unit if col in protocol.traits else ""
         for bad, reason in problems:
             for pos in np.flatnonzero(bad.to_numpy()):
                 value = str(text[col].iat[pos])
-                errors.append(RowError(int(rows[pos]), col, value, _odd_character(value) or reason))
+                errors.append(RowError(int(rows[pos]), col, value,
+                                       unit_in_cell(value, col, unit) or _odd_character(value) or reason))
 
     errors.extend(_rule_errors(protocol, typed, text, rows))
     errors.extend(_group_errors(protocol, roles, text, rows, sheet.name))
@@ -273,7 +304,10 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
         valid[name] = valid[name].astype(object)
     flags = _flags(protocol, roles, valid, text, good)
     census = not roles.traits and bool(roles.components)
-    return CheckReport(sheet=sheet, valid=valid, errors=errors, flags=flags, bad_rows=bad_rows, census=census)
+    causes = column_causes(protocol.traits, {c: typed[c].to_numpy(dtype=float) for c in roles.traits})
+    notes = (*roles.notes, *(f"likely cause: {c}" for c in causes))
+    return CheckReport(sheet=sheet, valid=valid, errors=errors, flags=flags, bad_rows=bad_rows, census=census,
+                       notes=notes)
 
 
 def _group_errors(protocol: Protocol, roles: _Roles, text: dict[str, pd.Series], rows: np.ndarray,
@@ -365,5 +399,21 @@ def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[st
     for i, reason in mangled_id_reasons(ids):
         note(i, roles.id, Kind.MANGLED_ID, str(ids[i]),
              f"ID {ids[i]!r} {reason}; check it against the paper sheet and correct it.")
+    if protocol.id_pattern is not None:
+        pattern = re.compile(protocol.id_pattern)
+        for i, ind in enumerate(ids):
+            if pattern.fullmatch(str(ind)) is None:
+                note(i, roles.id, Kind.ID_PATTERN, str(ind),
+                     f"ID {str(ind)!r} does not match the protocol's ID pattern {protocol.id_pattern}; check it "
+                     "against the paper sheet (exclude the row and import it again with the ID corrected), or "
+                     "keep it if the pattern is too strict.")
+    if protocol.seasons is not None:
+        first, last = protocol.seasons
+        for i, season in enumerate(seasons):
+            if not first <= int(season) <= last:
+                note(i, roles.season, Kind.SEASON_RANGE, str(season),
+                     f"season {season} of {ids[i]} is outside the protocol's seasons {first}–{last}; check the "
+                     "year (exclude the row and import it again corrected), or keep it and widen "
+                     "[checks] seasons.")
     flags.sort(key=lambda f: f.row)
     return flags

@@ -76,7 +76,7 @@ def test_end_to_end_in_subprocesses(folder, protocol_file):
     r = run("check", "late.csv", "--study", "st", cwd=folder)
     assert r.returncode == 1
     assert "row 2, column wing: '4x4' is not a number" in r.stdout
-    assert "nothing was stored" in one_line(r.stderr)
+    assert "an import would store nothing" in one_line(r.stderr)
 
     r = run("--study", "st", "import", "measured.csv", "--operator", "ana", cwd=folder)
     assert r.returncode == 0 and "12 of 12 rows stored" in r.stdout
@@ -303,7 +303,7 @@ def test_check_of_a_file_already_taken_in_runs_the_checks_and_names_the_batch(fo
     # a batch with a row error: the check still refuses it (exit 1), as it would a fresh file
     assert call(capsys, "import", str(folder / "late.csv"), "--accept-valid", "--study", study)[0] == 0
     code, out, err = call(capsys, "check", str(folder / "late.csv"), "--study", study)
-    assert code == 1 and "already taken in as batch 2" in out and "nothing was stored" in one_line(err)
+    assert code == 1 and "already taken in as batch 2" in out and "would store nothing" in one_line(err)
     assert call(capsys, "check", str(folder / "late.csv"), "--accept-valid", "--study", study)[0] == 0
 
 

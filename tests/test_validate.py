@@ -95,14 +95,16 @@ def test_missing_id_column_suggests_the_near_name():
     assert "'yaer' may be meant" in refusal(["R1,2025"], "ring,yaer")
 
 
-def test_unknown_column_is_named_with_a_fix():
-    msg = refusal(["R1,2025,7"], "ring,year,wingspan")
-    assert "'wingspan'" in msg and "add it to protocol.toml" in msg
+def test_unknown_column_is_kept_and_named_once_with_a_fix():
+    report = check(["R1,2025,7", "R2,2025,8"], "ring,year,wingspan")
+    assert len(report.notes) == 1 and "'wingspan'" in report.notes[0] and "protocol.toml" in report.notes[0]
+    assert "wingspan" not in report.valid.columns and not report.errors
 
 
-def test_unknown_column_suggests_the_near_name():
-    assert "rename it to 'elytra'" in refusal(["R1,2025,5"], "ring,year,Elytra")
-    assert "rename it to 'clutch'" in refusal(["R1,2025,5"], "ring,year,cluch")
+def test_unknown_column_near_a_missing_protocol_column_refuses_naming_both():
+    assert "near miss of 'elytra'" in refusal(["R1,2025,5"], "ring,year,Elytra")
+    msg = refusal(["R1,2025,5"], "ring,year,cluch")
+    assert "'cluch'" in msg and "rename the column to 'clutch'" in msg
 
 
 def test_product_column_is_refused():

@@ -50,14 +50,21 @@ def _report(result) -> None:
         print(line, file=out)
     if result.earlier:
         fmt.say(result.earlier, file=out)
-    for note in result.notes:     # how the file was read: further worksheets left out, a guessed encoding
+    for note in result.notes:     # how the file was read, columns not in the protocol, likely causes
         print(fmt.wrap(f"note: {note}", indent=""), file=out)
     if result.outcome == Outcome.REFUSED:
         fmt.say(f"fieldslope: {result.message}", file=err)
+        if result.checked_only and result.flags:    # a check says the soft problems too, beside the errors
+            print(fmt.flag_summary(result.flags, stored=False, refused=True), file=out)
+            for line in fmt.flag_lines(result.flags):
+                print(line, file=out)
         return
     fmt.say(result.message, file=out)
     if result.outcome != Outcome.DUPLICATE:
         print(fmt.flag_summary(result.flags, stored=not result.checked_only), file=out)
+        if result.checked_only:
+            for line in fmt.flag_lines(result.flags):
+                print(line, file=out)
 
 
 def _each_file(names, work):
@@ -84,6 +91,12 @@ def check(args) -> int:
                 verb = "would store" if result.outcome == Outcome.STORED else "would store (quarantining the rest)"
                 result = replace(result, message=f"{result.file_name}: {verb} {result.n_stored} of "
                                                  f"{plural(result.n_rows, 'row')}.")
+            elif result.outcome == Outcome.REFUSED and result.errors:
+                bad = len({e.row for e in result.errors})
+                result = replace(result, message=f"{result.file_name}: {bad} of {plural(result.n_rows, 'row')} "
+                                 f"{'has' if bad == 1 else 'have'} errors, so an import would store nothing; fix "
+                                 "them, or import with --accept-valid to store the valid rows and quarantine the "
+                                 "others.")
             return result
         return _each_file(args.files, one)
 

@@ -26,6 +26,7 @@ if TYPE_CHECKING:  # pragma: no cover
 WIDTH = 80
 MAX_LISTED = 50
 MAX_NOTES = 20
+MAX_FLAGS_LISTED = 20
 
 
 def say(text: object, file: TextIO | None = None) -> None:
@@ -74,15 +75,27 @@ def error_lines(errors: Iterable, limit: int = MAX_LISTED) -> list[str]:
     return lines
 
 
-def flag_summary(flags: Iterable, stored: bool = True) -> str:
-    """The flags a batch opened (or, for a check, would open), counted by kind in the dashboard's words."""
+def flag_summary(flags: Iterable, stored: bool = True, refused: bool = False) -> str:
+    """The flags a batch opened (or, for a check, would open), counted by kind in the dashboard's words;
+    ``refused``: a check of a batch refused for its errors, whose valid rows would open these."""
     counts = Counter(f.kind for f in flags)
     if not counts:
         return "no flags" if stored else "no flags would be opened"
     parts = ", ".join(f"{n} {flag_label(kind)}" for kind, n in sorted(counts.items()))
+    if refused:
+        return f"its valid rows would also open flags: {parts} (nothing is stored by a check)"
     if not stored:
         return f"flags it would open: {parts} (nothing is stored by a check)"
     return f"flags: {parts} (list them with fieldslope flags)"
+
+
+def flag_lines(flags: Sequence, limit: int = MAX_FLAGS_LISTED) -> list[str]:
+    """Each flag a check would open, row by row (the first ``limit``), wrapped at 80 columns."""
+    flags = sorted(flags, key=lambda f: f.row)
+    lines = [wrap(f"row {f.row}: {f.message}", indent="  ") for f in flags[:limit]]
+    if len(flags) > limit:
+        lines.append(f"  … and {plural(len(flags) - limit, 'more flag')} (the first {limit} are shown)")
+    return lines
 
 
 def print_flags(flags, out: TextIO | None = None) -> None:
