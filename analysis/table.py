@@ -203,6 +203,7 @@ def estimate_table(
     random_effects: str = "dl",
     only_seasons: Sequence[str] | None = None,
     only_sites: Sequence[str] | None = None,
+    generalized: bool = True,
 ) -> Estimates:
     """All estimates for the effective data ``frame`` under ``design``.
 
@@ -218,6 +219,8 @@ def estimate_table(
     uses every season's records, and across-season rows need two or more); ``only_sites`` the sites
     (ALL for the pooled rows; default all). These three restrict the work, not just the rows: the random
     draws are those of the whole table, so the rows asked for have the whole table's numbers.
+    ``generalized=False`` leaves out the generalized (fitness-function model) gradients and their
+    resampling, for callers that show only the OLS rows; the other rows keep their numbers.
     ``progress(done, total, label)`` is called during resampling. ``genetics``
     (from ``analysis.genetics.pedigree_estimates``, fitted separately because it
     is slow) adds the animal-model rows; its heritabilities and genetic
@@ -249,7 +252,8 @@ def estimate_table(
             h_notes += genetics.notes + use_pedigree(genetics, used_h2, design.traits)
             genetic_correlations = {**genetics.rg, **(genetic_correlations or {})}
         run = Run(design, fitness_names, bootstrap, permutations, seed, used_h2, genetic_correlations,
-                  Progress(len(seasons) * (bootstrap + permutations), progress), wanted_f, wanted_sites)
+                  Progress(len(seasons) * (bootstrap + permutations), progress), wanted_f, wanted_sites,
+                  generalized)
         rows: list[dict] = []
         notes: list[Note] = [Note(*n) for n in h_notes]
         rg_assumed = False
@@ -288,6 +292,7 @@ class Run:
     ticker: Progress
     wanted_fitness: set[str] | None = None  # asked for a subset of the measures (else None: all)
     wanted_sites: set[str] | None = None    # asked for some sites (ALL: the pooled rows), else None
+    generalized: bool = True                # the generalized gradients too (fitted models, resampled)
 
 
 def season_estimates(run: Run, season: str, cells: list, rows: list[dict], notes: list[Note]) -> bool:
@@ -339,7 +344,7 @@ def fitness_estimates(run: Run, season: str, traits, f: str, preps: list, pooled
         res = point_block(block, traits, where, tests=run.permutations > 0)
         notes.extend(Note(season, site, f, q, m) for q, m in res.notes)
         season_rows.extend(row_dicts(season, site, f, res.rows))
-        if run.bootstrap > 0:  # the fast path (bootstrap=0) keeps to OLS and the logistic gradient
+        if run.bootstrap > 0 and run.generalized:  # the fast path (bootstrap=0) keeps to OLS and the logistic gradient
             gen = glm_block(block, traits, where, tests=run.permutations > 0)
             notes.extend(Note(season, site, f, q, m) for q, m in gen.notes)
             season_rows.extend(row_dicts(season, site, f, gen.rows))

@@ -228,3 +228,9 @@ def test_generalized_rows_sit_beside_the_ols_rows_in_the_table():
     b = t[(t.fitness == "alive") & (t.quantity == Q.GRADIENT_LOGISTIC)].set_index(["site", "term"])
     np.testing.assert_allclose(a.estimate, b.loc[a.index].estimate, rtol=1e-7)
     assert any("negative binomial" in n.message and n.fitness == "brood" for n in est.notes)
+    # generalized=False (what `summary` asks for) leaves exactly the generalized rows out; every other row,
+    # intervals and p-values included, keeps its number (the resamples are drawn the same way)
+    lean = estimate_table(frame, design, bootstrap=200, generalized=False).table
+    keep = t[~t.quantity.str.endswith("_glm")].reset_index(drop=True)
+    assert not lean.quantity.str.endswith("_glm").any()
+    pd.testing.assert_frame_equal(lean.reset_index(drop=True), keep)

@@ -43,11 +43,13 @@ def estimates_for_frame(
     random_effects: str = "dl",
     site: str | None = None,
     fitness: str | None = None,
+    generalized: bool = True,
 ):
     """Estimates for an effective-data frame (see DEVELOPERS.md for its columns).
 
     ``season``, ``site`` (ALL for the pooled rows) and ``fitness`` restrict the work to one season, site
-    or fitness measure; the rows asked for have the whole table's numbers. ``random_effects`` picks the
+    or fitness measure; the rows asked for have the whole table's numbers; ``generalized=False`` leaves out
+    the generalized gradients (``estimate_table``). ``random_effects`` picks the
     interval of the mean gradient across seasons ("dl" or "hk", as ``estimate_table``). ``pedigree`` fits the animal
     models first (slow: the command line does, the dashboard's live refresh does not); ``genetics`` passes a fit already made.
     """
@@ -55,7 +57,8 @@ def estimates_for_frame(
 
     if pedigree and genetics is None:
         genetics = pedigree_genetics(frame, protocol, progress=progress)
-    kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2, "genetics": genetics, "random_effects": random_effects}
+    kwargs = {"bootstrap": bootstrap, "progress": progress, "h2": h2, "genetics": genetics, "random_effects": random_effects,
+              "generalized": generalized}
     if season is not None:
         kwargs["only_seasons"] = [season]
     if site is not None:

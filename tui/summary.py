@@ -119,7 +119,8 @@ def _latest_gradients(frame, protocol, fitness: str, bootstrap: int, seed, progr
     # the latest season alone: its resamples depend only on the seed and the season's own rows,
     # so these are the very numbers of the full estimates table (a test checks it); one fitness
     # measure computed (the same numbers as with all)
-    est = estimates_for_frame(one, protocol, bootstrap=bootstrap, seed=seed, progress=progress, fitness=fitness)
+    est = estimates_for_frame(one, protocol, bootstrap=bootstrap, seed=seed, progress=progress, fitness=fitness,
+                              generalized=False)
     t = est.table
     t = t[(t["season"] == latest) & (t["site"] == ALL) & (t["fitness"] == fitness) & (t["quantity"] == Q.GRADIENT)]
     if t.empty:    # one cell only: its own rows are the season's estimate
