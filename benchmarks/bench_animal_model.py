@@ -5,7 +5,7 @@
 Prints, for a simulated pedigree of n individuals over 5 seasons (3 sites):
 the time to build the pedigree and A^-1, the univariate fit of one trait,
 the bivariate fits of 3 traits and one fitness measure (3 genetic
-correlations + 3 Robertson-Price covariances), peak memory (tracemalloc) at
+correlations + 3 Robertson-Price covariances), peak resident memory (each size in a fresh process) at
 n/4, n/2 and n, and the coverage of the h^2 profile interval and of the r_g
 interval over simulated studies with known values. The peer is the same
 REML maximised by a dense likelihood (scipy.optimize), feasible only for
@@ -17,7 +17,6 @@ from __future__ import annotations
 import argparse
 import sys
 import time
-import tracemalloc
 from pathlib import Path
 
 import numpy as np
@@ -105,17 +104,38 @@ def ordering_peer(n: int) -> None:
           f"{CPU[0]:.2f} s CPU (fill {lu.L.nnz + lu.U.nnz} and {lu2.L.nnz + lu2.U.nnz} entries)")
 
 
+MEMORY_CHILD = """
+import resource, sys
+import numpy as np
+sys.path.insert(0, sys.argv[2])
+from bench_animal_model import DESIGN, study
+from fieldslope.analysis.animal_data import model_data
+from fieldslope.analysis.animal_model import Kernel, fit_univariate
+from fieldslope.analysis.pedigree import from_frame
+m = int(sys.argv[1])
+df = study(np.random.default_rng(2), m)
+before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+fit_univariate(Kernel(model_data(df, DESIGN, from_frame(df, "id", "season", "dam", "sire"), df[["t0"]])[0]))
+print(before, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+"""
+
+
 def memory(n: int) -> None:
-    figures = []
+    """Peak resident memory of a univariate fit (pedigree, A^-1, mixed-model equations, SuperLU's factors
+    included), each size in a fresh process: the growth from one size to the next, beside n's own."""
+    import subprocess
+
+    here = str(Path(__file__).resolve().parent)
+    figures, last = [], None
     for m in (n // 4, n // 2, n):
-        df = study(np.random.default_rng(2), m)
-        tracemalloc.start()
-        ped = from_frame(df, "id", "season", "dam", "sire")
-        fit_univariate(Kernel(model_data(df, DESIGN, ped, df[["t0"]])[0]))
-        peak = tracemalloc.get_traced_memory()[1]
-        tracemalloc.stop()
-        figures.append(f"{m}: {peak / 2**20:.0f} MiB ({peak / m / 1024:.1f} KiB per individual)")
-    print("peak memory of a univariate fit (Python allocations; SuperLU's own are not traced): " + "; ".join(figures))
+        out = subprocess.run([sys.executable, "-c", MEMORY_CHILD, str(m), here], capture_output=True, text=True,
+                             check=True).stdout.split()
+        before, peak = (int(v) / 1024 for v in out)  # KiB -> MiB
+        grown = peak - before
+        figures.append(f"{m}: {grown:.0f} MiB above the {before:.0f} MiB of the data and imports"
+                       + (f" ({grown / last:.2f}x for {m / prev:.0f}x n)" if last else ""))
+        last, prev = grown, m
+    print("peak resident memory of a univariate fit: " + "; ".join(figures))
 
 
 def dense_peer(n: int = 600) -> None:
