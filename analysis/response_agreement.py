@@ -8,8 +8,9 @@ predict the same change of the mean when fitness depends on the measured
 traits only and genetic and phenotypic correlations are alike.
 
 R and Gβ are per season (pooled over sites: site ``all``); they disagree when
-their means over the seasons differ by more than 1.96 standard errors of R's
-mean (Gβ has no standard error here). The Robertson-Price response comes from
+their means over the seasons differ by more than 1.96 standard errors of the
+difference of the means (R's from the delta method, Gβ's from the bootstrap;
+with no resamples Gβ has none and only R's counts). The Robertson-Price response comes from
 one animal model over all seasons, which weights each season by the
 relatives it links, so it is compared with the range of the other
 prediction's seasonal values: it disagrees when it lies outside that range by
@@ -88,8 +89,9 @@ class Disagreement:
         if (BREEDER, LANDE) in self.pairs:
             why.append("R = h²S and Gβ part when selection on correlated traits is passed on through genetic "
                        "correlations unlike the phenotypic ones (Lande & Arnold 1983).")
-        if any(LANDE in pair for pair in self.pairs):
-            why.append("Gβ has no standard error yet, so only the other prediction's is counted.")
+        if any(LANDE in pair for pair in self.pairs) and not all(
+                se == se for p in self.predictions if p.name == LANDE for se in p.ses):
+            why.append("Gβ has no standard error without resamples, so only the other prediction's is counted.")
         return (f"For {self.fitness}, the predicted responses of {self.trait} per generation disagree beyond their "
                 f"uncertainty ({which}): {shown}; over {seasons} season{'' if seasons == 1 else 's'}. "
                 + " ".join(why))
@@ -117,7 +119,8 @@ def disagreements(table: pd.DataFrame, price_rows: list[dict], h2: dict[str, tup
                                     tuple(response_se(h, h_se, v, e) for v, e in zip(s["estimate"], s["se"]))))
         g = mine[mine["quantity"] == Q.RESPONSE_MULTI].dropna(subset=["estimate"])
         if len(g):
-            preds.append(Prediction(LANDE, tuple(float(v) for v in g["estimate"]), (math.nan,) * len(g)))
+            preds.append(Prediction(LANDE, tuple(float(v) for v in g["estimate"]),
+                                    tuple(float(v) if v == v and v is not None else math.nan for v in g["se"])))
         preds.append(Prediction(PRICE, (float(row["estimate"]),), (float(row["se"]),)))
         pairs = tuple((a.name, b.name) for i, a in enumerate(preds) for b in preds[i + 1:] if _differ(a, b))
         if pairs:

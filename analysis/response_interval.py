@@ -13,7 +13,8 @@ of R* (Efron & Tibshirani 1993, An Introduction to the Bootstrap, ch. 13);
 beta_raw* and the phenotypic covariance P* of the resample (the same individuals serve both, so they
 are resampled jointly), h2* drawn as above for every trait (independently, kept within 0 to 1 so that
 G* has real genetic standard deviations) and G*_jk = r_g,jk sqrt(h2*_j P*_jj h2*_k P*_kk); entered
-genetic correlations are held fixed, assumed ones are the resample's phenotypic correlations.
+genetic correlations are held fixed, assumed ones are the resample's phenotypic correlations. Its
+standard error is the standard deviation of the replicates (with ``bootstrap`` 0 it has none).
 """
 
 from __future__ import annotations
@@ -97,7 +98,9 @@ def given_correlations(traits, given: dict | None) -> np.ndarray:
 
 def multi_response_intervals(rows: list[dict], boot: dict, used_h2: dict, rg_given: dict | None, traits,
                              seed: int, season: str) -> None:
-    """Fill ci_low and ci_high of a season's ``response_multi`` rows in place."""
+    """Fill ci_low, ci_high and se of a season's ``response_multi`` rows in place: the percentile interval and
+    the standard deviation of the replicates (the bootstrap standard error; Efron & Tibshirani 1993, An
+    Introduction to the Bootstrap, ch. 6)."""
     blocks = {(r["site"], r["fitness"]) for r in rows if r["quantity"] == Q.RESPONSE_MULTI}
     rg = given_correlations(traits, rg_given)
     for site, fitness in sorted(blocks):
@@ -111,4 +114,7 @@ def multi_response_intervals(rows: list[dict], boot: dict, used_h2: dict, rg_giv
                                        [used_h2[t][1] for t in traits], rg, rng)
         for r in rows:
             if r["quantity"] == Q.RESPONSE_MULTI and (r["site"], r["fitness"]) == (site, fitness):
-                r["ci_low"], r["ci_high"], _ = percentile_interval(dz[:, traits.index(r["term"])])
+                reps = dz[:, traits.index(r["term"])]
+                r["ci_low"], r["ci_high"], _ = percentile_interval(reps)
+                reps = reps[np.isfinite(reps)]
+                r["se"] = float(np.std(reps, ddof=1)) if len(reps) > 1 else np.nan
