@@ -148,7 +148,7 @@ def test_estimate_table_fits_80_columns_and_json_has_nulls(folder, protocol_file
     assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
     assert call(capsys, "import", str(folder / "measured.csv"), "--study", study)[0] == 0
     code, out, err = call(capsys, "estimate", "--bootstrap", "0", "--study", study)
-    assert code == 0 and "quantity" in out, err
+    assert code == 0 and "estimate" in out and "gradient (w per sd)" in out, err
     assert max(len(line) for line in out.splitlines()) <= 80
     code, out, _ = call(capsys, "estimate", "--format", "json", "--bootstrap", "0", "--study", study)
     rows = json.loads(out)
@@ -447,9 +447,10 @@ def test_estimate_random_effects_option_and_tau2_written_one_way(folder, protoco
     assert (hk["ci_low"], hk["ci_high"]) == pytest.approx((ref.ci_low, ref.ci_high), rel=1e-12)
     assert hk["estimate"] == pytest.approx(dl["estimate"], rel=1e-12) and hk["ci_low"] != pytest.approx(dl["ci_low"])
     code, out, _ = call(capsys, "estimate", "--bootstrap", "0", "--skip-pedigree", "--study", study, "--site", "Gull Flat",
-                        "--fitness", "clutch")
-    tau = [line for line in out.splitlines() if line.startswith("gradient_tau2") and " wing " in line]
-    assert len(tau) == 1 and tau[0].split()[2] == tau2_text(got["dl"][("gradient_tau2", "wing")]["estimate"])
+                        "--fitness", "clutch", "--quantity", "gradient_tau2", "--term", "wing")
+    tau = [line for line in out.splitlines() if line.startswith("  wing ")]
+    assert "gradient_tau2 (w² per sd²)" in out
+    assert len(tau) == 1 and tau[0].split()[1] == tau2_text(got["dl"][("gradient_tau2", "wing")]["estimate"])
     assert tau2_text(0.000123456) == "0.000123" and tau2_text(12.3456) == "12.3" and tau2_text(None) == ""
 
 

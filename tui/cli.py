@@ -106,6 +106,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--season", metavar="S", help="only this season's rows")
     p.add_argument("--site", metavar="S", help="only this site's rows (or 'all' for pooled rows)")
     p.add_argument("--fitness", metavar="NAME", help="only this fitness component or total")
+    p.add_argument("--quantity", metavar="NAME", action="append",
+                   help="only this quantity, e.g. gradient or differential (repeat for more)")
+    p.add_argument("--term", metavar="NAME", action="append",
+                   help="only the rows about this trait (its squared and paired terms too) or this exact term, "
+                        "e.g. elytron:mass (repeat for more)")
     p.add_argument("--without-open-outliers", action="store_true",
                    help="leave out values with open outlier flags too (sensitivity)")
     ped = p.add_mutually_exclusive_group()

@@ -163,6 +163,7 @@ def estimate(args) -> int:
         if protocol.groups and args.site is not None and args.site != ALL:
             _check_choice("site", args.site, sorted(frame[protocol.groups[0]].dropna().astype(str).unique()))
         _check_choice("fitness", args.fitness, list(protocol.fitness))
+        _check_narrowing(args.quantity, args.term, protocol.trait_names)
         progress = fmt.Progress("estimating")
         # --bootstrap 0 is the quick look: no animal models unless asked for (they take seconds to minutes)
         pedigree = not args.skip_pedigree and (args.bootstrap > 0 or args.pedigree)
@@ -184,7 +185,7 @@ def estimate(args) -> int:
     for col, value in (("season", args.season), ("site", args.site), ("fitness", args.fitness)):
         if value is not None:
             table = table[table[col].astype(str) == value]
-    table = table.reset_index(drop=True)
+    table = _narrowed(table, args.quantity, args.term, protocol.trait_names).reset_index(drop=True)
     notes = [n for n in est.notes if _note_matches(n, args)]
     if args.format == "csv":
         from fieldslope.schemas.export import frame_to_safe_csv
@@ -192,7 +193,8 @@ def estimate(args) -> int:
     elif args.format == "json":
         text = json.dumps(_json_rows(table), indent=1, allow_nan=False) + "\n"
     else:
-        text = fmt.estimates_text(table, notes)
+        from fieldslope.tui.estimate_text import estimates_text
+        text = estimates_text(table, notes, {t: spec.unit for t, spec in protocol.traits.items()})
     if args.output:
         _write_atomic(Path(args.output), text)
         fmt.say(f"wrote {len(table)} estimates to {args.output}", file=sys.stderr)
@@ -206,8 +208,41 @@ def _say_trouble(sentence: str) -> None:
 
 
 def _note_matches(note, args) -> bool:
+    if args.quantity and note.quantity not in ("", *args.quantity):
+        return False
     return all(value is None or getattr(note, attr) in ("", value)
                for attr, value in (("season", args.season), ("site", args.site), ("fitness", args.fitness)))
+
+
+def _check_narrowing(quantities: list[str] | None, terms: list[str] | None, traits: tuple[str, ...]) -> None:
+    """``--quantity`` names a quantity of the estimates table; ``--term`` a trait or a term made of them
+    (``a^2``, ``a:b``, ``m1``, ``m1:a``): said before any work is done."""
+    import re
+
+    from fieldslope.common.names import QUANTITIES
+    from fieldslope.tui.estimate_text import term_traits
+
+    for q in quantities or ():
+        _check_choice("quantity", q, list(QUANTITIES))
+    for t in terms or ():
+        if not all(part in traits or re.fullmatch(r"m[0-9]+", part) for part in term_traits(t)):
+            a, b = (traits + traits)[:2]
+            raise FieldslopeError(f"there is no term {t!r} in these estimates; give a trait ({', '.join(traits)}) "
+                                  f"or a term as the table writes it ({a}^2, {a}:{b}, m1, m1:{a}).")
+
+
+def _narrowed(table, quantities: list[str] | None, terms: list[str] | None, traits: tuple[str, ...]):
+    """The rows of the quantities and terms asked for (``--quantity``, ``--term``): a trait's name asks for
+    every term about it (``a``, ``a^2``, ``a:b``, ``m1:a``), any other term only itself."""
+    from fieldslope.tui.estimate_text import term_traits
+
+    if quantities:
+        table = table[table["quantity"].isin(quantities)]
+    if terms:
+        wanted = set(terms)
+        keep = [str(t) in wanted or bool(term_traits(t) & wanted & set(traits)) for t in table["term"]]
+        table = table[keep]
+    return table
 
 
 def _check_choice(what: str, value: str | None, choices: list[str]) -> None:

@@ -12,20 +12,16 @@ import textwrap
 from collections import Counter
 from typing import TYPE_CHECKING, Iterable, Sequence, TextIO
 
-from fieldslope.common.names import Q, flag_label
+from fieldslope.common.names import flag_label
 from fieldslope.common.words import plural
 from fieldslope.schemas.operator import by_text
-from fieldslope.tui.number_text import tau2_text
 from fieldslope.tui.safe_text import escape_controls
 
 if TYPE_CHECKING:  # pragma: no cover
-    import pandas as pd
-
     from fieldslope.schemas.store_history import Event
 
 WIDTH = 80
 MAX_LISTED = 50
-MAX_NOTES = 20
 MAX_FLAGS_LISTED = 20
 
 
@@ -173,34 +169,6 @@ def _source(r) -> str:
 def _hanging(text: str) -> str:
     """Wrap an already escaped line at 80 columns, continuation lines indented, no word cut."""
     return textwrap.fill(text, WIDTH, subsequent_indent="    ", break_long_words=False, break_on_hyphens=False)
-
-
-_HEAD = f"{'quantity':<17} {'term':<10} {'estimate':>9} {'se':>8} {'ci_low':>9} {'ci_high':>9} {'p':>6} {'n':>5}"
-
-
-def estimates_text(table: pd.DataFrame, notes=()) -> str:
-    """The estimates table in blocks of season · site · fitness; every line fits 80 columns."""
-    lines: list[str] = []
-    if table.empty:
-        lines.append("no estimates (see the notes below)")
-    for (season, site, fitness), block in table.groupby(["season", "site", "fitness"], sort=False):
-        lines += ["", cut(f"season {season} · site {site} · fitness {fitness}", WIDTH), _HEAD]
-        for r in block.itertuples(index=False):
-            n = "" if missing(r.n) else str(int(r.n))
-            estimate = f"{tau2_text(r.estimate):>9}" if r.quantity == Q.GRADIENT_TAU2 else number(r.estimate, 9)
-            lines.append(f"{cut(r.quantity, 17):<17} {cut(r.term, 10):<10} {estimate} "
-                         f"{number(r.se, 8)} {number(r.ci_low, 9)} {number(r.ci_high, 9)} "
-                         f"{p_text(r.p_value):>6} {n:>5}")
-    if notes:
-        notes = list(notes)
-        lines += ["", "notes:"]
-        for note in notes[:MAX_NOTES]:
-            where = " · ".join(str(x) for x in (note.season, note.site, note.fitness, note.quantity) if x)
-            lines.append(wrap(f"{where}: {note.message}" if where else note.message, indent="  "))
-        if len(notes) > MAX_NOTES:
-            lines.append(wrap(f"… and {len(notes) - MAX_NOTES} more notes; narrow the table with --season, "
-                              "--site or --fitness to see theirs.", indent="  "))
-    return "\n".join(lines).lstrip("\n") + "\n"
 
 
 class Progress:
