@@ -91,7 +91,7 @@ def latest(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Field
 def _corrections(conn, fields, as_of, seasons) -> pd.DataFrame:
     sql = ("SELECT f.individual, f.season, f.field, r.new, r.after_batch, f.id FROM resolutions r "
            "JOIN flags f ON f.id = r.flag_id WHERE r.action = 'set' AND f.quarantine_id IS NULL "
-           "AND f.field <> ''")
+           "AND f.field <> '' AND f.kind NOT IN ('duplicate_id', 'mangled_id')")
     args: list = []
     if as_of is not None:
         sql += " AND r.after_batch <= ?"
@@ -114,7 +114,8 @@ def flag_states(conn: sqlite3.Connection, as_of: int | None = None, leaving_out:
            f"LEFT JOIN (SELECT flag_id, max(id) AS last FROM resolutions{cond} GROUP BY flag_id) m "
            "ON m.flag_id = f.id LEFT JOIN resolutions r ON r.id = m.last WHERE f.quarantine_id IS NULL"
            + ("" if as_of is None else f" AND f.batch_id <= {int(as_of)}")
-           + (" AND (r.action = 'exclude' OR (r.action IS NULL AND f.kind IN ('out_of_range', 'outlier')))"
+           + (" AND (r.action = 'exclude' OR (r.action IS NULL AND f.kind IN ('out_of_range', 'outlier')) "
+              "OR (r.action = 'set' AND f.kind IN ('duplicate_id', 'mangled_id')))"
               if leaving_out else ""))
     frame = pd.DataFrame(conn.execute(sql).fetchall(),
                          columns=["id", "kind", "individual", "season", "field", "record_id", "status"])
@@ -127,6 +128,8 @@ def effective(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Fi
     """The effective frame: columns ID, season, groups, traits, fitness components, parents."""
     states = flag_states(conn, as_of, leaving_out=True)
     leave_out = states["status"].eq("exclude") | (states["status"].eq("open") & states["kind"].eq(Kind.OUT_OF_RANGE))
+    # a row whose ID was corrected is stored again under the right ID: the old row is left out
+    leave_out |= states["status"].eq("set") & states["kind"].isin([Kind.DUPLICATE_ID, Kind.MANGLED_ID])
     if without_open_outliers:
         leave_out |= states["status"].eq("open") & states["kind"].eq(Kind.OUTLIER)
     drop = states[leave_out]

@@ -44,6 +44,7 @@ from fieldslope.schemas.store_types import (BatchInfo, FieldCol, HeritabilityEnt
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
+    from fieldslope.schemas.store_copies import Copy
     from fieldslope.schemas.store_intake import Intake
     from fieldslope.schemas.store_resolve import FlagResolver
 
@@ -301,7 +302,18 @@ class Store:
                               message=duplicate_message(name, *earlier)).result(earlier[0])
         people = who(operator)
         plan = BatchPlan.make(self.protocol, name, data, progress)
-        return self._write(lambda conn: self.intake.store(conn, plan, people, accept_valid, progress))
+        return self._write(lambda conn: self._rejoin_after(conn, self.intake.store(conn, plan, people, accept_valid,
+                                                                                   progress), people))
+
+    def _rejoin_after(self, conn: sqlite3.Connection, result: ImportResult, people: tuple[str, str]) -> ImportResult:
+        """Census rows kept aside for an ID this batch brought join by themselves (same transaction)."""
+        if result.outcome not in (Outcome.STORED, Outcome.PARTIAL) or result.checked_only:
+            return result
+        joined = self.resolver.quarantine.rejoin(conn, people, result.batch_id,
+                                                 f"batch {result.batch_id} ({result.file_name}) put its ID on record")
+        if not joined:
+            return result
+        return replace(result, message=result.message + " " + "; ".join(joined)[:1].upper() + "; ".join(joined)[1:] + ".")
 
     def check_bytes(self, name: str, data: bytes, accept_valid: bool = False, recheck: bool = False) -> ImportResult:
         """Run every check an import would run, without writing anything. Bytes already taken in give
@@ -373,13 +385,20 @@ class Store:
 
     # -- resolving flags (store_resolve, store_quarantine) -------------------------------
     def resolve_flag(self, flag_id: int, action: str, value: str | None = None, reason: str = "",
-                     operator: str | None = None) -> Resolution:
-        """Keep, exclude or set (correct) the value behind a flag; the old value stays on record."""
+                     operator: str | None = None, again: bool = False) -> Resolution:
+        """Keep, exclude or set (correct) the value behind a flag; the old value stays on record. A flag
+        decided before is refused (one sentence) unless ``again``."""
         from fieldslope.schemas.store_resolve import checked_request
 
         reason = checked_request(action, value, reason)
         people = who(operator)
-        return self._write(lambda c: self.resolver.resolve(c, int(flag_id), action, value, reason, people))
+        return self._write(lambda c: self.resolver.resolve(c, int(flag_id), action, value, reason, people, again))
+
+    def copies(self, flag_id: int) -> list[Copy]:
+        """The copies (sheet rows) of the duplicated ID behind a duplicate ID flag, with their values."""
+        from fieldslope.schemas.store_copies import copies
+
+        return self._read(lambda c: copies(c, self.protocol, self.fields, int(flag_id)))
 
     def typed_text(self, field: str, text: str) -> str:
         """Check a value typed for ``field``; return it as stored, or raise RecordError saying why."""

@@ -17,6 +17,10 @@ from fieldslope.schemas.records import FlagNote, RowError
 from fieldslope.schemas.store_types import show
 
 
+#: how the census check's error begins (a quarantined row with it may join by itself later)
+UNKNOWN_ID_REASON = "is not on record in season"
+
+
 def census_unknown(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame) -> list[RowError]:
     """A census row (fitness only) for an ID not on record in its season is a hard error."""
     if valid.empty:
@@ -33,7 +37,7 @@ def census_unknown(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame
             hint = (f" ({twin!r} is, differing only in {how_they_differ(ind, twin)}: if that is meant, correct "
                     "the ID)") if twin else ""
             out.append(RowError(int(row), protocol.id_col, ind,
-                                f"is not on record in season {season}{hint}; a fitness census only completes "
+                                f"{UNKNOWN_ID_REASON} {season}{hint}; a fitness census only completes "
                                 "individuals already recorded: import their measurements first or correct the ID"))
     return out
 

@@ -25,6 +25,7 @@ from fieldslope.schemas.store_queries import last_batch_id
 from fieldslope.schemas.store_rows import insert_flags, insert_records
 from fieldslope.schemas.store_supersede import supersede
 from fieldslope.schemas.store_types import RecordError, Resolution
+from fieldslope.schemas.store_checks import UNKNOWN_ID_REASON
 
 #: the one audit row of a decision on a flag (keep, exclude or set), shared by every resolver
 INSERT_RESOLUTION = ("INSERT INTO resolutions(flag_id, action, old, new, reason, operator, login, created, "
@@ -75,7 +76,7 @@ class QuarantineFix:
         """Exclude the row, or set one of its cells (the row joins the record when no error is left)."""
         batch_id, row, payload, _ = conn.execute(
             "SELECT batch_id, row, cells, errors FROM quarantine WHERE id = ?", (qid,)).fetchone()
-        self._refuse_if_closed(conn, qid, batch_id, row, action)
+        self.refuse_if_closed(conn, qid, action)
         after = last_batch_id(conn)
         if action == "exclude":
             others = conn.execute("SELECT id, value FROM flags WHERE quarantine_id = ? AND id <> ? ORDER BY id",
@@ -90,8 +91,9 @@ class QuarantineFix:
                          people, after)
 
     @staticmethod
-    def _refuse_if_closed(conn: sqlite3.Connection, qid: int, batch_id: int, row: int, action: str) -> None:
+    def refuse_if_closed(conn: sqlite3.Connection, qid: int, action: str) -> None:
         """Raise ``RecordError`` when the row joined the record or was left out already, or for ``keep``."""
+        batch_id, row = conn.execute("SELECT batch_id, row FROM quarantine WHERE id = ?", (qid,)).fetchone()
         joined = conn.execute("SELECT 1 FROM records WHERE batch_id = ? AND row = ? AND correction_id IS NOT NULL",
                               (batch_id, row)).fetchone()
         if joined:
@@ -137,9 +139,54 @@ class QuarantineFix:
                                     lambda *a: None, correction_id=res_id)
         supersede(conn, self.protocol, batch_id, outcome.valid, record_ids, now(), before=after + 1)
         insert_flags(conn, batch_id, outcome.flags, record_ids, now())
+        also = self.rejoin(conn, people, after, f"row {row} of batch {batch_id} joined (flag {flag_id})")
         return Resolution(flag_id, "set", old=flagged, new=str(value).strip(), joined=True,
                           message=f"flag {flag_id}: {field} set to {str(value).strip()}; row {row} of batch "
-                                  f"{batch_id} is now valid and joined the record.")
+                                  f"{batch_id} is now valid and joined the record"
+                                  + "".join(f"; {s}" for s in also) + ".")
+
+    def rejoin(self, conn: sqlite3.Connection, people: tuple[str, str], after: int, cause: str) -> list[str]:
+        """Census rows kept aside only because their ID was not on record join by themselves once it is (its
+        measurement row arrived, or a mangled ID was corrected): each of the row's flags gets a ``keep``
+        row naming ``cause``. Returns one sentence per row that joined."""
+        p = self.protocol
+        candidates = conn.execute(
+            "SELECT q.id, q.batch_id, q.row, q.cells, q.errors FROM quarantine q "
+            "WHERE EXISTS (SELECT 1 FROM records r WHERE r.individual = q.individual AND r.season = q.season) "
+            "AND NOT EXISTS (SELECT 1 FROM records r WHERE r.batch_id = q.batch_id AND r.row = q.row "
+            "AND r.correction_id IS NOT NULL) "
+            "AND NOT EXISTS (SELECT 1 FROM flags f JOIN resolutions x ON x.flag_id = f.id "
+            "WHERE f.quarantine_id = q.id AND x.action = 'exclude') ORDER BY q.id").fetchall()
+        said = []
+        for qid, batch_id, row, payload, errors in candidates:
+            if not any(e["column"] == p.id_col and e["reason"].startswith(UNKNOWN_ID_REASON)
+                       for e in json.loads(errors)):
+                continue
+            fixes = dict(conn.execute(
+                "SELECT f.field, r.new FROM resolutions r JOIN flags f ON f.id = r.flag_id "
+                "WHERE f.quarantine_id = ? AND r.action = 'set' ORDER BY r.id", (qid,)).fetchall())
+            data = json.loads(payload)
+            try:
+                plan = BatchPlan(data["file"], b"", None, self._check(_fixed_sheet(data, fixes, row)))
+            except SheetError:
+                continue
+            outcome = self.evaluate(conn, plan, accept_valid=False)
+            if outcome.errors:
+                continue
+            flags = conn.execute("SELECT f.id, f.value FROM flags f WHERE f.quarantine_id = ? AND NOT EXISTS "
+                                 "(SELECT 1 FROM resolutions r WHERE r.flag_id = f.id) ORDER BY f.id",
+                                 (qid,)).fetchall()
+            stamp, why = now(), f"joined by itself: {cause}"
+            res_ids = [conn.execute(INSERT_RESOLUTION, (fid, "keep", old, None, why, *people, stamp, after)).lastrowid
+                       for fid, old in flags]
+            if not res_ids:
+                continue
+            record_ids = insert_records(conn, p, self.fields, batch_id, after, outcome.valid, lambda *a: None,
+                                        correction_id=res_ids[0])
+            supersede(conn, p, batch_id, outcome.valid, record_ids, stamp, before=after + 1)
+            insert_flags(conn, batch_id, outcome.flags, record_ids, stamp)
+            said.append(f"census row {row} of batch {batch_id} joined the record by itself")
+        return said
 
     def _check(self, sheet: Sheet) -> CheckReport:
         from fieldslope.schemas.validate import check_sheet

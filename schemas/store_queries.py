@@ -60,8 +60,9 @@ def flag_rows(conn: sqlite3.Connection, where: str, args: tuple) -> list[StoredF
            "coalesce(r.action, CASE WHEN s.id IS NULL THEN 'open' ELSE 'superseded' END), "
            "coalesce(r.operator, 'batch ' || s.batch_id, ''), coalesce(r.created, s.created, ''), "
            "coalesce(r.reason, 'a later batch gave a new value', ''), coalesce(r.new, ''), "
-           "f.quarantine_id IS NOT NULL, coalesce(r.login, '') FROM flags f JOIN batches b ON b.id = f.batch_id "
+           "f.quarantine_id IS NOT NULL, coalesce(r.login, ''), f.record_id FROM flags f JOIN batches b ON b.id = f.batch_id "
            "LEFT JOIN resolutions r ON r.id = (SELECT max(id) FROM resolutions WHERE flag_id = f.id) "
            "LEFT JOIN supersessions s ON s.id = (SELECT max(id) FROM supersessions WHERE flag_id = f.id) "
            f"{where} ORDER BY f.id")
-    return [StoredFlag(*r[:16], quarantined=bool(r[16]), resolved_login=r[17]) for r in conn.execute(sql, args).fetchall()]
+    return [StoredFlag(*r[:16], quarantined=bool(r[16]), resolved_login=r[17], record_id=r[18])
+            for r in conn.execute(sql, args).fetchall()]

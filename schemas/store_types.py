@@ -99,6 +99,7 @@ class StoredFlag:
     new_value: str = ""
     quarantined: bool = False
     resolved_login: str = ""      # the login name of the account that resolved it
+    record_id: int | None = None  # the stored row it was raised on (None for a quarantined row)
 
     @property
     def is_open(self) -> bool:

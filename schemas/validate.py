@@ -394,7 +394,8 @@ def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[st
             where = ", ".join(map(str, groups[keys.iat[i]]))
             note(i, "", Kind.DUPLICATE_ID, str(ids[i]),
                  f"ID {ids[i]} appears more than once for season {seasons[i]} (rows {where}); "
-                 "keep the right row and exclude or correct the others.")
+                 "keep the right row (its other copies are then left out), or exclude a wrong copy or "
+                 "correct its ID.")
 
     for i, reason in mangled_id_reasons(ids):
         note(i, roles.id, Kind.MANGLED_ID, str(ids[i]),

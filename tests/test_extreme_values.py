@@ -79,7 +79,7 @@ def test_a_kept_1e200_leaves_the_estimate_command_working(study, write_batch, ho
     rows[4]["wing"] = "1e200"
     assert study.store.import_file(write_batch(rows), operator="t").outcome == "stored"
     for flag in study.store.flags():
-        if flag.field == "wing":
+        if flag.field == "wing" and study.store.flag(flag.id).is_open:   # keeping one settles its twin
             study.store.resolve_flag(flag.id, "keep", reason="checked on the slip", operator="t")
     code = main(["estimate", "--bootstrap", "0", "--skip-pedigree", "--study", str(study.root)])
     out = capsys.readouterr().out

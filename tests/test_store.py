@@ -145,7 +145,7 @@ def test_exclude_keep_and_outlier_sensitivity(study, write_batch):
     assert math.isnan(study.store.effective_frame(without_open_outliers=True).set_index("tag").at["H07", "wing"])
     study.store.resolve_flag(out[0].id, "keep", reason="re-measured, it is right")
     assert study.store.effective_frame(without_open_outliers=True).set_index("tag").at["H07", "wing"] == 5.9
-    study.store.resolve_flag(out[0].id, "exclude", reason="damaged wing")
+    study.store.resolve_flag(out[0].id, "exclude", reason="damaged wing", again=True)
     frame = study.store.effective_frame().set_index("tag")
     assert math.isnan(frame.at["H07", "wing"]) and frame.at["H07", "tibia"] == 1.5
     assert study.store.flag(out[0].id).status == "exclude"

@@ -85,10 +85,14 @@ def build_parser() -> argparse.ArgumentParser:
     p = command("resolve", "keep, exclude or correct the value behind a flag")
     p.add_argument("flag", metavar="FLAG", type=_flag_id)
     how = p.add_mutually_exclusive_group(required=True)
-    how.add_argument("--keep", action="store_true", help="the value is right")
+    how.add_argument("--keep", action="store_true",
+                     help="the value is right (a duplicate ID: this row is the record, its other copies are left out)")
     how.add_argument("--exclude", action="store_true", help="leave the value (or row) out of the estimates")
-    how.add_argument("--set", metavar="VALUE", help="replace the value (the old one stays on record)")
+    how.add_argument("--set", metavar="VALUE", help="replace the value (the old one stays on record); for a "
+                     "duplicate or mangled ID, the right ID: the row moves to it")
     p.add_argument("--reason", metavar="TEXT", required=True, help="why (kept with the change)")
+    p.add_argument("--again", action="store_true",
+                   help="decide a flag that was decided before (the earlier decision stays in the history)")
     p.add_argument("--operator", metavar="NAME", type=_name, help="who resolves it (default: your login name)")
 
     p = command("batches", "list the batches received: outcome, rows, operator, time and file")

@@ -123,7 +123,7 @@ def resolve(args) -> int:
     action = "keep" if args.keep else "exclude" if args.exclude else "set"
     with _open(args) as study:
         res = study.store.resolve_flag(args.flag, action, value=args.set, reason=args.reason,
-                                       operator=args.operator)
+                                       operator=args.operator, again=args.again)
     fmt.say(res.message)
     return 0
 

@@ -237,12 +237,19 @@ def demo_study():
 
 
 def resolve_flags(study_dir: Path, flag_ids: list[int], action: str, value: str | None, reason: str,
-                  operator: str) -> list:
-    """Keep, exclude or correct flags (its own writing connection); returns the store's Resolutions."""
+                  operator: str, again: bool = False) -> list:
+    """Keep, exclude or correct flags (its own writing connection); returns the store's Resolutions. Of a
+    group, a flag that an earlier decision of the group settled already (its twin on the same value, the
+    other copy of a duplicated ID) is passed over."""
     study = _writing(study_dir)
     try:
-        return [study.store.resolve_flag(i, action=action, value=value, reason=reason, operator=operator)
-                for i in flag_ids]
+        out = []
+        for i in flag_ids:
+            if len(flag_ids) > 1 and not again and not study.store.flag(i).is_open:
+                continue
+            out.append(study.store.resolve_flag(i, action=action, value=value, reason=reason, operator=operator,
+                                                again=again))
+        return out
     finally:
         _close(study)
 
