@@ -79,6 +79,8 @@ class Kind:
 
 #: Every flag kind.
 FLAG_KINDS: Final = tuple(v for k, v in vars(Kind).items() if k.isupper())
+#: Flags on a row's ID: correcting one moves the whole row to the right ID.
+ID_KINDS: Final = (Kind.DUPLICATE_ID, Kind.MANGLED_ID)
 
 #: Each flag kind in the plain words the dashboard shows (short: they sit in table cells).
 FLAG_LABELS: Final = {

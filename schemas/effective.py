@@ -13,7 +13,7 @@ import sqlite3
 import numpy as np
 import pandas as pd
 
-from fieldslope.common.names import Kind
+from fieldslope.common.names import ID_KINDS, Kind
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.store_types import FieldCol
 
@@ -129,7 +129,7 @@ def effective(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Fi
     states = flag_states(conn, as_of, leaving_out=True)
     leave_out = states["status"].eq("exclude") | (states["status"].eq("open") & states["kind"].eq(Kind.OUT_OF_RANGE))
     # a row whose ID was corrected is stored again under the right ID: the old row is left out
-    leave_out |= states["status"].eq("set") & states["kind"].isin([Kind.DUPLICATE_ID, Kind.MANGLED_ID])
+    leave_out |= states["status"].eq("set") & states["kind"].isin(ID_KINDS)
     if without_open_outliers:
         leave_out |= states["status"].eq("open") & states["kind"].eq(Kind.OUTLIER)
     drop = states[leave_out]

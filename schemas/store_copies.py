@@ -20,7 +20,7 @@ from typing import Callable
 import pandas as pd
 
 from fieldslope.common.errors import SheetError
-from fieldslope.common.names import Kind, flag_label
+from fieldslope.common.names import ID_KINDS, Kind, flag_label
 from fieldslope.schemas.batch_plan import BatchPlan, now
 from fieldslope.schemas.effective import output_fields
 from fieldslope.schemas.protocol import Protocol
@@ -31,8 +31,6 @@ from fieldslope.schemas.store_supersede import supersede
 from fieldslope.schemas.store_queries import flag_rows
 from fieldslope.schemas.store_types import FieldCol, RecordError, StoredFlag, show
 
-#: flags whose correction gives the row another ID (a whole-row move, not a value)
-ID_KINDS = (Kind.DUPLICATE_ID, Kind.MANGLED_ID)
 #: flags that ask one question of one value (is it plausible?): one answer settles both
 SAME_VALUE_KINDS = (Kind.OUT_OF_RANGE, Kind.OUTLIER)
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 import math
 import sqlite3
 
-from fieldslope.common.names import Kind
+from fieldslope.common.names import ID_KINDS, Kind
 from fieldslope.schemas import effective as eff
 from fieldslope.schemas import store_copies as copies
 from fieldslope.schemas.batch_plan import now
@@ -60,7 +60,7 @@ class FlagResolver:
             return self.quarantine.resolve(conn, flag_id, quarantine_id, field, flagged, action, value,
                                            reason, people)
         after = last_batch_id(conn)
-        if action == "set" and flag.kind in copies.ID_KINDS:
+        if action == "set" and flag.kind in ID_KINDS:
             new_id, also = self.mover.move(conn, flag, str(value), reason, people, after)
             joined = self.quarantine.rejoin(conn, people, after, f"{new_id} is on record now (flag {flag_id})")
             tail = "".join(f"; {s}" for s in (also, *joined) if s)

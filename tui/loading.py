@@ -254,6 +254,17 @@ def resolve_flags(study_dir: Path, flag_ids: list[int], action: str, value: str 
         _close(study)
 
 
+def duplicate_copies(study_dir: Path, flag_id: int) -> list:
+    """The copies (sheet rows, values, status) of the duplicated ID behind a duplicate ID flag."""
+    from fieldslope.schemas.study import Study
+
+    study = Study.open(study_dir, readonly=True)
+    try:
+        return study.store.copies(flag_id)
+    finally:
+        study.close()
+
+
 def set_heritability(study_dir: Path, trait: str, value: float, se: float | None, source: str, operator: str) -> None:
     """Keep an entered h² (with its source) in the study."""
     study = _writing(study_dir)

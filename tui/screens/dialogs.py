@@ -115,19 +115,24 @@ class FormScreen(ModalScreen[dict | None]):
         Binding("escape", "cancel", "Cancel", id="form_cancel"),
         Binding("ctrl+s", "submit", "OK", id="form_ok"),
     ]
+    AUTO_FOCUS = "Input"     # the first field, also when a scrolling detail comes before it
 
     def __init__(self, title: str, text: str, fields: list[tuple[str, str, str]], required: tuple[str, ...],
-                 check: Callable[[dict], str] | None = None, submit: Callable[[dict], None] | None = None):
-        """``fields``: (name, label, initial value)."""
+                 check: Callable[[dict], str] | None = None, submit: Callable[[dict], None] | None = None,
+                 detail: Content | None = None):
+        """``fields``: (name, label, initial value); ``detail``: content shown above the text (scrolls)."""
         super().__init__()
         self.title_text, self.text, self.fields, self.required = title, text, fields, required
-        self.check, self.submit = check, submit
+        self.check, self.submit, self.detail = check, submit, detail
         self.busy = False
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog"):
             yield Static(literal(self.title_text), classes="dialog-title")
-            if self.text:
+            if self.detail is not None:
+                with VerticalScroll(classes="dialog-detail", id="form-detail"):
+                    yield Static(self.detail)
+            if self.text or self.detail is not None:
                 yield Static(literal(self.text, keep_newlines=True), classes="dialog-text")
             for name, label, value in self.fields:
                 yield Label(label + (" (required)" if name in self.required else ""))
@@ -136,6 +141,16 @@ class FormScreen(ModalScreen[dict | None]):
             with Horizontal(classes="dialog-buttons"):
                 yield Button("OK (ctrl+s)", id="form-ok", variant="primary", compact=True)
                 yield Button("Cancel (esc)", id="form-cancel", compact=True)
+
+    def show_detail(self, detail: Content, text: str | None = None) -> None:
+        """Replace the detail (and the text) once the owner has read what they show."""
+        self.detail = detail
+        if text is not None:
+            self.text = text
+        for shown in self.query("#form-detail Static").results(Static):    # none yet before compose
+            shown.update(detail)
+        for shown in self.query(".dialog-text").results(Static):
+            shown.update(literal(self.text, keep_newlines=True))
 
     def values(self) -> dict[str, str]:
         return {name: self.query_one(f"#form-{name}", Input).value.strip() for name, _, _ in self.fields}

@@ -13,13 +13,15 @@ from textual.content import Content
 from textual.message import Message
 from textual.widgets import DataTable, Static
 
-from fieldslope.common.names import flag_label
+from fieldslope.common.names import ID_KINDS, Kind, flag_label
 from fieldslope.common.words import plural
 from fieldslope.schemas.store_types import StoredFlag
+from fieldslope.tui.cli_format import cut
 from fieldslope.tui.messages import StoreWritten
 from fieldslope.tui.safe_text import escape_controls
 from fieldslope.tui.screens.base import StudyScreen
-from fieldslope.tui.screens.dialogs import FormScreen
+from fieldslope.tui.screens.copies import duplicate_texts, side_by_side
+from fieldslope.tui.screens.dialogs import ConfirmScreen, FormScreen
 from fieldslope.schemas.operator import login_name
 from fieldslope.tui.snapshot import Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble, literal
@@ -43,6 +45,12 @@ class FlagsScreen(StudyScreen):
     class Resolved(Message):
         text: str
 
+    @dataclass
+    class CopiesRead(Message):
+        flag: StoredFlag
+        action: str
+        copies: list
+
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
         self.history = False
@@ -57,8 +65,10 @@ class FlagsScreen(StudyScreen):
         yield LiteralTable(id="flags-table", cursor_type="row", zebra_stripes=True, classes="panel")
         yield Static(id="flags-detail", classes="notes panel")
 
+    COLUMNS = ("kind", "site", "batch", "ID", "field", "value")
+
     def on_mount(self) -> None:
-        self.query_one("#flags-table", DataTable).add_columns("kind", "site", "batch", "ID", "field", "value")
+        self.query_one("#flags-table", DataTable).add_columns(*self.COLUMNS)
 
     def record_index(self, snap: Snapshot) -> dict:
         """(ID, season) -> row position in the effective data, built once per snapshot."""
@@ -93,15 +103,24 @@ class FlagsScreen(StudyScreen):
         self.query_one("#flags-counts", Static).update(assemble(*head))
         table = self.query_one("#flags-table", DataTable)
         keep = table.cursor_row
+        columns = (*self.COLUMNS, "decision") if self.history else self.COLUMNS
+        if len(table.columns) != len(columns):     # the resolved view has a decision column
+            table.clear(columns=True)
+            table.add_columns(*columns)
         table.clear()
         last = None
         for f in flags:
             group = self.group_of(f)
             kind = flag_label(group[0])
-            shown = ("", "", "") if group == last else (kind, str(group[1])[:14], str(group[2]))
+            shown = ("", "", "") if group == last else (kind, str(group[1])[:(10 if self.history else 14)],
+                                                        str(group[2]))
             last = group
-            table.add_row(*shown, str(f.individual), str(f.field)[:10],
-                          str(f.value)[:12], key=str(f.id))
+            # a whole-row flag (a duplicate ID) names its sheet row: the copies of one ID tell apart
+            cells = [*shown, str(f.individual), str(f.field)[:10] or f"row {f.row}",
+                     cut(f.value, 10) if self.history else str(f.value)[:12]]
+            if self.history:
+                cells.append(cut(decision_text(f), 16))
+            table.add_row(*cells, key=str(f.id))
         if flags:
             table.move_cursor(row=max(0, min(keep, len(flags) - 1)))
             self.detail(snap, flags[table.cursor_row])
@@ -121,9 +140,8 @@ class FlagsScreen(StudyScreen):
         lines.append(literal(f"flag {flag.id}, batch {flag.batch_id} {flag.file_name}, "
                              f"sheet row {flag.row}"))
         if not flag.is_open:
-            lines.append(assemble((f"{flag.status} ", "bold"),
-                                          f"by {flag.resolved_by} at {flag.resolved_at}: {flag.reason}",
-                                          f" (new value {flag.new_value})" if flag.new_value else ""))
+            lines.append(assemble((f"{decision_text(flag)} ", "bold"),
+                                  f"by {flag.resolved_by} at {flag.resolved_at}: {flag.reason}"))
         f = snap.frame
         if f is not None and not f.empty:
             r = self.record_of(snap, flag)
@@ -155,10 +173,10 @@ class FlagsScreen(StudyScreen):
              "set": "The new value is used from now on; the old one stays in the history."}
     VERBS = {"keep": "Keep", "exclude": "Exclude", "set": "Correct"}
 
-    def _picked(self) -> StoredFlag | None:
+    def _picked(self, open_only: bool = True) -> StoredFlag | None:
         table = self.query_one("#flags-table", DataTable)
-        if self.history or not self.rows or not (0 <= table.cursor_row < len(self.rows)):
-            self.app.notify("Pick an open flag first.", severity="warning")
+        if (self.history and open_only) or not self.rows or not (0 <= table.cursor_row < len(self.rows)):
+            self.app.notify("Pick an open flag first." if open_only else "Pick a flag first.", severity="warning")
             return None
         refusal = self.app.write_refusal()
         if refusal:
@@ -167,20 +185,71 @@ class FlagsScreen(StudyScreen):
         return self.rows[table.cursor_row]
 
     def action_resolve(self, action: str) -> None:
-        flag = self._picked()
+        """Decide the highlighted flag; a flag decided before is decided again only after a confirm step."""
+        flag = self._picked(open_only=False)
         if flag is None:
             return
+        if flag.is_open:
+            self._decide(flag, action, again=False)
+            return
+        if flag.status == "set" and flag.kind in ID_KINDS:
+            self.app.notify(f"Flag {flag.id}: sheet row {flag.row} moved to ID {flag.new_value}; decide on its values "
+                            "under that ID.", severity="warning")
+            return
+        if flag.status == "superseded":
+            self.app.notify(f"Flag {flag.id} is superseded: a later batch gave a new value, so there is nothing "
+                            "to decide.", severity="warning")
+            return
+        text = (f"Flag {flag.id} ({flag.individual} {flag.field or f'row {flag.row}'}) was decided: "
+                f"{decision_text(flag)} by {flag.resolved_by} at {flag.resolved_at}, because: {flag.reason}\n\n"
+                f"{self.VERBS[action]} it instead? The earlier decision stays in the history.")
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self._decide(flag, action, again=True)
+
+        self.app.push_screen(ConfirmScreen(f"Decide flag {flag.id} again?", text, yes="Decide again"), answered)
+
+    def _decide(self, flag: StoredFlag, action: str, again: bool) -> None:
         what = f"{flag.individual} {flag.field or 'record'} = {flag.value!s} ({flag_label(flag.kind)})"
         fields = [("reason", "Reason", "")]
         if action == "set":   # shown as it will be read: control characters in the old value written out
-            fields.insert(0, ("value", "New value", escape_controls(flag.value or "")))
+            label = f"Right ID for row {flag.row}" if flag.kind in ID_KINDS else "New value"
+            fields.insert(0, ("value", label, escape_controls(flag.value or "")))
         required = ("reason", "value") if action == "set" else ("reason",)
 
         def submit(values: dict) -> None:
-            self._resolve_worker(self.app.study_dir, [flag.id], action, values.get("value"), values["reason"])
+            self._resolve_worker(self.app.study_dir, [flag.id], action, values.get("value"), values["reason"],
+                                 again)
 
-        self._open_form(FormScreen(f"{self.VERBS[action]}: {what}", self.TEXTS[action], fields, required,
-                                   submit=submit))
+        if flag.kind == Kind.DUPLICATE_ID:
+            title = (f"{self.VERBS[action]}{' again' if again else ''} sheet row {flag.row}: ID {flag.individual} "
+                     f"in {flag.season} (batch {flag.batch_id})")
+            form = FormScreen(title, "", fields, required, submit=submit,
+                              detail=literal("reading the copies …", "$text-muted"))
+            self._open_form(form)
+            self._copies_worker(self.app.study_dir, flag, action)
+            return
+        self._open_form(FormScreen(f"{self.VERBS[action]}{' again' if again else ''}: {what}", self.TEXTS[action],
+                                   fields, required, submit=submit))
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="flags-copies")
+    def _copies_worker(self, study_dir: Path, flag: StoredFlag, action: str) -> None:
+        from fieldslope.tui.loading import duplicate_copies
+
+        self.post_message(self.CopiesRead(flag, action, duplicate_copies(study_dir, flag.id)))
+
+    def on_flags_screen_copies_read(self, msg: CopiesRead) -> None:
+        form = self.form
+        if form is None or not form.is_attached:
+            return
+        this = next((c for c in msg.copies if c.flag_id == msg.flag.id), None)
+        if this is None:
+            form.failed(f"flag {msg.flag.id} has no copies on record any more; close this and look again.")
+            return
+        width = max(40, min(68, self.size.width - 8))
+        text = duplicate_texts(msg.copies, this, str(msg.flag.individual), str(msg.flag.season))[msg.action]
+        form.show_detail(side_by_side(msg.copies, msg.flag.id, width), text)
 
     def action_resolve_group(self, action: str) -> None:
         """Keep or exclude every open flag of the highlighted group (same kind, site and batch)."""
@@ -195,7 +264,9 @@ class FlagsScreen(StudyScreen):
         def submit(values: dict) -> None:
             self._resolve_worker(self.app.study_dir, ids, action, None, values["reason"])
 
-        self._open_form(FormScreen(title, self.TEXTS[action] + " One reason is recorded for each flag.",
+        self._open_form(FormScreen(title, self.TEXTS[action] + " One reason is recorded for each flag."
+                                   + (" Of each duplicated ID, the first copy is kept, the others left out."
+                                      if group[0] == Kind.DUPLICATE_ID and action == "keep" else ""),
                                    [("reason", "Reason", "")], ("reason",), submit=submit))
 
     def _open_form(self, form: FormScreen) -> None:
@@ -205,10 +276,10 @@ class FlagsScreen(StudyScreen):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="flags-resolve")
     def _resolve_worker(self, study_dir: Path, flag_ids: list[int], action: str, value: str | None,
-                        reason: str) -> None:
+                        reason: str, again: bool = False) -> None:
         from fieldslope.tui.loading import resolve_flags
 
-        results = resolve_flags(study_dir, flag_ids, action, value, reason, login_name())
+        results = resolve_flags(study_dir, flag_ids, action, value, reason, login_name(), again=again)
         msg = (getattr(results[0], "message", "") if len(results) == 1 else
                f"{plural(len(results), 'flag')}: {action} recorded with the reason given.")
         self.post_message(self.Resolved(msg or f"{action} recorded."))
@@ -219,6 +290,15 @@ class FlagsScreen(StudyScreen):
             form.succeeded()
         self.app.notify(msg.text, timeout=4)
         self.post_message(StoreWritten(msg.text))
+
+
+def decision_text(flag: StoredFlag) -> str:
+    """The decision on a flag in a few words (the resolved view's column)."""
+    if flag.status == "set":
+        return f"moved to {flag.new_value}" if flag.kind in ID_KINDS else f"set to {flag.new_value}"
+    if flag.status == "keep" and flag.quarantined:
+        return "joined"
+    return {"keep": "kept", "exclude": "left out", "superseded": "superseded"}.get(flag.status, flag.status)
 
 
 def _short(v) -> str:
