@@ -37,15 +37,19 @@ def events(conn: sqlite3.Connection, fields: dict[str, FieldCol], individual: st
     """One individual's events, oldest first (at equal times: values, flags, resolutions, supersessions)."""
     names = list(fields)
     rows = conn.execute(
-        "SELECT b.received, r.season, r.batch_id, b.file_name, r.row, b.operator, b.login, r.correction_id"
+        "SELECT b.received, r.season, r.batch_id, b.file_name, r.row, b.operator, b.login, r.correction_id, "
+        # a row moved here from another ID (a duplicate or mangled ID corrected): that ID and the flag
+        "CASE WHEN f.kind IN ('duplicate_id', 'mangled_id') THEN 'moved here from ID ' || c.old || ' (flag ' "
+        "|| c.flag_id || ')' END"
         + "".join(f", r.{fields[n].col}" for n in names)
-        + " FROM records r JOIN batches b ON b.id = r.batch_id WHERE r.individual = ? ORDER BY r.seq_batch, r.id",
+        + " FROM records r JOIN batches b ON b.id = r.batch_id LEFT JOIN resolutions c ON c.id = r.correction_id "
+          "LEFT JOIN flags f ON f.id = c.flag_id WHERE r.individual = ? ORDER BY r.seq_batch, r.id",
         (individual,)).fetchall()
     found: list[tuple] = []
     for rec in rows:
-        when, season, batch, file, row, operator, login, correction = rec[:8]
-        detail = "joined after a correction" if correction is not None else ""
-        for name, value in zip(names, rec[8:]):
+        when, season, batch, file, row, operator, login, correction, moved = rec[:9]
+        detail = moved or ("joined after a correction" if correction is not None else "")
+        for name, value in zip(names, rec[9:]):
             if value is not None:
                 found.append((when, 0, season, name, "recorded", show(value), "", batch, file, row, operator, detail,
                               login))

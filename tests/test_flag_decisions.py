@@ -69,7 +69,7 @@ def test_correcting_a_copy_moves_the_row_to_the_right_id(study):
     assert study.store.flag(first.id).status == "keep"      # no other copy left
     assert study.store.flag(second.id).new_value == "H03"
     events = study.store.history("H03")
-    assert "4.9" in set(events.value)
+    assert ("4.9", f"moved here from ID H01 (flag {second.id})") in set(zip(events.value, events.detail))
     # a moved row is decided under its new ID, not through the old flag again
     with pytest.raises(RecordError, match="moved to ID H03"):
         study.store.resolve_flag(second.id, "keep", reason="undo", again=True)
@@ -157,13 +157,18 @@ def test_cli_resolve_refuses_a_second_decision_without_again(tmp_path, protocol_
 # -- a census row waiting for its ID ------------------------------------------------------------------
 def test_census_row_for_an_unknown_id_joins_when_the_measurement_row_arrives(study):
     study.store.import_bytes("m.csv", b"tag,season,site,wing\nH01,2024,Gull Flat,4.5\n")
-    res = study.store.import_bytes("c.csv", b"tag,season,survived\nH01,2024,1\nH09,2024,0\n", accept_valid=True)
-    assert res.n_quarantined == 1
-    q = by_kind(study.store, "quarantined")[0]
-    res = study.store.import_bytes("late.csv", b"tag,season,site,wing\nH09,2024,Reed Bend,4.2\n", operator="bo")
+    res = study.store.import_bytes("c.csv", b"tag,season,survived\nH01,2024,1\nH09,2024,0\nH10,2024,7\n",
+                                   accept_valid=True)
+    assert res.n_quarantined == 2
+    q = next(f for f in by_kind(study.store, "quarantined") if f.individual == "H09")
+    res = study.store.import_bytes("late.csv", b"tag,season,site,wing\nH09,2024,Reed Bend,4.2\n"
+                                               b"H10,2024,Reed Bend,4.4\n", operator="bo")
     assert "census row 3 of batch 2 joined the record by itself" in res.message.lower()
-    row = study.store.effective_frame().set_index("tag").loc["H09"]
-    assert (row["wing"], row["survived"]) == (4.2, 0.0)
+    frame = study.store.effective_frame().set_index("tag")
+    assert (frame.at["H09", "wing"], frame.at["H09", "survived"]) == (4.2, 0.0)
+    # H10's census row has another error (survived 7 is not 0 or 1): it still waits for a decision
+    assert "row 4" not in res.message and math.isnan(frame.at["H10", "survived"])
+    assert [f.individual for f in by_kind(study.store, "quarantined")] == ["H10"]
     closed = study.store.flag(q.id)
     assert (closed.status, closed.resolved_by) == ("keep", "bo")
     assert "joined by itself" in closed.reason and "batch 3" in closed.reason
@@ -181,12 +186,3 @@ def test_census_row_joins_when_the_mangled_id_of_its_measurement_row_is_correcte
     assert "H09\u200b" not in frame.index
     assert (frame.at["H09", "wing"], frame.at["H09", "survived"]) == (4.2, 0.0)
     assert study.store.flag(q.id).status == "keep"
-
-
-def test_census_row_with_another_error_still_waits(study):
-    study.store.import_bytes("m.csv", b"tag,season,site,wing\nH01,2024,Gull Flat,4.5\n")
-    study.store.import_bytes("c.csv", b"tag,season,survived\nH01,2024,1\nH09,2024,7\n", accept_valid=True)
-    res = study.store.import_bytes("late.csv", b"tag,season,site,wing\nH09,2024,Reed Bend,4.2\n")
-    assert "joined" not in res.message
-    assert math.isnan(study.store.effective_frame().set_index("tag").at["H09", "survived"])
-    assert len(by_kind(study.store, "quarantined")) >= 1
