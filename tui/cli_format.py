@@ -12,7 +12,7 @@ import textwrap
 from collections import Counter
 from typing import TYPE_CHECKING, Iterable, Sequence, TextIO
 
-from fieldslope.common.names import flag_label
+from fieldslope.common.names import ID_KINDS, flag_label
 from fieldslope.common.words import plural
 from fieldslope.schemas.operator import by_text
 from fieldslope.tui.safe_text import escape_controls
@@ -106,7 +106,8 @@ def print_flags(flags, out: TextIO | None = None) -> None:
         print(cut(head, WIDTH - 25) + f"  [{cut(status, 21)}]", file=out)   # "superseded by batch 12"
         print(wrap(f"{f.message} ({f.file_name}, row {f.row})"), file=out)
         if f.status != "open" and f.reason:
-            change = f"set to {f.new_value}; " if f.status == "set" else ""
+            change = (f"{'moved to ID' if f.kind in ID_KINDS else 'set to'} {f.new_value}; "
+                      if f.status == "set" else "")
             login = f"; login {f.resolved_login}" if f.resolved_login and f.resolved_login != f.resolved_by else ""
             print(wrap(f"{change}why: {f.reason} ({f.resolved_at}{login})"), file=out)
 

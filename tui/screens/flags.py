@@ -172,6 +172,8 @@ class FlagsScreen(StudyScreen):
              "exclude": "The value (or record) is left out of the estimates; it stays stored.",
              "set": "The new value is used from now on; the old one stays in the history."}
     VERBS = {"keep": "Keep", "exclude": "Exclude", "set": "Correct"}
+    MOVE_TEXT = ("The row moves to the ID given (checked like a new row); the row under the old ID is left out "
+                 "and stays in the history.")
 
     def _picked(self, open_only: bool = True) -> StoredFlag | None:
         table = self.query_one("#flags-table", DataTable)
@@ -230,7 +232,8 @@ class FlagsScreen(StudyScreen):
             self._open_form(form)
             self._copies_worker(self.app.study_dir, flag, action)
             return
-        self._open_form(FormScreen(f"{self.VERBS[action]}{' again' if again else ''}: {what}", self.TEXTS[action],
+        text = self.MOVE_TEXT if action == "set" and flag.kind in ID_KINDS else self.TEXTS[action]
+        self._open_form(FormScreen(f"{self.VERBS[action]}{' again' if again else ''}: {what}", text,
                                    fields, required, submit=submit))
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="flags-copies")
