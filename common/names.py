@@ -80,7 +80,9 @@ class Kind:
 #: Every flag kind.
 FLAG_KINDS: Final = tuple(v for k, v in vars(Kind).items() if k.isupper())
 #: Flags on a row's ID: correcting one moves the whole row to the right ID.
-ID_KINDS: Final = (Kind.DUPLICATE_ID, Kind.MANGLED_ID)
+ID_KINDS: Final = (Kind.DUPLICATE_ID, Kind.MANGLED_ID, Kind.LOOKALIKE_ID, Kind.ID_PATTERN)
+#: The same, as an SQL list (``f.kind IN (...)``).
+ID_KINDS_SQL: Final = ", ".join(f"'{k}'" for k in ID_KINDS)
 
 #: Each flag kind in the plain words the dashboard shows (short: they sit in table cells).
 FLAG_LABELS: Final = {

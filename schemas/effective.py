@@ -13,7 +13,7 @@ import sqlite3
 import numpy as np
 import pandas as pd
 
-from fieldslope.common.names import ID_KINDS, Kind
+from fieldslope.common.names import ID_KINDS, ID_KINDS_SQL, Kind
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.store_types import FieldCol
 
@@ -91,7 +91,7 @@ def latest(conn: sqlite3.Connection, protocol: Protocol, fields: dict[str, Field
 def _corrections(conn, fields, as_of, seasons) -> pd.DataFrame:
     sql = ("SELECT f.individual, f.season, f.field, r.new, r.after_batch, f.id FROM resolutions r "
            "JOIN flags f ON f.id = r.flag_id WHERE r.action = 'set' AND f.quarantine_id IS NULL "
-           "AND f.field <> '' AND f.kind NOT IN ('duplicate_id', 'mangled_id')")
+           f"AND f.field <> '' AND f.kind NOT IN ({ID_KINDS_SQL})")
     args: list = []
     if as_of is not None:
         sql += " AND r.after_batch <= ?"
@@ -115,7 +115,7 @@ def flag_states(conn: sqlite3.Connection, as_of: int | None = None, leaving_out:
            "ON m.flag_id = f.id LEFT JOIN resolutions r ON r.id = m.last WHERE f.quarantine_id IS NULL"
            + ("" if as_of is None else f" AND f.batch_id <= {int(as_of)}")
            + (" AND (r.action = 'exclude' OR (r.action IS NULL AND f.kind IN ('out_of_range', 'outlier')) "
-              "OR (r.action = 'set' AND f.kind IN ('duplicate_id', 'mangled_id')))"
+              f"OR (r.action = 'set' AND f.kind IN ({ID_KINDS_SQL})))"
               if leaving_out else ""))
     frame = pd.DataFrame(conn.execute(sql).fetchall(),
                          columns=["id", "kind", "individual", "season", "field", "record_id", "status"])

@@ -172,6 +172,6 @@ def lookalike_ids(protocol: Protocol, valid: pd.DataFrame, known_ids: set[str]) 
             twin, where = others[0], "is also in this batch"
         out.append(FlagNote(int(rows[i]), ind, seasons[i], protocol.id_col, Kind.LOOKALIKE_ID, ind,
                             f"ID {ind!r} is new, but {twin!r} {where} and differs from it only in "
-                            f"{how_they_differ(ind, twin)}; if they are one individual, exclude this row and "
-                            "import it again with the ID corrected; if not, keep it"))
+                            f"{how_they_differ(ind, twin)}; if they are one individual, correct the ID (the row moves "
+                            "to it); if not, keep it"))
     return out

@@ -6,7 +6,7 @@ from __future__ import annotations
 import sqlite3
 from typing import TYPE_CHECKING, NamedTuple
 
-from fieldslope.common.names import flag_label
+from fieldslope.common.names import ID_KINDS_SQL, flag_label
 from fieldslope.schemas.store_types import FieldCol, show
 
 if TYPE_CHECKING:  # pragma: no cover   (the command line's history starts without pandas)
@@ -39,7 +39,7 @@ def events(conn: sqlite3.Connection, fields: dict[str, FieldCol], individual: st
     rows = conn.execute(
         "SELECT b.received, r.season, r.batch_id, b.file_name, r.row, b.operator, b.login, r.correction_id, "
         # a row moved here from another ID (a duplicate or mangled ID corrected): that ID and the flag
-        "CASE WHEN f.kind IN ('duplicate_id', 'mangled_id') THEN 'moved here from ID ' || c.old || ' (flag ' "
+        f"CASE WHEN f.kind IN ({ID_KINDS_SQL}) THEN 'moved here from ID ' || c.old || ' (flag ' "
         "|| c.flag_id || ')' END"
         + "".join(f", r.{fields[n].col}" for n in names)
         + " FROM records r JOIN batches b ON b.id = r.batch_id LEFT JOIN resolutions c ON c.id = r.correction_id "

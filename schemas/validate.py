@@ -406,8 +406,8 @@ def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[st
             if pattern.fullmatch(str(ind)) is None:
                 note(i, roles.id, Kind.ID_PATTERN, str(ind),
                      f"ID {str(ind)!r} does not match the protocol's ID pattern {protocol.id_pattern}; check it "
-                     "against the paper sheet (exclude the row and import it again with the ID corrected), or "
-                     "keep it if the pattern is too strict.")
+                     "against the paper sheet and correct it (the row moves to the right ID), or keep it if the "
+                     "pattern is too strict.")
     if protocol.seasons is not None:
         first, last = protocol.seasons
         for i, season in enumerate(seasons):

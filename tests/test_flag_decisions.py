@@ -186,3 +186,18 @@ def test_census_row_joins_when_the_mangled_id_of_its_measurement_row_is_correcte
     assert "H09\u200b" not in frame.index
     assert (frame.at["H09", "wing"], frame.at["H09", "survived"]) == (4.2, 0.0)
     assert study.store.flag(q.id).status == "keep"
+
+
+def test_a_lookalike_id_is_corrected_by_moving_its_row_and_its_census_row_follows(study):
+    study.store.import_bytes("a.csv", b"tag,season,site,wing\nGF24-0001,2024,Gull Flat,4.5\n")
+    study.store.import_bytes("b.csv", b"tag,season,site,wing\nGF24-0001,2025,Gull Flat,4.4\n"
+                                      b"GF24-O002,2025,Gull Flat,4.6\nGF24-0002,2024,Gull Flat,4.2\n")
+    alike = next(f for f in study.store.flags() if f.kind == "lookalike_id")
+    assert alike.individual == "GF24-O002" and "correct the ID (the row moves to it)" in alike.message
+    study.store.import_bytes("c.csv", b"tag,season,survived\nGF24-0001,2025,1\nGF24-0002,2025,0\n",
+                             accept_valid=True)
+    res = study.store.resolve_flag(alike.id, "set", "GF24-0002", reason="letter O typed for zero")
+    assert res.joined and "moved from ID GF24-O002 to GF24-0002" in res.message
+    frame = study.store.effective_frame().set_index(["tag", "season"])
+    assert (frame.at[("GF24-0002", "2025"), "wing"], frame.at[("GF24-0002", "2025"), "survived"]) == (4.6, 0.0)
+    assert ("GF24-O002", "2025") not in frame.index
