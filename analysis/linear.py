@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["OLSFit", "Collinear", "ols", "differential"]
+__all__ = ["OLSFit", "Collinear", "ols", "slope_se", "differential"]
 
 # a design whose condition number exceeds this is treated as collinear
 CONDITION_LIMIT = 1e10
@@ -43,17 +43,40 @@ def ols(X: np.ndarray, y: np.ndarray) -> OLSFit:
     scale = np.sqrt((X**2).sum(axis=0))
     scale[scale == 0] = 1.0
     Xs = X / scale
-    q, r = np.linalg.qr(Xs)
+    # QR of [X y]: R's first k columns are X's factor, its last column holds Q'y over the residual's norm
+    # (Golub & Van Loan 2013, 5.3.3); Q itself is never formed (the costly part at large n)
+    R = np.linalg.qr(np.column_stack([Xs, y]), mode="r")
+    r = R[:k, :k]
     sv = np.linalg.svd(r, compute_uv=False)  # singular values of X (scaled), from the small factor
     if sv[-1] <= 0 or sv[0] / sv[-1] > CONDITION_LIMIT:
         raise Collinear("collinear design")
     r_inv = np.linalg.inv(r)
-    coef_s = r_inv @ (q.T @ y)
-    resid = y - Xs @ coef_s
+    coef_s = r_inv @ R[:k, k]
     df = n - k
-    sigma2 = float(resid @ resid) / df
+    sigma2 = float(R[k, k]) ** 2 / df
     cov_diag = (r_inv**2).sum(axis=1)
     return OLSFit(coef=coef_s / scale, se=np.sqrt(cov_diag * sigma2) / scale, df_resid=df)
+
+
+def slope_se(v: np.ndarray, y: np.ndarray) -> float:
+    """Classical standard error of the slope of ``y`` on one variable ``v`` (with an intercept): the same
+    number as ``ols(column_stack([1, v]), y).se[1]`` in closed form, sqrt(RSS / (n - 2) / sum (v - mean v)^2),
+    without a factorization (one per trait, cell and fitness measure on the live refresh path).
+
+    Raises ``Collinear`` when v is constant and ValueError when n <= 2. Source: Draper & Smith 1998
+    (Applied Regression Analysis, 3rd ed., ch. 1).
+    """
+    n = len(v)
+    if n <= 2:
+        raise ValueError("no residual degrees of freedom")
+    vc = v - v.mean()
+    sxx = float(vc @ vc)
+    if not sxx > 0 or sxx <= (np.abs(v).max() ** 2) * n / CONDITION_LIMIT**2:
+        raise Collinear("constant variable")
+    yc = y - y.mean()
+    b = float(vc @ yc) / sxx
+    resid = yc - b * vc
+    return float(np.sqrt(float(resid @ resid) / (n - 2) / sxx))
 
 
 def differential(z: np.ndarray, w: np.ndarray) -> float:

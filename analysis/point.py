@@ -14,7 +14,7 @@ import numpy as np
 from fieldslope.analysis.cells import Prepared, Sample
 from fieldslope.analysis.fitness import relative
 from fieldslope.analysis.likelihood_ratio import slope_p_values
-from fieldslope.analysis.linear import Collinear, differential, ols
+from fieldslope.analysis.linear import Collinear, differential, ols, slope_se
 from fieldslope.analysis.logistic import Separation, fit_logistic, logistic_gradient
 from fieldslope.analysis.quadratic import canonical_axes, gamma_matrix, oriented, quad_features, quad_pairs, quad_terms
 from fieldslope.analysis.standardize import standardize
@@ -116,12 +116,10 @@ def trait_rows(samples: list[Sample], name: str) -> list[Row]:
     z, x, w, _ = stack(samples)
     z, x = z[:, 0], x[:, 0]
     n = len(w)
-    fit_z = ols(with_intercept(z), w)
-    fit_x = ols(with_intercept(x), w)
     return [Row(Q.MEAN, name, float(z.mean()), np.nan, n),
             Row(Q.SD, name, float(z.std(ddof=1)), np.nan, n),
-            Row(Q.DIFFERENTIAL, name, differential(z, w), float(fit_z.se[1] * np.var(z)), n),
-            Row(Q.DIFFERENTIAL_STD, name, differential(x, w), float(fit_x.se[1] * np.var(x)), n)]
+            Row(Q.DIFFERENTIAL, name, differential(z, w), slope_se(z, w) * float(np.var(z)), n),
+            Row(Q.DIFFERENTIAL_STD, name, differential(x, w), slope_se(x, w) * float(np.var(x)), n)]
 
 
 def linear_rows(res: BlockResult, x: np.ndarray, w: np.ndarray, P: np.ndarray, traits, fitness: str,

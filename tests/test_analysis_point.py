@@ -205,3 +205,19 @@ def test_truncation_selection_intensity(p, handbook):
     r = t[t.quantity == "differential_std"].iloc[0]
     assert r.estimate == pytest.approx(exact, abs=4 * r.se)
     assert r.estimate == pytest.approx(exact, rel=0.01)
+
+
+def test_slope_se_is_the_ols_slope_standard_error_of_statsmodels():
+    """The closed-form se of a simple regression slope (Draper & Smith 1998, ch. 1) equals statsmodels' OLS
+    bse of the slope; a constant variable is refused like a collinear design."""
+    import statsmodels.api as sm
+
+    from fieldslope.analysis.linear import Collinear, slope_se
+
+    rng = np.random.default_rng(17)
+    for n in (5, 40, 3000):
+        v = rng.normal(50.0, 7.0, n)
+        y = 0.8 + 0.01 * v + rng.gamma(2.0, 0.3, n)
+        assert slope_se(v, y) == pytest.approx(sm.OLS(y, sm.add_constant(v)).fit().bse[1], rel=1e-10)
+    with pytest.raises(Collinear):
+        slope_se(np.full(10, 3.0), rng.normal(size=10))
