@@ -106,14 +106,13 @@ def ordering_peer(n: int) -> None:
 
 MEMORY_CHILD = """
 import resource, sys
-import numpy as np
+import pandas as pd
 sys.path.insert(0, sys.argv[2])
-from bench_animal_model import DESIGN, study
+from bench_animal_model import DESIGN
 from fieldslope.analysis.animal_data import model_data
 from fieldslope.analysis.animal_model import Kernel, fit_univariate
 from fieldslope.analysis.pedigree import from_frame
-m = int(sys.argv[1])
-df = study(np.random.default_rng(2), m)
+df = pd.read_pickle(sys.argv[1])
 before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 fit_univariate(Kernel(model_data(df, DESIGN, from_frame(df, "id", "season", "dam", "sire"), df[["t0"]])[0]))
 print(before, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
@@ -122,19 +121,24 @@ print(before, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
 
 def memory(n: int) -> None:
     """Peak resident memory of a univariate fit (pedigree, A^-1, mixed-model equations, SuperLU's factors
-    included), each size in a fresh process: the growth from one size to the next, beside n's own."""
+    included), each size in a fresh process that reads the simulated study from a file (so the simulation's
+    own peak is not counted): the growth from one size to the next, beside n's own."""
     import subprocess
+    import tempfile
 
     here = str(Path(__file__).resolve().parent)
     figures, last = [], None
-    for m in (n // 4, n // 2, n):
-        out = subprocess.run([sys.executable, "-c", MEMORY_CHILD, str(m), here], capture_output=True, text=True,
-                             check=True).stdout.split()
-        before, peak = (int(v) / 1024 for v in out)  # KiB -> MiB
-        grown = peak - before
-        figures.append(f"{m}: {grown:.0f} MiB above the {before:.0f} MiB of the data and imports"
-                       + (f" ({grown / last:.2f}x for {m / prev:.0f}x n)" if last else ""))
-        last, prev = grown, m
+    with tempfile.TemporaryDirectory() as tmp:
+        for m in (n // 4, n // 2, n):
+            path = str(Path(tmp) / f"study-{m}.pkl")
+            study(np.random.default_rng(2), m).to_pickle(path)
+            out = subprocess.run([sys.executable, "-c", MEMORY_CHILD, path, here], capture_output=True, text=True,
+                                 check=True).stdout.split()
+            before, peak = (int(v) / 1024 for v in out)  # KiB -> MiB
+            grown = peak - before
+            figures.append(f"{m}: {grown:.0f} MiB above the {before:.0f} MiB of the data and imports"
+                           + (f" ({grown / last:.2f}x for {m / prev:.0f}x n)" if last else ""))
+            last, prev = grown, m
     print("peak resident memory of a univariate fit: " + "; ".join(figures))
 
 
