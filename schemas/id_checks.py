@@ -11,6 +11,7 @@ import re
 import unicodedata
 from collections import Counter
 from collections.abc import Iterable, Sequence
+from itertools import compress
 
 _MONTH = r"(?:jan|feb|mar|apr|may|jun|jul|aug|sep|sept|oct|nov|dec)[a-z]*\.?"
 _DATE_FORMS = [
@@ -80,37 +81,47 @@ def _padded_length(texts: list[str], forms: list[str | None], lengths: Counter) 
 # -- IDs that read like another ------------------------------------------------------------------
 
 # Characters read or typed for one another (common practice of field sheets and handwriting): each maps
-# to the digit it is taken for, after case is folded.
-_LOOKALIKE = str.maketrans({"o": "0", "q": "0", "i": "1", "l": "1", "|": "1", "s": "5", "z": "2", "b": "8",
-                            "g": "6"})
-
-
+# to the digit it is taken for, after case is folded; spaces and separators (- _ . /) are dropped.
+_LOOKALIKE = {ord(a): b for a, b in {"o": "0", "q": "0", "i": "1", "l": "1", "|": "1", "s": "5", "z": "2",
+                                     "b": "8", "g": "6"}.items()}
+_DROPPED = {ord(c): None for c in "-_./"} | {c: None for c in range(0x3000 + 1) if chr(c).isspace()}
+_FOLD = _LOOKALIKE | _DROPPED
+_FOLD_KEEP_NEWLINES = {k: v for k, v in _FOLD.items() if k != ord("\n")}
 _SEPARATORS = re.compile(r"[\s\-_./]+")
 
 
 def id_key(text: str) -> str:
     """An ID with case, spaces and separators (- _ . /) and look-alike characters (O/0, l/1/I, S/5, Z/2, B/8,
     G/6) folded: two IDs with the same key read alike on a sheet."""
-    folded = _SEPARATORS.sub("", unicodedata.normalize("NFKC", text).casefold())
-    return folded.translate(_LOOKALIKE)
+    return unicodedata.normalize("NFKC", text).casefold().translate(_FOLD)
 
 
-class LookalikeIndex:
-    """The IDs on record by their :func:`id_key`, to name the one a new ID reads like."""
+def id_keys(ids: list[str]) -> list[str]:
+    """:func:`id_key` of many IDs at once (one pass over them joined by newlines), the same keys as one by
+    one."""
+    if any("\n" in t for t in ids):
+        return [id_key(t) for t in ids]
+    keys = unicodedata.normalize("NFKC", "\n".join(ids)).casefold().translate(_FOLD_KEEP_NEWLINES).split("\n")
+    return keys if len(keys) == len(ids) else [id_key(t) for t in ids]
 
-    def __init__(self, known: Iterable[str]):
-        self.known = set(known)
-        self.by_key: dict[str, str] = {}
-        for ind in self.known:
-            key = id_key(ind)
-            other = self.by_key.get(key)
-            self.by_key[key] = ind if other is None else min(ind, other)   # the same one whatever the order
 
-    def match(self, ind: str) -> str | None:
-        """The ID on record that ``ind`` reads like, when ``ind`` itself is not on record."""
-        if ind in self.known:
-            return None
-        return self.by_key.get(id_key(ind))
+def lookalikes(known: set[str], new: Iterable[str]) -> dict[str, str]:
+    """For each ID of ``new`` not in ``known`` that reads like one in ``known`` (same :func:`id_key`), that
+    one (the first in sorted order when several do). Only the keys of ``known`` are made, never a table of
+    them: a million IDs on record cost about a quarter of a second."""
+    wanted: dict[str, list[str]] = {}
+    for ind in set(new) - known:
+        wanted.setdefault(id_key(ind), []).append(ind)
+    if not wanted or not known:
+        return {}
+    ids = list(known)
+    keys = id_keys(ids)
+    hit = list(map(wanted.__contains__, keys))          # one pass in C; the loop below sees the hits only
+    found: dict[str, str] = {}
+    for key, ind in zip(compress(keys, hit), compress(ids, hit)):
+        if key not in found or ind < found[key]:
+            found[key] = ind
+    return {ind: found[key] for key, inds in wanted.items() if key in found for ind in inds}
 
 
 def how_they_differ(new: str, old: str) -> str:

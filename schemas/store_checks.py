@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 
 from fieldslope.common.names import Kind
-from fieldslope.schemas.id_checks import LookalikeIndex, how_they_differ, id_key
+from fieldslope.schemas.id_checks import how_they_differ, id_key, lookalikes
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import FlagNote, RowError
 from fieldslope.schemas.store_types import show
@@ -28,12 +28,11 @@ def census_unknown(protocol: Protocol, valid: pd.DataFrame, record: pd.DataFrame
     keys = pd.MultiIndex.from_arrays([valid[protocol.id_col].astype(str), valid[protocol.season_col].astype(str)])
     known = keys.isin(record.index) if len(record) else np.zeros(len(valid), dtype=bool)
     out = []
-    alike = None
+    missing = [ind for (ind, _), ok in zip(keys, known) if not ok]
+    alike = lookalikes(set(record.index.get_level_values(0).astype(str)), missing) if missing and len(record) else {}
     for (ind, season), row, ok in zip(keys, valid["_row"], known):
         if not ok:
-            if alike is None:
-                alike = LookalikeIndex(record.index.get_level_values(0).astype(str) if len(record) else ())
-            twin = alike.match(ind)
+            twin = alike.get(ind)
             hint = (f" ({twin!r} is, differing only in {how_they_differ(ind, twin)}: if that is meant, correct "
                     "the ID)") if twin else ""
             out.append(RowError(int(row), protocol.id_col, ind,
@@ -155,14 +154,14 @@ def lookalike_ids(protocol: Protocol, valid: pd.DataFrame, known_ids: set[str]) 
     new = [i for i, ind in enumerate(ids) if ind not in known_ids]
     if not new:
         return []
-    index = LookalikeIndex(known_ids)
+    on_record = lookalikes(known_ids, (ids[i] for i in new))
     by_key: dict[str, set[str]] = {}
     for i in new:
         by_key.setdefault(id_key(ids[i]), set()).add(ids[i])
     out = []
     for i in new:
         ind = ids[i]
-        twin = index.match(ind)
+        twin = on_record.get(ind)
         if twin is not None:
             where = "is on record"
         else:
