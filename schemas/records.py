@@ -68,9 +68,11 @@ class CheckReport:
     bad_rows: list[int] = field(default_factory=list)
     # True for a fitness census: ID + season + fitness only, completing earlier records
     census: bool = False
-    # sentences about the whole sheet: columns the protocol does not name (kept in the stored file, not
+    # sentences about the whole sheet: columns the protocol does not name (kept as text beside each record, not
     # used), likely causes of many odd values (two columns swapped, another unit); kept with the batch
     notes: tuple[str, ...] = ()
+    # columns the protocol does not name, kept as text beside each record (in ``valid`` under their names)
+    kept: tuple[str, ...] = ()
 
     @property
     def n_rows(self) -> int:

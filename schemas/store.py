@@ -35,6 +35,7 @@ from fieldslope.schemas.batch_plan import BatchPlan, Progress
 from fieldslope.schemas.operator import who
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.batch_file import read_batch_file
+from fieldslope.schemas.store_fields import add_fields, all_fields
 from fieldslope.schemas.records import OPTIONAL_TEXT, RowError
 from fieldslope.schemas.store_types import (BatchInfo, FieldCol, HeritabilityEntry, ImportResult, Resolution,
                                             StoredFlag)
@@ -255,20 +256,8 @@ class Store:
     def _ensure_fields(self, conn: sqlite3.Connection) -> None:
         have = {r[0] for r in conn.execute("SELECT name FROM fields")}
         missing = [(n, k) for n, k in self._wanted_fields() if n not in have]
-        if not missing:
-            return
-
-        def add(c):
-            have_now = {r[0] for r in c.execute("SELECT name FROM fields")}
-            n_cols = c.execute("SELECT count(*) FROM fields").fetchone()[0]
-            for name, kind in missing:
-                if name in have_now:
-                    continue
-                n_cols += 1
-                col = f"v{n_cols}"
-                c.execute(f"ALTER TABLE records ADD COLUMN {col}")
-                c.execute("INSERT INTO fields(name, col, kind) VALUES (?, ?, ?)", (name, col, kind))
-        self._write(add)
+        if missing:
+            self._write(lambda c: add_fields(c, missing))
 
     def _load_fields(self, conn: sqlite3.Connection) -> dict[str, FieldCol]:
         rows = {r[0]: FieldCol(*r) for r in conn.execute("SELECT name, col, kind FROM fields")}
@@ -377,11 +366,11 @@ class Store:
 
     def history(self, individual: str) -> pd.DataFrame:
         """One individual's values, flags and changes in time order, as a table."""
-        return self._read(lambda c: store_history.history(c, self.fields, str(individual)))
+        return self._read(lambda c: store_history.history(c, all_fields(c), str(individual)))
 
     def history_events(self, individual: str) -> list[store_history.Event]:
         """The same as plain records (no pandas)."""
-        return self._read(lambda c: store_history.events(c, self.fields, str(individual)))
+        return self._read(lambda c: store_history.events(c, all_fields(c), str(individual)))
 
     # -- resolving flags (store_resolve, store_quarantine) -------------------------------
     def resolve_flag(self, flag_id: int, action: str, value: str | None = None, reason: str = "",

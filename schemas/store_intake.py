@@ -19,6 +19,7 @@ from fieldslope.schemas import store_checks as checks
 from fieldslope.schemas.batch_plan import BatchPlan, Progress, now
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.store_queries import earlier_batch
+from fieldslope.schemas.store_fields import MAX_FIELDS, add_fields
 from fieldslope.schemas.store_quarantine import quarantine_rows
 from fieldslope.schemas.store_rows import insert_flags, insert_records
 from fieldslope.schemas.store_supersede import supersede
@@ -112,21 +113,29 @@ class Intake:
             return out.result(out.duplicate_of)
         sheet = plan.report.sheet if plan.report else None
         errors_json = json.dumps([e.__dict__ for e in out.errors])
+        fields, notes = self.fields, plan.notes
+        if out.outcome != Outcome.REFUSED and plan.report.kept:     # extra columns: text beside each record
+            extra = add_fields(conn, [(c, "text") for c in plan.report.kept], limit=MAX_FIELDS)
+            fields = {**self.fields, **extra}
+            left = [c for c in plan.report.kept if c not in extra]
+            if left:
+                notes += (f"{plural(len(left), 'column')} ({', '.join(map(repr, left[:10]))}) stay in the stored "
+                          f"file only: the study keeps at most {MAX_FIELDS} columns with its records.",)
         cur = conn.execute(
             "INSERT INTO batches(file_name, sha256, raw, encoding, delimiter, operator, login, notes, received, "
             "outcome, n_rows, n_stored, n_quarantined, errors, message) VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
             (plan.name, plan.sha, plan.data, sheet.encoding if sheet else "", sheet.delimiter if sheet else "",
-             *people, "\n".join(plan.notes), now(), out.outcome, plan.report.n_rows if plan.report else 0,
+             *people, "\n".join(notes), now(), out.outcome, plan.report.n_rows if plan.report else 0,
              len(out.valid) if out.outcome != Outcome.REFUSED else 0,
              len(out.bad_rows) if out.outcome == Outcome.PARTIAL else 0, errors_json, out.message))
         batch_id = cur.lastrowid
         if out.outcome == Outcome.REFUSED:     # nothing stored, so no flags to speak of
             return replace(out.result(batch_id), flags=())
-        record_ids = insert_records(conn, self.protocol, self.fields, batch_id, batch_id, out.valid, progress)
+        record_ids = insert_records(conn, self.protocol, fields, batch_id, batch_id, out.valid, progress)
         created = now()
         insert_flags(conn, batch_id, out.flags, record_ids, created)
         supersede(conn, self.protocol, batch_id, out.valid, record_ids, created)
         if out.bad_rows:
             quarantine_rows(conn, self.protocol, batch_id, plan.report, out.errors, out.bad_rows, created)
         progress(1, 1, "stored")
-        return out.result(batch_id)
+        return replace(out.result(batch_id), notes=notes)

@@ -4,8 +4,8 @@ Three outcomes, as the intake rules ask:
 
 * the file is refused whole (:class:`SheetError`): no ID or season column, or a
   column that is a near miss of a protocol column the sheet lacks (``elytrn``);
-  any other column the protocol does not name is kept in the stored file, not
-  used, and said once in the report's notes;
+  any other column the protocol does not name is kept as text beside each
+  record, not used in checks or estimates, and said once in the report's notes;
 * hard errors, one :class:`RowError` per bad cell (sheet row, column, value,
   reason): the row is refused;
 * soft flags, one :class:`FlagNote` per finding on an accepted row (refused
@@ -80,6 +80,8 @@ class _Roles:
                                  "merge them into one.")
             self.extra[c] = c.lower()
         self.notes = _unknown_columns(protocol, label, unknown, columns)
+        # kept beside each record, under their own names (not "_row" and the like: those name our own columns)
+        self.kept = [c for c in unknown if not c.startswith("_")]
 
     @property
     def numeric(self) -> list[str]:
@@ -87,7 +89,7 @@ class _Roles:
 
     @property
     def text(self) -> list[str]:
-        return [self.id, self.season, *self.groups, *self.parents, *self.extra]
+        return [self.id, self.season, *self.groups, *self.parents, *self.extra, *self.kept]
 
 
 def _near(name: str, candidates: list[str]) -> list[str]:
@@ -103,8 +105,9 @@ MAX_NAMED = 10     # columns named in one sentence; the rest are counted
 
 def _unknown_columns(protocol: Protocol, label: str, unknown: list[str], columns: list[str]) -> tuple[str, ...]:
     """Columns the protocol does not name. A near miss of a protocol column the sheet lacks (``elytrn`` for
-    ``elytron``) refuses the file, naming both; any other is kept in the stored file, not used, and said
-    once (a near miss of a column the sheet has, or of date, observer or notes, says which)."""
+    ``elytron``) refuses the file, naming both; any other is kept, not used, and said
+    once (a near miss of a column the sheet has, or of date, observer or notes, says which); their values are
+    kept as text beside each record."""
     expected = [protocol.id_col, protocol.season_col, *protocol.groups, *protocol.trait_names,
                 *protocol.component_names, *protocol.parent_cols]
     notes, plain = [], []
@@ -117,8 +120,8 @@ def _unknown_columns(protocol: Protocol, label: str, unknown: list[str], columns
         if near:
             notes.append(f"column {c!r} is not in the protocol; it is a near miss of {near[0]!r}"
                          + (", which the sheet also has" if near[0] in columns else "")
-                         + f"; it is kept in the stored file but not used (rename it to {near[0]!r} if that is "
-                         "meant).")
+                         + f"; it is kept as text with each record but not used (rename it to {near[0]!r} if "
+                         "that is meant).")
         else:
             plain.append(c)
     if plain:
@@ -126,8 +129,9 @@ def _unknown_columns(protocol: Protocol, label: str, unknown: list[str], columns
             f" and {len(plain) - MAX_NAMED} more" if len(plain) > MAX_NAMED else "")
         one = len(plain) == 1
         notes.insert(0, f"{'column' if one else 'columns'} {named} {'is' if one else 'are'} not in the protocol: "
-                        f"kept in the stored file, not used in checks or estimates (add "
-                        f"{'it' if one else 'them'} to protocol.toml to use {'it' if one else 'them'}).")
+                        f"kept as text with each record (fieldslope history shows {'it' if one else 'them'}), not "
+                        f"used in checks or estimates (add {'it' if one else 'them'} to protocol.toml to use "
+                        f"{'it' if one else 'them'}).")
     return tuple(notes)
 
 
@@ -307,7 +311,7 @@ def check_sheet(protocol: Protocol, sheet: Sheet) -> CheckReport:
     causes = column_causes(protocol.traits, {c: typed[c].to_numpy(dtype=float) for c in roles.traits})
     notes = (*roles.notes, *(f"likely cause: {c}" for c in causes))
     return CheckReport(sheet=sheet, valid=valid, errors=errors, flags=flags, bad_rows=bad_rows, census=census,
-                       notes=notes)
+                       notes=notes, kept=tuple(roles.kept))
 
 
 def _group_errors(protocol: Protocol, roles: _Roles, text: dict[str, pd.Series], rows: np.ndarray,

@@ -1,5 +1,6 @@
-"""Columns the protocol does not name: kept with the batch and said once, never a reason to refuse it; a
-near miss of a protocol column the sheet lacks (``wnig`` for ``wing``) refuses it, naming both."""
+"""Columns the protocol does not name: kept with the batch (the stored file, and as text beside each record)
+and said once, never a reason to refuse it; a near miss of a protocol column the sheet lacks (``wnig`` for
+``wing``) refuses it, naming both."""
 
 from __future__ import annotations
 
@@ -22,14 +23,23 @@ def test_a_batch_with_extra_columns_is_stored_and_they_are_kept_with_it(study):
     result = study.store.import_bytes("extra.csv", EXTRA.encode(), operator="ana")
     assert result.outcome == Outcome.STORED and result.n_stored == 3
     (note,) = [n for n in result.notes if "not in the protocol" in n]
-    assert "'comments', 'sex'" in note and "kept in the stored file" in note
+    assert "'comments', 'sex'" in note and "kept as text with each record" in note
     (batch,) = study.store.batches()
     assert batch.notes == result.notes                                  # said once, kept with the batch
     assert b"bent antenna" in study.store.batch_bytes(batch.id)        # the column's values are in the stored file
-    assert set(study.store.effective_frame()["tag"]) == {"H01", "H02", "H03"}
+    frame = study.store.effective_frame()
+    assert set(frame["tag"]) == {"H01", "H02", "H03"} and "sex" not in frame.columns   # not used in estimates
+    # and beside each record: one individual's history shows them
+    recorded = {(e.field, e.value) for e in study.store.history_events("H01") if e.event == "recorded"}
+    assert {("comments", "bent antenna"), ("sex", "F"), ("observer", "Ana"), ("wing", "4.5")} <= recorded
+    # a later batch with the same extra column uses the same field; a blank cell records nothing
+    again = EXTRA.replace("H01,", "H04,").replace("H02,", "H05,").replace("H03,", "H06,").replace("2024", "2025")
+    assert study.store.import_bytes("again.csv", again.encode(), operator="ana").outcome == Outcome.STORED
+    assert ("sex", "M") in {(e.field, e.value) for e in study.store.history_events("H05")}
+    assert "comments" not in {e.field for e in study.store.history_events("H05")}
 
 
-def test_the_command_line_says_the_extra_columns_once(tmp_path, protocol_file, capsys):
+def test_the_command_line_says_the_extra_columns_once_and_history_shows_them(tmp_path, protocol_file, capsys):
     study = str(tmp_path / "st")
     assert call(capsys, "init", study, "--protocol", str(protocol_file))[0] == 0
     sheet = tmp_path / "extra.csv"
@@ -38,6 +48,8 @@ def test_the_command_line_says_the_extra_columns_once(tmp_path, protocol_file, c
     assert code == 0 and err == "" and out.count("not in the protocol") == 1 and "would store 3 of 3 rows" in out
     code, out, err = call(capsys, "import", str(sheet), "--study", study)
     assert code == 0 and out.count("not in the protocol") == 1 and "3 of 3 rows stored" in out
+    code, out, _ = call(capsys, "history", "H03", "--study", study)
+    assert code == 0 and "comments recorded: moulting" in out and "sex recorded: F" in out
 
 
 def test_a_near_miss_of_a_missing_protocol_column_refuses_naming_both(study):

@@ -98,7 +98,7 @@ def test_missing_id_column_suggests_the_near_name():
 def test_unknown_column_is_kept_and_named_once_with_a_fix():
     report = check(["R1,2025,7", "R2,2025,8"], "ring,year,wingspan")
     assert len(report.notes) == 1 and "'wingspan'" in report.notes[0] and "protocol.toml" in report.notes[0]
-    assert "wingspan" not in report.valid.columns and not report.errors
+    assert report.kept == ("wingspan",) and list(report.valid["wingspan"]) == ["7", "8"] and not report.errors
 
 
 def test_unknown_column_near_a_missing_protocol_column_refuses_naming_both():
