@@ -145,3 +145,19 @@ async def test_intervals_arrive_in_stages_with_the_numbers_of_each_stage(two_sit
             a, b = both[col].to_numpy(float), both[f"{col}_ref"].to_numpy(float)
             assert np.array_equal(np.isnan(a), np.isnan(b)) and np.allclose(a, b, rtol=0, atol=0, equal_nan=True), col
     assert np.isfinite(shown[1].table["ci_low"]).any()
+
+
+async def test_each_screens_status_line_names_that_screen(two_sites):
+    # every screen's status line follows the app's state, but names its own screen, not the one in view
+    async with shown(two_sites.root) as (app, pilot):
+        for key in "12345":
+            await pilot.press(key)
+        await pilot.press("1")
+        await pilot.pause()
+        app.note = "a note typed while Intake is in view"
+        await pilot.pause()
+        for key, title in (("2", "Flags"), ("4", "Response"), ("1", "Intake"), ("5", "Seasons"),
+                           ("3", "Selection")):
+            await pilot.press(key)
+            await pilot.pause()
+            assert status_text(app).startswith(title), (key, status_text(app))

@@ -29,6 +29,7 @@ from textual.binding import Binding
 from textual.command import DiscoveryHit, Hit, Hits, Provider
 from textual.content import Content
 from textual.reactive import var
+from textual.screen import Screen
 from textual.worker import Worker, WorkerState
 
 from fieldslope.common.words import plural
@@ -360,14 +361,15 @@ class FieldslopeApp(TypeAheadApp):
         for status in screen.query(StatusLine):
             status.update_from_app()
 
-    def status_content(self) -> Content:
-        """The status line: screen, batches, open flags, last refresh, mode, what is running, notes."""
+    def status_content(self, screen: Screen | None = None) -> Content:
+        """The status line of ``screen`` (the current one by default): its title, batches, open flags,
+        last refresh, mode, what is running, notes."""
         from fieldslope.tui.widgets.literal import assemble
 
         parts: list[tuple[str, str] | str] = []
         if self.error:
             return assemble(("! ", "bold $error"), (self.error, "$error"))
-        title = getattr(self.screen, "TITLE_TEXT", "")
+        title = getattr(screen if screen is not None else self.screen, "TITLE_TEXT", "")
         if title:
             parts.append((title, "bold $accent"))
         snap = self.snapshot

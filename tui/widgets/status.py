@@ -28,4 +28,5 @@ class StatusLine(Static):
 
     def update_from_app(self) -> None:
         maker = getattr(self.app, "status_content", None)
-        self.update(maker() if maker else Content(""))
+        # this line's own screen, not the one in view: every mounted screen's line follows the app's state
+        self.update(maker(self.screen) if maker else Content(""))
