@@ -26,7 +26,7 @@ from typing import Callable
 from textual import on, work
 from textual.app import App, ScreenStackError
 from textual.binding import Binding
-from textual.command import DiscoveryHit, Hit, Hits, Provider
+from textual.command import CommandPalette, DiscoveryHit, Hit, Hits, Provider
 from textual.content import Content
 from textual.reactive import var
 from textual.screen import Screen
@@ -107,6 +107,16 @@ class FieldslopeCommands(Provider):
                 yield Hit(score, matcher.highlight(name), callback, help=help_text)
 
 
+class Palette(CommandPalette):
+    """The command palette with a plain-text prompt sign (Textual's is an emoji, which many
+    terminal fonts lack and which some terminals draw two cells wide)."""
+
+    def on_mount(self) -> None:
+        from textual.command import SearchIcon
+
+        self.query_one(SearchIcon).icon = ">"
+
+
 class FieldslopeApp(TypeAheadApp):
     """The dashboard.
 
@@ -179,6 +189,12 @@ class FieldslopeApp(TypeAheadApp):
         self.pipeline: RefreshPipeline | None = None   # live refresh, once a study is open
         self.stop = threading.Event()        # set on exit: background loops end
         self.timings: dict[str, float] = {}  # for the benchmark: when things happened
+        if self.no_color:
+            # no-color.org: no colour at all. Textual's own NO_COLOR filter only greys the colours out.
+            from fieldslope.tui.colourless import Colourless
+
+            self._filters = [f for f in self._filters if type(f).__name__ not in ("Monochrome", "NoColor")]
+            self._filters.append(Colourless())
 
     # -- modes (screens) ---------------------------------------------------
     def _install_modes(self) -> None:
@@ -406,6 +422,10 @@ class FieldslopeApp(TypeAheadApp):
             await self.switch_mode(mode)
         if then:
             await self.screen.run_action(then)
+
+    def action_command_palette(self) -> None:
+        if self.use_command_palette and not CommandPalette.is_open(self):
+            self.push_screen(Palette(id="--command-palette"))
 
     def action_help(self) -> None:
         from fieldslope.tui.screens.dialogs import HelpScreen
