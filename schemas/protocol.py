@@ -77,6 +77,15 @@ class Protocol:
     def totals(self) -> dict[str, tuple[str, ...]]:
         return {n: f.product for n, f in self.fitness.items() if f.is_total}
 
+    def earlier_components(self, component: str) -> tuple[str, ...]:
+        """The components listed before ``component`` in any total: where one of them is 0 the
+        individual never reached this one (a dead animal has no clutch), so its blank is not missing."""
+        out: list[str] = []
+        for parts in self.totals.values():
+            if component in parts:
+                out += [p for p in parts[:parts.index(component)] if p not in out]
+        return tuple(out)
+
     @property
     def parent_cols(self) -> tuple[str, ...]:
         return tuple(c for c in (self.mother, self.father) if c)

@@ -384,6 +384,9 @@ def _flags(protocol: Protocol, roles: _Roles, valid: pd.DataFrame, text: dict[st
         blank = np.isnan(valid[col].to_numpy())
         if blank.all():
             continue   # a column left wholly blank was not measured in this batch: nothing to flag
+        for earlier in protocol.earlier_components(col):   # died before it: nothing to count, not missing
+            if earlier in valid.columns:
+                blank &= valid[earlier].to_numpy() != 0
         for i in np.flatnonzero(blank):
             note(i, col, Kind.MISSING_FITNESS, "",
                  f"{col} is blank for {ids[i]} in {seasons[i]}; fill it in (or a later census will).")

@@ -72,7 +72,9 @@ async def test_start_screen_creates_a_study(tmp_path, protocol_file, size):
         await pilot.press("ctrl+n")                     # keyboard only
         await wait_for(app, pilot, lambda: app.study_ready and app.snapshot is not None, what="the new study")
         assert (tmp_path / "new-study" / "protocol.toml").is_file()
-        assert app.current_mode == "selection"
+        assert app.current_mode == "intake"           # a new study opens where its data come in
+        await pilot.press("3")
+        await pilot.pause()
         assert "No estimates yet" in screen_text(app)
 
 
@@ -141,7 +143,7 @@ async def test_selection_table_matches_the_estimates_and_switches(filled, size):
 
         def shown_beta(trait: str) -> str:
             row = screen.query_one("#sel-linear").get_row(trait)
-            return str(row[3])
+            return str(row[4])
 
         def table_beta(season, site, fitness, trait) -> str:
             return fmt(snap.value(season, site, fitness, "gradient", trait)["estimate"])
@@ -183,7 +185,7 @@ async def test_intervals_arrive_in_a_second_pass(filled):
         row = snap.value("2025", "all", "total", "gradient", "wing")
         assert row["ci_low"] is not None and row["ci_low"] <= row["estimate"] <= row["ci_high"]
         shown = app.screen.query_one("#sel-linear").get_row("wing")
-        assert str(shown[4]) == f"{fmt(row['ci_low'])}, {fmt(row['ci_high'])}"
+        assert str(shown[5]) == f"{fmt(row['ci_low'])}, {fmt(row['ci_high'])}"
 
 
 async def test_status_line_counts_only_batches_that_stored_rows(filled, write_batch, hopper_rows):
@@ -245,7 +247,7 @@ async def test_sensitivity_toggle_recomputes_without_open_outliers(study, write_
         text = screen_text(app)
         assert "outliers out" in text and "β with the open outliers kept in: wing" in text
         assert f"tibia {fmt(kept_in)}" in text
-        assert str(app.screen.query_one("#sel-linear").get_row("tibia")[3]) == fmt(left_out)
+        assert str(app.screen.query_one("#sel-linear").get_row("tibia")[4]) == fmt(left_out)
         # S, β and γ with the open outliers kept in, side by side with the figures without them
         row = [str(v) for v in app.screen.query_one("#sel-linear").get_row("tibia")]
         s_in = before.value("2025", "Gull Flat", "total", "differential", "tibia")["estimate"]
@@ -257,7 +259,7 @@ async def test_sensitivity_toggle_recomputes_without_open_outliers(study, write_
         await pilot.press("o")
         await wait_for(app, pilot, lambda: not app.snapshot.sensitivity and ready(app), what="back")
         assert "outliers out" not in screen_text(app)
-        assert "S (in)" not in screen_text(app) and len(app.screen.query_one("#sel-linear").columns) == 7
+        assert "S (in)" not in screen_text(app) and len(app.screen.query_one("#sel-linear").columns) == 8
 
 
 @pytest.mark.parametrize("size", SIZES)
@@ -364,8 +366,9 @@ async def test_response_uses_an_entered_heritability(filled, size):
         screen = app.screen
         row = screen.query_one("#resp-table").get_row("wing")
         r = snap.value("2025", "all", "total", "response", "wing")
-        assert str(row[1]) == fmt(0.4) and str(row[5]) == fmt(r["estimate"])
-        assert "entered" in str(row[3])
+        assert str(row[1]) == "mm"                       # the trait's unit, from the protocol
+        assert str(row[2]) == fmt(0.4) and str(row[6]) == fmt(r["estimate"])
+        assert "entered" in str(row[4])
         screen.query_one("#resp-k").value = "5"
         await pilot.pause()
         mean = snap.value("2025", "all", "total", "mean", "wing")["estimate"]
@@ -399,7 +402,7 @@ async def test_seasons_show_each_season_and_the_batch_trend(filled, size):
         from fieldslope.tui.screens.seasons import few_batches_sentence
 
         assert few_batches_sentence(2) in screen_text(app)
-        await pilot.press("n")                           # the wanted interval width, typed
+        await pilot.press("i")                           # the wanted interval width, typed
         for key in ("ctrl+u", "0", "full_stop", "1"):
             await pilot.press(key)
         await pilot.pause()
@@ -587,7 +590,7 @@ async def test_beta_on_screen_equals_an_ols_fit_by_statsmodels(filled):
         fit = sm.OLS(W / W.mean(), sm.add_constant(x)).fit()
         table = app.screen.query_one("#sel-linear")
         for j, trait in enumerate(("wing", "tibia")):
-            assert str(table.get_row(trait)[3]) == fmt(fit.params[j + 1])
+            assert str(table.get_row(trait)[4]) == fmt(fit.params[j + 1])
 
 
 async def test_missing_fitness_counts_the_dead_as_measured(study, write_batch, hopper_rows):
@@ -603,7 +606,8 @@ async def test_missing_fitness_counts_the_dead_as_measured(study, write_batch, h
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(app, pilot, lambda: ready(app))
         assert app.snapshot.missing_fitness("2025", "Gull Flat", "total") == 2
-        assert app.snapshot.missing_fitness("2025", "Gull Flat", "clutch") == 5
+        # a dead beetle has no clutch to lack: only the two live ones are missing it
+        assert app.snapshot.missing_fitness("2025", "Gull Flat", "clutch") == 2
         assert "missing fitness 2" in screen_text(app)
 
 
@@ -680,9 +684,9 @@ def test_response_notes_are_cut_between_sentences_never_inside_one():
 
     notes = ["First note here.", "Second note, a longer one.", "Third " + "x" * 60 + "."]
     assert whole_sentences(notes, 112) == " ".join(notes)
-    assert whole_sentences(notes, 50) == "First note here. (2 more notes: fieldslope estimate lists them all.)"
+    assert whole_sentences(notes, 50) == "First note here. (2 more notes: press n to read them all.)"
     assert whole_sentences(notes, 100) == ("First note here. Second note, a longer one. "
-                                           "(1 more note: fieldslope estimate lists them all.)")
+                                           "(1 more note: press n to read them all.)")
 
 
 @pytest.fixture
@@ -741,7 +745,7 @@ async def test_response_uses_the_pedigree_g_once_fitted_and_never_waits_for_it(w
         await pilot.pause(0.2)
         assert "fitting the animal models" in screen_text(app)
         phenotypic = app.snapshot.value("2025", "all", "total", "response_multi", "wing")["estimate"]
-        assert fmt(phenotypic) in str(app.screen.query_one("#resp-table").get_row("wing")[7])
+        assert fmt(phenotypic) in str(app.screen.query_one("#resp-table").get_row("wing")[8])
         await pilot.press("1")          # the screen is free while the worker waits
         await pilot.pause(0.2)
         assert app.current_mode == "intake"
@@ -756,7 +760,7 @@ async def test_response_uses_the_pedigree_g_once_fitted_and_never_waits_for_it(w
         for trait in ("wing", "tibia"):
             want = t[(t.season == "2025") & (t.site == "all") & (t.fitness == "total")
                      & (t.quantity == "response_multi") & (t.term == trait)]["estimate"].iloc[0]
-            assert str(app.screen.query_one("#resp-table").get_row(trait)[7]) == fmt(want), trait
+            assert str(app.screen.query_one("#resp-table").get_row(trait)[8]) == fmt(want), trait
             if trait == "wing":
                 assert fmt(want) != fmt(phenotypic)   # the pedigree G is not the phenotypic one
         shown = screen_text(app)

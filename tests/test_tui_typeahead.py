@@ -43,7 +43,7 @@ async def test_seasons_escape_leaves_the_width_field(filled):
     app = make_app(filled.root)
     async with app.run_test(size=(80, 24)) as pilot:
         await wait_for(app, pilot, lambda: ready(app))
-        burst(app, "5", "n", "0.3", "escape", "3")
+        burst(app, "5", "i", "0.3", "escape", "3")
         await wait_for(app, pilot, lambda: app.current_mode == "selection", what="the Selection screen")
         await app.workers.wait_for_complete()
         await pilot.pause()

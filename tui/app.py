@@ -123,7 +123,8 @@ class FieldslopeApp(TypeAheadApp):
     ``study_dir``: the study folder (None, or a folder without a study, opens
     the start screen). ``demo_feed``: see :data:`DemoFeed`. ``bootstrap`` and
     ``seed``: resamples and seed for the intervals. ``clock``: returns the
-    text shown as the last refresh time (tests pass a fixed one).
+    text shown as the last refresh time (tests pass a fixed one). ``start_mode``: the screen to open on
+    (default: Selection, or Intake for a study with no batch in the record yet).
     """
 
     CSS = resources.files("fieldslope.tui").joinpath("app.tcss").read_text(encoding="utf-8")
@@ -173,7 +174,7 @@ class FieldslopeApp(TypeAheadApp):
         seed: int | None = None,
         poll_interval: float = 0.5,
         clock: Callable[[], str] | None = None,
-        start_mode: str = "selection",
+        start_mode: str | None = None,
     ):
         super().__init__()
         self.study_dir = Path(study_dir) if study_dir else None
@@ -234,8 +235,8 @@ class FieldslopeApp(TypeAheadApp):
     def _open_worker(self, study_dir: Path) -> None:
         from fieldslope.tui.loading import open_study
 
-        protocol, readonly, warning = open_study(study_dir)
-        self.post_message(StudyReady(protocol, readonly, warning))
+        opened = open_study(study_dir)
+        self.post_message(StudyReady(opened.protocol, opened.readonly, opened.warning, opened.has_data))
 
     def on_study_ready(self, msg: StudyReady) -> None:
         self.protocol, self.readonly = msg.protocol, msg.readonly
@@ -246,7 +247,8 @@ class FieldslopeApp(TypeAheadApp):
         if msg.warning:
             self.notify(msg.warning, severity="warning", timeout=10)
         self._install_modes()
-        self.switch_mode(self.start_mode)
+        # a new study has nothing to show but the drop folder: it opens on Intake
+        self.switch_mode(self.start_mode or ("selection" if msg.has_data else "intake"))
         if self.pipeline is not None:
             self.pipeline.close()
         self.pipeline = RefreshPipeline(self, self.study_dir, bootstrap=self.bootstrap, seed=self.seed,

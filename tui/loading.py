@@ -9,17 +9,26 @@ from __future__ import annotations
 
 from pathlib import Path
 from types import MappingProxyType
-from typing import Callable
+from typing import Callable, NamedTuple
 
 from fieldslope.common.names import Q, Outcome
 from fieldslope.tui.snapshot import Sensitivity, Snapshot
 
 
-def open_study(study_dir: Path):
+class Opened(NamedTuple):
+    """What opening a study found: its protocol, whether it is read-only and why, and whether any batch
+    went into the record yet (a new study opens on the Intake screen)."""
+
+    protocol: object
+    readonly: bool
+    warning: str
+    has_data: bool
+
+
+def open_study(study_dir: Path) -> Opened:
     """Open the study and read from it once; fall back to read-only when it cannot be written.
 
-    Returns (protocol, readonly, warning). Raises FieldslopeError with one
-    sentence when the study cannot be read at all (missing, damaged).
+    Raises FieldslopeError with one sentence when the study cannot be read at all (missing, damaged).
     """
     from fieldslope.common.errors import FieldslopeError
     from fieldslope.schemas.study import Study
@@ -29,23 +38,28 @@ def open_study(study_dir: Path):
     except FieldslopeError as exc:
         try:
             study = Study.open(study_dir, readonly=True)
-            study.store.batches()
+            stored = _any_stored(study.store.batches())
         except FieldslopeError:
             raise exc from None
         _close(study)
-        return study.protocol, True, f"{exc} The dashboard is read-only until this is fixed."
+        return Opened(study.protocol, True, f"{exc} The dashboard is read-only until this is fixed.", stored)
     try:
-        study.store.batches()                  # a damaged file fails here, with the store's sentence
+        stored = _any_stored(study.store.batches())   # a damaged file fails here, with the store's sentence
         damaged = getattr(study.store, "damaged", "")   # the open-time check after an unclean shutdown
     finally:
         _close(study)
     if damaged:
-        return study.protocol, True, f"{damaged} The dashboard is read-only until this is fixed."
+        return Opened(study.protocol, True, f"{damaged} The dashboard is read-only until this is fixed.", stored)
     if not writable(study.db_path):
-        return study.protocol, True, (
+        return Opened(study.protocol, True, (
             f"{study.db_path}: you cannot write to the record store (file or folder permissions), so the "
-            "dashboard is read-only; ask the station manager for group write access to the study folder.")
-    return study.protocol, False, ""
+            "dashboard is read-only; ask the station manager for group write access to the study folder."), stored)
+    return Opened(study.protocol, False, "", stored)
+
+
+def _any_stored(batches) -> bool:
+    """True when some batch put rows into the record (stored or partly stored)."""
+    return any(b.outcome in (Outcome.STORED, Outcome.PARTIAL) for b in batches)
 
 
 def writable(db_path: Path) -> bool:

@@ -17,6 +17,7 @@ class StudyReady(Message):
     protocol: Any
     readonly: bool
     warning: str = ""
+    has_data: bool = True     # some batch went into the record (else the dashboard opens on Intake)
 
 
 @dataclass

@@ -95,6 +95,30 @@ class Snapshot:
             return []
         return sorted(s for s in self.table["season"].dropna().unique() if s != ALL)
 
+    def seasons_with_selection(self) -> list[str]:
+        """Seasons with a selection differential or gradient for some fitness measure (what the screens open on)."""
+        if self.table is None or self.table.empty:
+            return []
+        t = self.table[self.table["quantity"].isin((Q.DIFFERENTIAL, Q.GRADIENT))]
+        return sorted(s for s in t["season"].dropna().unique() if s != ALL)
+
+    def seasons_recorded(self) -> list[str]:
+        """Every season of the effective data, with estimates or not."""
+        f = self.frame
+        if f is None or f.empty or self.protocol.season_col not in f.columns:
+            return []
+        return sorted({str(s) for s in f[self.protocol.season_col].dropna()})
+
+    def why_no_estimates(self, season: str, fitness: str | None) -> str:
+        """One sentence: why ``season`` has no selection estimates (for ``fitness``, the measure in view)."""
+        f = self.cell_frame(season, ALL)
+        n = 0 if f is None else len(f)
+        measure = fitness or "fitness"
+        if n and fitness and self.missing_fitness(season, ALL, fitness) >= n:
+            return (f"Season {season} has no estimates yet: none of its {n} individuals has {measure} recorded; "
+                    "they follow once a census batch brings it.")
+        return f"Season {season} has no estimates yet: too few individuals with {measure} (n lists the notes)."
+
     def sites(self, season: str | None = None) -> list[str]:
         """``all`` (pooled) first, then each site with estimates in that season."""
         if self.table is None or self.table.empty:
@@ -153,7 +177,8 @@ class Snapshot:
         return f
 
     def missing_fitness(self, season: str, site: str, fitness: str) -> int:
-        """Individuals of the cell lacking this fitness value (a total as the estimators form it)."""
+        """Individuals of the cell lacking this fitness value (a total as the estimators form it); an individual
+        whose earlier component is 0 (it died) has nothing to lack in a later one and is not counted."""
         f = self.cell_frame(season, site)
         if f is None or f.empty:
             return 0
@@ -162,7 +187,13 @@ class Snapshot:
             from fieldslope.tui.bridge import design_from_protocol
 
             f = add_totals(f, design_from_protocol(self.protocol))
-        return int(f[fitness].isna().sum()) if fitness in f.columns else len(f)
+        if fitness not in f.columns:
+            return len(f)
+        missing = f[fitness].isna()
+        for earlier in self.protocol.earlier_components(fitness):
+            if earlier in f.columns:      # died before this component: nothing to count, not missing
+                missing &= f[earlier] != 0
+        return int(missing.sum())
 
     def notes_for(self, season: str, site: str, fitness: str) -> list[str]:
         """The estimators' notes about one cell (and its pooled estimate) for one fitness measure."""

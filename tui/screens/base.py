@@ -86,6 +86,16 @@ class StudyScreen(WorkerFailures, Screen):
     def show(self, snap: Snapshot) -> None:  # pragma: no cover - overridden
         pass
 
+    def view_notes(self) -> tuple[str, list[str]]:
+        """The title and the notes of what this screen shows now (key n lists them all)."""
+        return self.TITLE_TEXT, []
+
+    def action_notes(self) -> None:
+        from fieldslope.tui.screens.notes import NotesScreen
+
+        title, notes = self.view_notes()
+        self.app.push_screen(NotesScreen(title, notes))
+
     def mark_updating(self, what: str) -> None:
         """Mark panels (widgets with class ``panel``) as updating while a worker runs."""
         for panel in self.query(".panel"):

@@ -25,7 +25,8 @@ class Choices:
         Until the user picks a season, the latest one is followed as new seasons arrive.
         """
         seasons = snap.seasons()
-        latest = seasons[-1] if seasons else None
+        chosen = snap.seasons_with_selection() or seasons   # open on the latest season with S or β
+        latest = chosen[-1] if chosen else None
         if self.season not in seasons or not self.season_picked:
             if self.season != latest:
                 self.site = None
@@ -64,7 +65,21 @@ class Choices:
             out += [(f"{label} ", "$text-muted"), (value, "bold"), (f" [{key}]  ", "$text-muted")]
         if extra:
             out.append((extra, "$text-muted"))
+        later = self.later_without_estimates(snap) if "season" in parts else ""
+        if later:
+            out.append(("\n" + later, "$warning"))
         return assemble(*out)
+
+    def where(self) -> str:
+        """The view in words, for a dialog's title: season, site, fitness."""
+        site = "pooled" if self.site == ALL else str(self.site or "–")
+        return f"season {self.season or '–'}, {site}, {self.fitness or '–'}"
+
+    def later_without_estimates(self, snap: Snapshot) -> str:
+        """Why the latest season on record is not the one shown: it has no estimates yet ("" when it has)."""
+        have = set(snap.seasons_with_selection())
+        later = [s for s in snap.seasons_recorded() if s not in have and (self.season is None or s > str(self.season))]
+        return snap.why_no_estimates(later[-1], self.fitness) if later else ""
 
 
 class ChoiceKeys:

@@ -57,6 +57,10 @@ class HelpScreen(ModalScreen[None]):
         rows.sort(key=lambda r: (r[3], order[r[2]]))
         lines = [Content.assemble((f"{k:>12}  ", "bold $accent"), d) for k, d, _, _ in rows]
         lines.append(Content.assemble((f"{'ctrl+p':>12}  ", "bold $accent"), "Command palette (all actions, themes)"))
+        terms = getattr(self.under, "TERMS", ())
+        if terms:   # what the figures of this screen mean
+            lines.append(Content.styled("\nWhat the figures mean", "bold"))
+            lines += [Content.assemble((f"{term}: ", "bold $accent"), text) for term, text in terms]
         title = getattr(self.under, "TITLE_TEXT", "") or type(self.under).__name__.replace("Screen", "")
         with Vertical(id="help-box"):
             yield Static(Content.assemble(("Keys: ", "bold"), (title, "bold $primary")), id="help-title")

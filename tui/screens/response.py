@@ -30,6 +30,7 @@ from fieldslope.schemas.operator import login_name
 from fieldslope.tui.snapshot import ALL, Snapshot
 from fieldslope.tui.widgets.literal import LiteralTable, assemble
 from fieldslope.tui.widgets.pictures import fmt
+from fieldslope.tui.screens.selection import unit_of
 
 
 class ResponseScreen(ChoiceKeys, StudyScreen):
@@ -41,8 +42,18 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         Binding("w", "next_fitness", "Fitness", id="resp_fitness"),
         Binding("h", "enter_h2", "Set h²", id="resp_h2"),
         Binding("g", "focus_generations", "Project", id="resp_project"),
+        Binding("n", "notes", "Notes", id="resp_notes"),
         Binding("escape", "leave_field", "Leave field", id="resp_leave", show=False),
     ]
+    #: what the figures mean, listed under the keys in help (F1)
+    TERMS = (
+        ("unit", "the trait's unit from the protocol: S, R, Δz̄ and Price are in it."),
+        ("h²", "heritability; from: pedigree (animal model), parents (offspring on midparent) or entered."),
+        ("S", "selection differential in this season, site and fitness measure."),
+        ("R=h²S", "expected change of the mean in one generation (breeder's equation); R % of the mean."),
+        ("Δz̄=Gβ", "the multi-trait response, G times the gradients in trait units (Lande 1979)."),
+        ("Price", "the Robertson–Price response: covariance of relative fitness with the breeding value."),
+    )
 
     @dataclass
     class H2Saved(Message):
@@ -69,7 +80,9 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         self._genetics_version: int | None = None
         self._fitting: int | None = None  # the data version being fitted
         self._pedigree_text = ""
+        self._notes: list[str] = []       # every note of the view, for the notes dialog (n)
         self._r_pedigree: dict[str, float] = {}  # R = h²S with the pedigree h², per trait, for the projection
+        self._pedigree_extra: list[str] = []   # the animal models' own notes
 
     def body(self) -> ComposeResult:
         yield Static(id="resp-choices", classes="choices")
@@ -85,8 +98,8 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             yield Static(id="resp-projection", classes="notes panel")
 
     def on_mount(self) -> None:
-        self.query_one("#resp-table", DataTable).add_columns("trait", "h²", "h² 95 %", "from", "S", "R=h²S", "R %",
-                                                            "Gβ", "Price")
+        self.query_one("#resp-table", DataTable).add_columns("trait", "unit", "h²", "h² 95 %", "from", "S", "R=h²S",
+                                                            "R %", "Δz̄=Gβ", "Price")
 
     def action_focus_generations(self) -> None:
         self.query_one("#resp-k", Input).focus()
@@ -143,7 +156,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
                 mean = snap.value(**key, quantity=Q.MEAN, term=trait)
                 rp = None if r is None or mean is None or not mean["estimate"] else {
                     "estimate": 100 * r["estimate"] / mean["estimate"]}
-            table.add_row(trait, fmt(h2["estimate"]) if h2 else "–", span, _short_source(source),
+            table.add_row(trait, unit_of(snap, trait), fmt(h2["estimate"]) if h2 else "–", span, _short_source(source),
                           _e(s), _e(r), _e(rp), _e(rm), _e(price), key=trait)
         self._fit_pedigree(snap)
         self._show_pedigree_line()
@@ -161,9 +174,14 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             notes[first:first] = [brief(found)] if found else []
         head = "Δz̄ = G·β_raw (Lande 1979). "
         room = 4 * max(40, self.size.width - 4) - len(head) - 12   # the notes box is 4 lines high
+        self._notes = [*list(dict.fromkeys(notes)), *self._pedigree_extra, c.later_without_estimates(snap),
+                       *(snap.notes_for(c.season, c.site, c.fitness) if c.season is not None else ())]
         g_text = head + whole_sentences(list(dict.fromkeys(notes)), room)
         self.query_one("#resp-g", Static).update(assemble((g_text, "$text-muted")))
         self._projection()
+
+    def view_notes(self) -> tuple[str, list[str]]:
+        return f"Notes: {self.choices.where()}", [self._pedigree_text, *self._notes]
 
     # -- the animal models, in their own worker -------------------------------
     def _fit_pedigree(self, snap: Snapshot) -> None:
@@ -199,6 +217,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         self._with_pedigree = {k: dict(estimate=v) for k, v in zip(
             zip(table["season"], table["site"], table["fitness"], table["quantity"], table["term"]), table["estimate"])}
         notes = [n[-1] for n in msg.genetics.notes]
+        self._pedigree_extra = notes
         self._pedigree_text = msg.genetics.summary or (notes[0] if notes else "")
         if self.app.snapshot is not None:
             self.show(self.app.snapshot)   # refits if the data changed meanwhile
@@ -305,7 +324,7 @@ def whole_sentences(notes: list[str], limit: int) -> str:
     for note in notes:
         if out and sum(len(n) + 1 for n in out) + len(note) > limit - 55:
             left = len(notes) - len(out)
-            out.append(f"({left} more note{'' if left == 1 else 's'}: fieldslope estimate lists them all.)")
+            out.append(f"({left} more note{'' if left == 1 else 's'}: press n to read them all.)")
             break
         out.append(note)
     return " ".join(out)

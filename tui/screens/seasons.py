@@ -32,7 +32,8 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         Binding("t", "next_site", "Site (trend)", id="sea_site"),
         Binding("s", "next_season", "Season (trend)", id="sea_season"),
         Binding("v", "next_view", "View", id="sea_view"),
-        Binding("n", "focus_width", "Interval width", id="sea_width", show=False),
+        Binding("n", "notes", "Notes", id="sea_notes"),
+        Binding("i", "focus_width", "Interval width", id="sea_width", show=False),
         Binding("escape", "leave_field", "Leave field", id="sea_leave", show=False),
     ]
 
@@ -75,6 +76,16 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
     def action_leave_field(self) -> None:
         # the tab row takes the focus (the TabbedContent itself cannot), so the next keys are commands again
         self.query_one("#sea-tabs", TabbedContent).query_one(Tabs).focus()
+
+    def view_notes(self) -> tuple[str, list[str]]:
+        """The notes across seasons for the fitness measure in view, then those of the season in view."""
+        snap, c = self.app.snapshot, self.choices
+        if snap is None:
+            return "Notes", []
+        across = [getattr(n, "message", str(n)) for n in snap.notes
+                  if getattr(n, "season", "") == ALL and getattr(n, "fitness", "") == c.fitness]
+        this = snap.notes_for(c.season, c.site, c.fitness) if c.season is not None else []
+        return f"Notes: {c.fitness or '–'} across seasons", [c.later_without_estimates(snap), *across, *this]
 
     # -- across seasons ----------------------------------------------------
     def show(self, snap: Snapshot) -> None:

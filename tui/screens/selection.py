@@ -60,6 +60,32 @@ def axes_text(snap: Snapshot, key: dict) -> str:
     return "; ".join(axes) + "."
 
 
+def more_notes(left: int) -> list[str]:
+    """The pointer to the notes dialog when ``left`` notes are not shown inline (none when none are left)."""
+    return [f"({left} more note{'' if left == 1 else 's'}: press n to read them all.)"] if left > 0 else []
+
+
+def unit_of(snap: Snapshot, trait: str) -> str:
+    """The trait's unit from the protocol ("–" when it names none)."""
+    spec = snap.protocol.traits.get(trait)
+    return (spec.unit if spec is not None else "") or "–"
+
+
+def n_parts(snap: Snapshot, season: str, site: str, fitness: str) -> list[tuple[str, str]]:
+    """The sample size above the table: one n when the rows' n is the same, else both, each named."""
+    opp = snap.value(season, site, fitness, Q.OPPORTUNITY, "")
+    grads = [snap.value(season, site, fitness, Q.GRADIENT, t) for t in snap.protocol.trait_names]
+    rows = sorted({int(g["n"]) for g in grads if g and g["n"] is not None})
+    with_fitness = int(opp["n"]) if opp and opp["n"] is not None else None
+    if with_fitness is None and not rows:
+        return [("n ", "$text-muted"), ("–", "bold")]
+    if with_fitness is None or rows in ([], [with_fitness]):
+        return [("n ", "$text-muted"), (str(with_fitness if with_fitness is not None else rows[-1]), "bold")]
+    shown = "/".join(map(str, rows))
+    return [("n ", "$text-muted"), (str(with_fitness), "bold"), (" with fitness, ", "$text-muted"),
+            (shown, "bold"), (" with every trait (rows)", "$text-muted")]
+
+
 def no_estimates_sentence(snap: Snapshot) -> str:
     """Why the Selection screen has no figures yet, in one sentence."""
     if not snap.n_batches:
@@ -81,7 +107,24 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         Binding("w", "next_fitness", "Fitness", id="sel_fitness"),
         Binding("x", "next_trait", "Trait", id="sel_trait"),
         Binding("v", "next_view", "View", id="sel_view"),
+        Binding("n", "notes", "Notes", id="sel_notes"),
     ]
+    #: what the figures mean, listed under the keys in help (F1)
+    TERMS = (
+        ("n", "individuals in the estimate. The line above the table counts those with fitness (what I "
+              "uses); the rows count those with fitness and every trait measured (the regressions need "
+              "complete cases)."),
+        ("missing fitness", "individuals of the cell without this fitness value; an individual whose "
+                            "earlier component is 0 (it died) has no later one to miss and is not counted."),
+        ("I", "opportunity for selection: the variance of relative fitness (Arnold & Wade 1984). It bounds "
+              "selection on any trait: |S/σ| ≤ √I. I = 0 means every individual had the same fitness."),
+        ("S", "selection differential: fitness-weighted mean minus mean, in the trait's unit (column unit)."),
+        ("S/σ", "S in standard deviations of the trait."),
+        ("β", "selection gradient: change of relative fitness per standard deviation of the trait, the "
+              "other traits held constant (Lande & Arnold 1983)."),
+        ("γ, λ", "quadratic and correlational gradients per sd²; λ the eigenvalues of γ (Phillips & Arnold "
+                 "1989)."),
+    )
     VIEWS = ("sel-table", "sel-picture", "sel-surface")
 
     def __init__(self, *args, **kwargs):
@@ -103,7 +146,7 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             with TabPane("Surface", id="sel-surface"):
                 yield Static(id="sel-surf", classes="picture panel")
 
-    LINEAR_COLUMNS = ("trait", "S", "S/σ", "β", "95% CI", "p", "n")
+    LINEAR_COLUMNS = ("trait", "unit", "S", "S/σ", "β", "95% CI", "p", "n")
     GAMMA_COLUMNS = ("term", "γ", "95% CI", "p")
 
     def on_mount(self) -> None:
@@ -139,7 +182,9 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             self.query_one("#sel-summary", Static).update(no_estimates_sentence(snap))
             for t in ("#sel-linear", "#sel-gamma"):
                 self.query_one(t, DataTable).clear()
-            self.query_one("#sel-notes", Static).update(literal("\n".join(getattr(n, "message", str(n)) for n in snap.notes[:6]), keep_newlines=True))
+            notes = [getattr(n, "message", str(n)) for n in snap.notes]
+            self.query_one("#sel-notes", Static).update(literal("\n".join(notes[:6] + more_notes(len(notes) - 6)),
+                                                                keep_newlines=True))
             return
         self._summary(snap)
         self._tables(snap)
@@ -149,12 +194,8 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
     def _summary(self, snap: Snapshot) -> None:
         c = self.choices
         opp = snap.value(c.season, c.site, c.fitness, Q.OPPORTUNITY, "")
-        grads = [snap.value(c.season, c.site, c.fitness, Q.GRADIENT, t) for t in snap.protocol.trait_names]
-        ns = [g["n"] for g in grads if g and g["n"] is not None]
-        n = opp["n"] if opp and opp["n"] is not None else (max(ns) if ns else None)
-        missing = snap.missing_fitness(c.season, c.site, c.fitness)
-        parts = [("n ", "$text-muted"), (str(int(n)) if n is not None else "–", "bold"),
-                 ("  missing fitness ", "$text-muted"), (str(missing), "bold"),
+        parts = [*n_parts(snap, c.season, c.site, c.fitness),
+                 ("  missing fitness ", "$text-muted"), (str(snap.missing_fitness(c.season, c.site, c.fitness)), "bold"),
                  ("  I ", "$text-muted"), (fmt(opp["estimate"]) if opp else "–", "bold")]
         if snap.outliers_left_out:
             parts.append(("  open outliers left out", "bold $warning"))
@@ -163,6 +204,16 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
         elif snap.resamples < self.app.bootstrap:
             parts.append((f"  intervals from {snap.resamples} of {self.app.bootstrap} resamples …", "$accent"))
         self.query_one("#sel-summary", Static).update(assemble(*parts))
+
+    def view_notes(self) -> tuple[str, list[str]]:
+        snap, c = self.app.snapshot, self.choices
+        if snap is None:
+            return "Notes", []
+        later = c.later_without_estimates(snap)
+        if c.season is None:
+            return "Notes: no estimates yet", [no_estimates_sentence(snap), later,
+                                                *(getattr(n, "message", str(n)) for n in snap.notes)]
+        return f"Notes: {c.where()}", [later, *snap.notes_for(c.season, c.site, c.fitness)]
 
     def _tables(self, snap: Snapshot) -> None:
         c = self.choices
@@ -186,12 +237,12 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
             s_std = snap.value(**key, quantity=Q.DIFFERENTIAL_STD, term=trait)
             b = snap.value(**key, quantity=Q.GRADIENT, term=trait)
             n = b["n"] if b and b["n"] is not None else (s["n"] if s and s["n"] is not None else None)
-            lin.add_row(trait, est_text(s), est_text(s_std), est_text(b), ci_text(b, wait), p_text(b, wait),
+            lin.add_row(trait, unit_of(snap, trait), est_text(s), est_text(s_std), est_text(b), ci_text(b, wait), p_text(b, wait),
                         "–" if n is None else str(int(n)), *kept_in(Q.DIFFERENTIAL, trait),
                         *kept_in(Q.GRADIENT, trait), key=trait)
         for term in snap.terms(**key, quantity=Q.GRADIENT_LOGISTIC):
             v = snap.value(**key, quantity=Q.GRADIENT_LOGISTIC, term=term)
-            lin.add_row(f"{term} (logit β)", "", "", est_text(v), ci_text(v, wait), p_text(v, wait),
+            lin.add_row(f"{term} (logit β)", "", "", "", est_text(v), ci_text(v, wait), p_text(v, wait),
                         "–" if v["n"] is None else str(int(v["n"])), *([""] * (2 if kept is not None else 0)),
                         key=f"logit:{term}")
         gam.clear()
@@ -201,7 +252,8 @@ class SelectionScreen(ChoiceKeys, StudyScreen):
                 extra = [] if kept is None else [""] if quantity == Q.CANONICAL else kept_in(quantity, term)
                 gam.add_row(label + str(term), est_text(v), ci_text(v, wait) if quantity != Q.CANONICAL else "",
                             p_text(v, wait), *extra, key=f"{quantity}:{term}")  # λ: no interval, tested against γ = 0
-        notes = snap.notes_for(c.season, c.site, c.fitness)[:4]
+        every = snap.notes_for(c.season, c.site, c.fitness)
+        notes = every[:4] + more_notes(len(every) - 4)
         parts: list[tuple[str, str]] = []
         if kept is not None:
             kept_b = kept.gradients(c.season, c.site, c.fitness, snap.protocol.trait_names)
