@@ -72,3 +72,19 @@ async def test_notifications_leave_the_status_line_readable(filled):  # noqa: F8
         for toast in toasts:
             assert not toast.region.overlaps(status), (toast.region, status)
             assert toast.region.y + toast.region.height <= status.y or toast.region.y >= footer_top
+
+
+async def test_the_palette_has_one_screenshot_entry_and_it_names_the_study_folder(filled):  # noqa: F811
+    from tests.test_tui_screens import screen_text
+
+    app = make_app(filled.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_for(app, pilot, lambda: ready(app))
+        await pilot.press("ctrl+p")
+        await pilot.pause()
+        for ch in "screenshot":
+            await pilot.press(ch)
+        await pilot.pause(0.5)
+        text = screen_text(app)
+        assert "into the study's reports folder" in text
+        assert "Save an SVG 'screenshot'" not in text       # Textual's own entry, which did not say where

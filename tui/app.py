@@ -425,6 +425,12 @@ class FieldslopeApp(TypeAheadApp):
         if then:
             await self.screen.run_action(then)
 
+    def get_system_commands(self, screen):
+        """Textual's own palette entries, less its screenshot: ours ("Save a screenshot") says where it goes."""
+        for command in super().get_system_commands(screen):
+            if command.title != "Screenshot":
+                yield command
+
     def action_command_palette(self) -> None:
         if self.use_command_palette and not CommandPalette.is_open(self):
             self.push_screen(Palette(id="--command-palette"))
