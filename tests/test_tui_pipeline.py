@@ -107,7 +107,7 @@ async def test_a_screen_redraws_when_the_snapshot_changes(two_sites):
 
         def beta_shown() -> list[str]:
             table = app.screen.query_one("#sel-linear")
-            return [str(table.get_row(trait)[3]) for trait in traits]
+            return [str(table.get_row(trait)[4]) for trait in traits]
 
         assert beta_shown() == [fmt(0.4321), fmt(-0.8765)]     # the screen redrew itself; nobody called it
         await pilot.press("2")                          # a screen out of view catches up when shown again
