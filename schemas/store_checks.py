@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 
 from fieldslope.common.names import Kind
-from fieldslope.schemas.id_checks import how_they_differ, id_key, lookalikes
+from fieldslope.schemas.id_checks import how_they_differ, id_key, id_keys, lookalikes
 from fieldslope.schemas.protocol import Protocol
 from fieldslope.schemas.records import FlagNote, RowError
 from fieldslope.schemas.store_types import show
@@ -148,27 +148,31 @@ def lookalike_ids(protocol: Protocol, valid: pd.DataFrame, known_ids: set[str]) 
     naming the other ID, so a misread tag never becomes a new individual unnoticed."""
     if valid.empty:
         return []
-    ids = valid[protocol.id_col].astype(str).to_numpy(dtype=object)
+    id_text = valid[protocol.id_col].astype(str)
+    new_ids = list(set(id_text.unique()) - known_ids)
+    if not new_ids:
+        return []
+    on_record = lookalikes(known_ids, new_ids)
+    keys = id_keys(new_ids)
+    by_key: dict[str, set[str]] = {}
+    if len(set(keys)) < len(keys):         # some new IDs read like another new one (rare: only then a loop)
+        for key, ind in zip(keys, new_ids):
+            by_key.setdefault(key, set()).add(ind)
+    alike = {ind for inds in by_key.values() if len(inds) > 1 for ind in inds}
+    flagged = set(on_record) | alike
+    if not flagged:
+        return []
+    ids = id_text.to_numpy(dtype=object)
     seasons = valid[protocol.season_col].astype(str).to_numpy(dtype=object)
     rows = valid["_row"].to_numpy()
-    new = [i for i, ind in enumerate(ids) if ind not in known_ids]
-    if not new:
-        return []
-    on_record = lookalikes(known_ids, (ids[i] for i in new))
-    by_key: dict[str, set[str]] = {}
-    for i in new:
-        by_key.setdefault(id_key(ids[i]), set()).add(ids[i])
     out = []
-    for i in new:
+    for i in np.flatnonzero(id_text.isin(flagged).to_numpy()):
         ind = ids[i]
         twin = on_record.get(ind)
         if twin is not None:
             where = "is on record"
         else:
-            others = sorted(by_key[id_key(ind)] - {ind})
-            if not others:
-                continue
-            twin, where = others[0], "is also in this batch"
+            twin, where = sorted(by_key[id_key(ind)] - {ind})[0], "is also in this batch"
         out.append(FlagNote(int(rows[i]), ind, seasons[i], protocol.id_col, Kind.LOOKALIKE_ID, ind,
                             f"ID {ind!r} is new, but {twin!r} {where} and differs from it only in "
                             f"{how_they_differ(ind, twin)}; if they are one individual, correct the ID (the row moves "
