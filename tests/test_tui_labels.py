@@ -86,3 +86,14 @@ async def test_missing_fitness_does_not_count_the_dead(one_season):
         c = app.screen.choices
         assert (c.fitness, c.site) == ("clutch", "Gull Flat")
         assert "missing fitness 1 " in screen_text(app)     # the live beetle nobody counted; not the dead
+
+
+async def test_every_screens_key_bar_keeps_help_and_the_screen_keys_at_80_columns(one_season):
+    app = make_app(one_season.root)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await selection(app, pilot)
+        for key in "12345":
+            await pilot.press(key)
+            await pilot.pause(0.2)
+            bar = "".join(s.text for s in app.screen._compositor.render_strips()[-1:])
+            assert "F1 Help" in bar and "1-5" in bar and "^p palette" in bar, (key, bar)

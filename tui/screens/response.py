@@ -42,7 +42,8 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
         Binding("w", "next_fitness", "Fitness", id="resp_fitness"),
         Binding("h", "enter_h2", "Set h²", id="resp_h2"),
         Binding("g", "focus_generations", "Project", id="resp_project"),
-        Binding("n", "notes", "Notes", id="resp_notes"),
+        # not in the key bar (it would push Help off at 80 columns): the notes box says "press n", F1 lists it
+        Binding("n", "notes", "Notes", id="resp_notes", show=False),
         Binding("escape", "leave_field", "Leave field", id="resp_leave", show=False),
     ]
     #: what the figures mean, listed under the keys in help (F1)
@@ -172,7 +173,7 @@ class ResponseScreen(ChoiceKeys, StudyScreen):
             found = [d for d in disagreements(self._pedigree_table, gen.rows, gen.h2) if d.fitness == (c.fitness or "")]
             first = sum(getattr(n, "quantity", "") == Q.RESPONSE_MULTI for n in picked)   # after which G
             notes[first:first] = [brief(found)] if found else []
-        head = "Δz̄ = G·β_raw (Lande 1979). "
+        head = "Δz̄ = G·β_raw (Lande 1979); n lists every note. "
         room = 4 * max(40, self.size.width - 4) - len(head) - 12   # the notes box is 4 lines high
         self._notes = [*list(dict.fromkeys(notes)), *self._pedigree_extra, c.later_without_estimates(snap),
                        *(snap.notes_for(c.season, c.site, c.fitness) if c.season is not None else ())]

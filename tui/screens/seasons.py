@@ -32,7 +32,8 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         Binding("t", "next_site", "Site (trend)", id="sea_site"),
         Binding("s", "next_season", "Season (trend)", id="sea_season"),
         Binding("v", "next_view", "View", id="sea_view"),
-        Binding("n", "notes", "Notes", id="sea_notes"),
+        # not in the key bar (it would push Help off at 80 columns): the summary below says "n", F1 lists it
+        Binding("n", "notes", "Notes", id="sea_notes", show=False),
         Binding("i", "focus_width", "Interval width", id="sea_width", show=False),
         Binding("escape", "leave_field", "Leave field", id="sea_leave", show=False),
     ]
@@ -143,7 +144,8 @@ class SeasonsScreen(ChoiceKeys, StudyScreen):
         if not summary:
             summary.append(Content("Across-season summaries need at least two seasons with gradients at a site."))
         summary.append(assemble(("Weighted mean: weights 1/se²; τ²: DerSimonian–Laird between-season "
-                                         "variance; a mean row's interval is the random-effects one when τ² > 0, else ± 1.96 se.", "$text-muted")))
+                                         "variance; a mean row's interval is the random-effects one when τ² > 0, else ± 1.96 se. "
+                                 "n lists the notes.", "$text-muted")))
         self.query_one("#sea-summary", Static).update(Content("\n").join(summary))
 
     # -- this season, batch by batch ---------------------------------------
