@@ -75,7 +75,8 @@ def natural_key(text: str) -> list:
 
     Parameters: ``text``. Returns the key (a list). Source: none (bookkeeping, no published method).
     """
-    return [int(part) if part.isdigit() else part for part in re.split(r"(\d+)", text)]
+    # isdecimal, not isdigit: a superscript '¹' is a digit that int() refuses and \d does not split off
+    return [int(part) if part.isdecimal() else part for part in re.split(r"(\d+)", text)]
 
 
 MISSING_LABEL = "(blank)"

@@ -85,21 +85,22 @@ def test_command_line_takes_any_text_without_a_crash_or_a_raw_control(tag, site,
         path = folder / _file_name(name)
         path.write_bytes(_sheet([tag, tag + "2"], site))
         code, _ = _cli("--study", root, "check", str(path))
-        code, out = _cli("--study", root, "import", str(path), "--operator", operator, "--accept-valid")
+        # --option=VALUE: a value such as '-:' would otherwise be read as an option (a usage error, exit 2)
+        code, out = _cli("--study", root, "import", str(path), f"--operator={operator}", "--accept-valid")
         assert code in (0, 1)
         code, out = _cli("--study", root, "flags")
         assert code == 0
         ids = [int(line.split()[0][1:]) for line in out.splitlines() if line.startswith("#")]
         if ids:
-            code, _ = _cli("--study", root, "resolve", str(ids[0]), "--keep", "--reason", reason,
-                           "--operator", operator)
+            code, _ = _cli("--study", root, "resolve", str(ids[0]), "--keep", f"--reason={reason}",
+                           f"--operator={operator}")
         code, _ = _cli("--study", root, "flags", "--all")
         assert code == 0
         code, out = _cli("--study", root, "history", tag)
         if code == 0:
             assert out.startswith(escape_controls(tag) + ": ")
         _cli("--study", root, "estimate", "--bootstrap", "0")
-        _cli("--study", root, "estimate", "--bootstrap", "0", "--site", site)
+        _cli("--study", root, "estimate", "--bootstrap", "0", f"--site={site}")
 
 
 async def _walk_the_dashboard(root: Path, shown: list[str]) -> None:

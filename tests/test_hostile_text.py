@@ -180,3 +180,12 @@ async def test_hostile_ids_and_cells_leave_every_screen_running(hostile_study):
         app.notify("[/] \x1b[2J[@click=app.quit]x")   # notifications are plain text too
         await pilot.pause()
         assert app.is_running
+
+
+def test_site_names_with_superscript_or_other_script_digits_sort_without_a_crash():
+    """A site named '¹' or 'Plot ²' (digits to str.isdigit, not decimals to int) sorts as text; numbers in
+    names still sort by value ('2' before '10'), in any script's decimal digits."""
+    from fieldslope.analysis.cells import natural_key
+
+    names = ["Plot 10", "¹", "Plot 2", "Plot ²", "Plot ٣"]
+    assert sorted(names, key=natural_key) == ["Plot 2", "Plot ٣", "Plot 10", "Plot ²", "¹"]
