@@ -172,10 +172,30 @@ class SeasonResampler:
 
     # ----- bootstrap --------------------------------------------------------------------------
 
-    def boot_chunk(self, counts: list[np.ndarray]) -> dict[tuple, np.ndarray]:
-        """Replicates keyed (site, fitness, quantity, term) for counts (one B x n matrix per cell)."""
+    def stream_moments(self, counts: list[np.ndarray]) -> list[np.ndarray | None]:
+        """The moment sums C @ F of every cell (distinct columns) for counts given as bytes (B x n each),
+        worked out a slab of individuals at a time: the floats of a slab's counts stay near MEMORY_BUDGET,
+        and each slab of F is read once for all B resamples however large n is."""
+        out: list[np.ndarray | None] = []
+        for C, F in zip(counts, self.features):
+            if F is None:
+                out.append(None)
+                continue
+            rows = max(1, MEMORY_BUDGET // (8 * max(1, len(C))))
+            M = None
+            for lo in range(0, C.shape[1], rows):
+                part = C[:, lo : lo + rows].astype(np.float64) @ F[lo : lo + rows]
+                M = part if M is None else M + part
+            out.append(M)
+        return out
+
+    def boot_chunk(self, counts: list[np.ndarray], sums: list[np.ndarray | None] | None = None) -> dict[tuple, np.ndarray]:
+        """Replicates keyed (site, fitness, quantity, term) for counts (one B x n matrix per cell); ``sums``
+        may give their moment sums C @ F (``stream_moments``) when worked out already."""
         out: dict[tuple, np.ndarray] = {}
-        moments = [None if F is None else (C @ F)[:, cols] for C, F, cols in zip(counts, self.features, self.expand)]
+        if sums is None:
+            sums = [None if F is None else C @ F for C, F in zip(counts, self.features)]
+        moments = [None if M is None else M[:, cols] for M, cols in zip(sums, self.expand)]
         for f in self.preps:
             self.boot_opp(f, moments, out)
             self.boot_single(f, moments, out)
@@ -296,8 +316,10 @@ def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int,
 
     Resamples are drawn CHUNK at a time from one stream each (``chunk_rng``) and worked on in blocks
     of ``block_size`` resamples; when a block is smaller than a stream, the stream's counts are kept
-    as bytes until their block's turn, so memory stays near MEMORY_BUDGET and the cost grows linearly
-    with n, while the resamples stay those of the seed.
+    as bytes until their block's turn, and the moment product of the whole stream is taken slab by slab
+    of individuals (``stream_moments``), so memory stays near MEMORY_BUDGET and the cost grows linearly
+    with n (the features are read once per stream, not once per block), while the resamples stay those
+    of the seed.
 
     Parameters: a ``SeasonResampler``, the season, resamples ``B``, the seed and ``tick``. Returns key -> B
     replicates. Source: resampling individuals within cells, Efron & Tibshirani 1993, An Introduction to the
@@ -310,9 +332,12 @@ def bootstrap_season(resampler: SeasonResampler, season: str, B: int, seed: int,
         rng = chunk_rng(seed, season, 0, i)
         compact = block < size
         counts = [draw_counts(rng, n, size, np.uint8 if compact else np.float64) for n in resampler.n_cells]
+        sums = resampler.stream_moments(counts) if compact else None
         for lo in range(0, size, block):
             part = [c[lo : lo + block].astype(np.float64) for c in counts] if compact else counts
-            for key, val in resampler.boot_chunk(part).items():
+            got = resampler.boot_chunk(part, None if sums is None else
+                                       [None if M is None else M[lo : lo + block] for M in sums])
+            for key, val in got.items():
                 pieces.setdefault(key, []).append(val)
             tick(len(part[0]))
     return {k: np.concatenate(v) for k, v in pieces.items()}

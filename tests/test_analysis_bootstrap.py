@@ -289,3 +289,34 @@ def test_batched_logistic_stops_within_its_stated_tolerance(slope):
         assert np.max(np.abs(beta[b] - fit.params)) <= RESULT_TOL * max(1.0, np.max(np.abs(fit.params)))
         mine = beta[b, 1:] * mean_pq[b] / mean_w[b]
         assert np.max(np.abs(mine - grad)) <= RESULT_TOL * max(1.0, np.max(np.abs(grad)))
+
+
+def test_moment_sums_worked_out_slab_by_slab_give_the_resamples_statsmodels_fits(monkeypatch):
+    """Counts kept as bytes and multiplied a few individuals at a time (a tiny memory budget: blocks of
+    two resamples, slabs of three rows) give the moment sums of one whole product, and every resample's
+    gradients equal statsmodels OLS refits of the drawn individuals (the bootstrap as weighted moments,
+    Efron & Tibshirani 1993, An Introduction to the Bootstrap)."""
+    import fieldslope.analysis.resample as resample
+
+    frame = small_season()
+    design = Design(traits=TRAITS, fitness={"surv": "binary", "seeds": "count"})
+    cells = split_cells(frame, design, ["surv", "seeds"])["s1"]
+    preps = {f: [prepare(c, f, design.fitness[f], TRAITS) for c in cells] for f in ("surv", "seeds")}
+    rs = SeasonResampler(preps, TRAITS, pooled=True, logistic_blocks={("east", "surv"), ("all", "surv")})
+    idx = [np.random.default_rng(3).integers(0, len(c.z), size=(7, len(c.z))) for c in cells]
+    counts = [counts_from_indices(i, len(c.z)) for i, c in zip(idx, cells)]
+    monkeypatch.setattr(resample, "MEMORY_BUDGET", 8 * 7 * 3)
+    sums = rs.stream_moments([c.astype(np.uint8) for c in counts])
+    for M, C, F in zip(sums, counts, rs.features):
+        assert np.allclose(M, C @ F, rtol=1e-13, atol=1e-12)
+    whole = rs.boot_chunk(counts)
+    parts = [rs.boot_chunk([c[lo : lo + 2] for c in counts], [M[lo : lo + 2] for M in sums]) for lo in range(0, 7, 2)]
+    key = ("all", "seeds", "gradient", "wing")
+    got = np.concatenate([p[key] for p in parts])
+    assert np.allclose(got, whole[key], rtol=1e-12)
+    by_site = [frame[frame.site == s].reset_index(drop=True) for s in ("east", "west")]
+    for b in range(7):
+        ref = sm_estimates([d.iloc[i[b]] for d, i in zip(by_site, idx)], "seeds")
+        assert got[b] == pytest.approx(ref["gradient"][1], rel=1e-8)
+    logit = np.concatenate([p[("east", "surv", "gradient_logistic", "mass")] for p in parts])
+    assert np.allclose(logit, whole[("east", "surv", "gradient_logistic", "mass")], rtol=1e-10)
