@@ -225,6 +225,18 @@ def replicates(spec: Spec, cells: list[Cell], linear: list[Cell], ok: np.ndarray
             out[(site, fitness, Q.QUADRATIC_GLM if j == kk else Q.CORRELATIONAL_GLM, term)] = gam[:, j, kk]
 
 
+def start_columns(F: np.ndarray, K: int, score: np.ndarray, info: np.ndarray):
+    """Recipe (``moments.FeatureMatrix.add_columns``) of the columns score f~ and info f~_a f~_b (a <= b) of
+    the first K features at a full-sample fit, from its per-individual score and information weights."""
+    a, b = np.triu_indices(K)
+
+    def make(i0: int, i1: int) -> np.ndarray:
+        f = F[i0:i1]
+        return np.column_stack([f[:, :K] * score[i0:i1, None], (f[:, a] * f[:, b]) * info[i0:i1, None]])
+
+    return make
+
+
 class BlockBootstrap:
     """The generalized-gradient replicates of a season's blocks, for ``resample.SeasonResampler``.
 
@@ -255,10 +267,8 @@ class BlockBootstrap:
                     eta = fit.eta[here]
                     mu = spec.family.mean(eta)
                     theta0 = np.linalg.lstsq(F[:, :K], eta, rcond=None)[0]  # exact: eta lies in their span
-                    a, b = np.triu_indices(K)
-                    info = (F[:, a] * F[:, b]) * spec.family.info(mu)[:, None]
-                    score = F[:, :K] * spec.family.score(s.W, mu)[:, None]
-                    cols = features[c].add_columns(s.rows, np.column_stack([score, info]))
+                    cols = features[c].add_columns(s.rows, start_columns(F, K, spec.family.score(s.W, mu),
+                                                                         spec.family.info(mu)))
                     self.start[(site, f, c, K)] = (theta0, cols)
 
     def cells(self, site, f, cs, counts, moments, mm, K) -> list[Cell]:

@@ -13,6 +13,7 @@ the same model, so nothing is approximated).
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -68,62 +69,84 @@ def opp_columns(wt: np.ndarray) -> np.ndarray:
 
 
 class FeatureMatrix:
-    """The cell's feature matrix (individuals x columns) built part by part.
+    """The cell's feature matrix (individuals x columns), built part by part and never held whole.
 
-    Columns that repeat an earlier one exactly (the constant, a trait's powers shared by several
-    fitness measures) are stored once: ``matrix()`` holds the distinct columns and ``columns`` says
-    which distinct column each position is, so ``(C @ matrix())[:, columns]`` are the moment sums of
-    every position (about half the memory and work of the full matrix in a typical study)."""
+    Each part is kept as a recipe, ``make(i0, i1)``: its columns for the entries i0:i1 of its sample (rows
+    ``rows`` of the cell, sorted; zero elsewhere), computed from per-individual values by elementwise
+    arithmetic only, so any slab of rows has exactly the numbers of the whole. Columns that repeat an
+    earlier one exactly (the constant, a trait's powers shared by several fitness measures) are kept once:
+    ``slab(lo, hi)`` holds the distinct columns of cell rows lo:hi and ``columns`` says which distinct
+    column each position is, so ``(C @ slab)[:, columns]`` summed over slabs are the moment sums of every
+    position. Memory is that of the recipes' inputs (a few numbers per individual), not n x columns."""
 
     def __init__(self, n_rows: int):
         self.n_rows = n_rows
-        self.distinct: list[np.ndarray] = []
+        self.groups: list[tuple[np.ndarray, object]] = []  # (rows, make) per part
+        self.source: list[tuple[int, int]] = []  # distinct column -> (part, its column there)
         self.where: list[int] = []
-        self.seen: dict[tuple, list[int]] = {}
+        self.seen: dict[bytes, int] = {}
         self.width = 0
 
     def add(self, sample: Sample, kind: str, quadratic: bool = True) -> Part:
-        zt, m0, s0, w0, wt = prescale(sample)
-        if kind == "multi":
-            cols = multi_columns(zt, wt, quadratic)
-        elif kind == "single":
-            cols = single_columns(zt, wt)
-        else:
-            cols = opp_columns(wt)
-        return Part(self.add_columns(sample.rows, cols), m0, s0, w0, sample.rows)
+        _, m0, s0, w0, _ = prescale(sample)
 
-    def add_columns(self, rows: np.ndarray, cols: np.ndarray) -> slice:
-        """Columns given for ``rows`` (zero elsewhere); returns where they sit."""
-        full = np.zeros((self.n_rows, cols.shape[1]))
-        full[rows] = cols
-        for col in full.T:
-            self.where.append(self.place(np.ascontiguousarray(col)))
+        def make(i0: int, i1: int) -> np.ndarray:
+            zt, wt = (sample.z[i0:i1] - m0) / s0, sample.W[i0:i1] / w0
+            if kind == "multi":
+                return multi_columns(zt, wt, quadratic)
+            if kind == "single":
+                return single_columns(zt, wt)
+            return opp_columns(wt)
+
+        return Part(self.add_columns(sample.rows, make), m0, s0, w0, sample.rows)
+
+    def add_columns(self, rows: np.ndarray, make) -> slice:
+        """Columns ``make(i0, i1)`` of the entries i0:i1 of ``rows`` (sorted cell rows; zero elsewhere);
+        returns where they sit."""
+        cols = make(0, len(rows))
+        group = len(self.groups)
+        self.groups.append((rows, make))
+        full = np.zeros(self.n_rows)
+        for j in range(cols.shape[1]):
+            full[rows] = cols[:, j]
+            self.where.append(self.place(full, group, j))
         self.width += cols.shape[1]
         return slice(self.width - cols.shape[1], self.width)
 
-    def place(self, col: np.ndarray) -> int:
-        """Index of the distinct column equal to ``col``, added if new."""
-        key = (float(col.sum()), col[:: max(1, len(col) // 64)].tobytes())
-        for i in self.seen.get(key, []):
-            if np.array_equal(self.distinct[i], col):
-                return i
-        self.distinct.append(col)
-        self.seen.setdefault(key, []).append(len(self.distinct) - 1)
-        return len(self.distinct) - 1
+    def place(self, col: np.ndarray, group: int, j: int) -> int:
+        """Index of the distinct column equal to ``col`` (by a 128-bit digest of its bytes), added if new."""
+        key = hashlib.blake2b(col.tobytes(), digest_size=16).digest()
+        if key not in self.seen:
+            self.seen[key] = len(self.source)
+            self.source.append((group, j))
+        return self.seen[key]
 
     @property
     def columns(self) -> np.ndarray:
         return np.array(self.where, dtype=np.intp)
 
-    def matrix(self) -> np.ndarray:
-        """The distinct columns (individuals x distinct columns); call once, as the last step (each column
-        is let go once copied, so the matrix and its columns are not held twice)."""
-        out = np.empty((self.n_rows, len(self.distinct)))
-        for i in range(len(self.distinct)):
-            out[:, i] = self.distinct[i]
-            self.distinct[i] = None
-        self.seen.clear()
+    @property
+    def distinct(self) -> int:
+        return len(self.source)
+
+    def slab(self, lo: int, hi: int) -> np.ndarray:
+        """The distinct columns of cell rows lo:hi ((hi - lo) x distinct columns)."""
+        out = np.zeros((hi - lo, len(self.source)))
+        wanted: dict[int, tuple[list[int], list[int]]] = {}
+        for i, (g, j) in enumerate(self.source):
+            wanted.setdefault(g, ([], []))
+            wanted[g][0].append(i)
+            wanted[g][1].append(j)
+        for g, (dest, cols) in wanted.items():
+            rows, make = self.groups[g]
+            i0, i1 = np.searchsorted(rows, [lo, hi])
+            if i1 > i0:
+                out[np.ix_(rows[i0:i1] - lo, dest)] = make(int(i0), int(i1))[:, cols]
         return out
+
+    def matrix(self) -> np.ndarray:
+        """The whole matrix of distinct columns (individuals x distinct columns): for checks and small cells."""
+        return self.slab(0, self.n_rows)
 
 
 # ----- from moment sums to estimates ---------------------------------------------------------

@@ -145,7 +145,6 @@ class SeasonResampler:
         # generalized gradients (0/1 and count fitness): batched fits of their own, on the same resamples
         self.glm = BlockBootstrap(glm_specs or {}, preps, self.parts, self.features, traits, self.block_cells)
         self.expand = [None if fm is None else fm.columns for fm in self.features]  # position -> distinct column
-        self.features = [None if fm is None else fm.matrix() for fm in self.features]
 
     def add_first_step(self, site: str, f: str, c: int, beta: np.ndarray) -> None:
         """Columns p(1-p) x~_a x~_b, (y - p) x~ and p(1-p)(1-2p) x~_a x~_b x~_c (a <= b <= c) at the
@@ -160,9 +159,13 @@ class SeasonResampler:
         a, b = np.triu_indices(Xt.shape[1])
         pq = p_hat * (1 - p_hat)
         i, j, l = np.array(list(combinations_with_replacement(range(Xt.shape[1]), 3))).T
-        cols = np.column_stack([pq[:, None] * Xt[:, a] * Xt[:, b], (s.W - p_hat)[:, None] * Xt,
-                                (pq * (1 - 2 * p_hat))[:, None] * Xt[:, i] * Xt[:, j] * Xt[:, l]])
-        self.parts[c][(f, "logit", site)] = self.features[c].add_columns(s.rows, cols)
+
+        def make(i0: int, i1: int) -> np.ndarray:  # elementwise from the kept p_hat: any slab, the same numbers
+            X, ph, q = Xt[i0:i1], p_hat[i0:i1], pq[i0:i1]
+            return np.column_stack([q[:, None] * X[:, a] * X[:, b], (s.W[i0:i1] - ph)[:, None] * X,
+                                    (q * (1 - 2 * ph))[:, None] * X[:, i] * X[:, j] * X[:, l]])
+
+        self.parts[c][(f, "logit", site)] = self.features[c].add_columns(s.rows, make)
         self.logit_theta[(site, f, c)] = theta
 
     def block_cells(self, f: str, site: str) -> list[int]:
@@ -174,17 +177,18 @@ class SeasonResampler:
 
     def stream_moments(self, counts: list[np.ndarray]) -> list[np.ndarray | None]:
         """The moment sums C @ F of every cell (distinct columns) for counts given as bytes (B x n each),
-        worked out a slab of individuals at a time: the floats of a slab's counts stay near MEMORY_BUDGET,
-        and each slab of F is read once for all B resamples however large n is."""
+        worked out a slab of individuals at a time (each slab of F made from its recipes, ``FeatureMatrix.slab``):
+        the slab's counts as floats and its features each stay near half of MEMORY_BUDGET, F is never held
+        whole, and each slab serves all B resamples however large n is."""
         out: list[np.ndarray | None] = []
-        for C, F in zip(counts, self.features):
-            if F is None:
+        for C, fm in zip(counts, self.features):
+            if fm is None:
                 out.append(None)
                 continue
-            rows = max(1, MEMORY_BUDGET // (8 * max(1, len(C))))
+            rows = max(1, MEMORY_BUDGET // (16 * max(len(C), fm.distinct, 1)))  # each half of the budget
             M = None
             for lo in range(0, C.shape[1], rows):
-                part = C[:, lo : lo + rows].astype(np.float64) @ F[lo : lo + rows]
+                part = C[:, lo : lo + rows].astype(np.float64) @ fm.slab(lo, min(lo + rows, C.shape[1]))
                 M = part if M is None else M + part
             out.append(M)
         return out
@@ -194,7 +198,7 @@ class SeasonResampler:
         may give their moment sums C @ F (``stream_moments``) when worked out already."""
         out: dict[tuple, np.ndarray] = {}
         if sums is None:
-            sums = [None if F is None else C @ F for C, F in zip(counts, self.features)]
+            sums = self.stream_moments(counts)
         moments = [None if M is None else M[:, cols] for M, cols in zip(sums, self.expand)]
         for f in self.preps:
             self.boot_opp(f, moments, out)

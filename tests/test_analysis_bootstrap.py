@@ -308,7 +308,7 @@ def test_moment_sums_worked_out_slab_by_slab_give_the_resamples_statsmodels_fits
     monkeypatch.setattr(resample, "MEMORY_BUDGET", 8 * 7 * 3)
     sums = rs.stream_moments([c.astype(np.uint8) for c in counts])
     for M, C, F in zip(sums, counts, rs.features):
-        assert np.allclose(M, C @ F, rtol=1e-13, atol=1e-12)
+        assert np.allclose(M, C @ F.matrix(), rtol=1e-13, atol=1e-12)
     whole = rs.boot_chunk(counts)
     parts = [rs.boot_chunk([c[lo : lo + 2] for c in counts], [M[lo : lo + 2] for M in sums]) for lo in range(0, 7, 2)]
     key = ("all", "seeds", "gradient", "wing")
@@ -320,3 +320,18 @@ def test_moment_sums_worked_out_slab_by_slab_give_the_resamples_statsmodels_fits
         assert got[b] == pytest.approx(ref["gradient"][1], rel=1e-8)
     logit = np.concatenate([p[("east", "surv", "gradient_logistic", "mass")] for p in parts])
     assert np.allclose(logit, whole[("east", "surv", "gradient_logistic", "mass")], rtol=1e-10)
+
+
+def test_feature_slabs_have_exactly_the_numbers_of_the_whole_matrix():
+    """Any slab of a cell's features, made from its recipes, equals those rows of the whole matrix bit for
+    bit (elementwise arithmetic only), so the moment sums do not depend on the memory budget."""
+    frame = small_season()
+    design = Design(traits=TRAITS, fitness={"surv": "binary", "seeds": "count"})
+    cells = split_cells(frame, design, ["surv", "seeds"])["s1"]
+    preps = {f: [prepare(c, f, design.fitness[f], TRAITS) for c in cells] for f in ("surv", "seeds")}
+    rs = SeasonResampler(preps, TRAITS, pooled=True, logistic_blocks={("west", "surv"), ("all", "surv")})
+    for fm in rs.features:
+        whole = fm.matrix()
+        assert whole.shape == (fm.n_rows, fm.distinct) and fm.distinct < len(fm.columns)  # repeats kept once
+        for lo, hi in ((0, 1), (3, 17), (17, fm.n_rows)):
+            assert np.array_equal(fm.slab(lo, hi), whole[lo:hi])
