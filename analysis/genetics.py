@@ -209,8 +209,8 @@ def use_pedigree(genetics: Genetics, used_h2: dict, traits) -> list[tuple]:
     pairs = len(traits) * (len(traits) - 1) // 2
     if pairs and len(genetics.rg) == pairs and all(t in genetics.h2 for t in traits):
         notes.append((ALL, ALL, "", Q.RESPONSE_MULTI,
-                      "Delta z = G beta uses G from the animal model: pedigree heritabilities and genetic correlations."))
+                      "Δz̄ = Gβ uses G from the animal model: pedigree heritabilities and genetic correlations."))
     elif genetics.rg:
         notes.append((ALL, ALL, "", Q.RESPONSE_MULTI,
-                      "Delta z = G beta uses the pedigree genetic correlations where they were estimated."))
+                      "Δz̄ = Gβ uses the pedigree genetic correlations where they were estimated."))
     return notes
