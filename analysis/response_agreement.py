@@ -120,7 +120,7 @@ def disagreements(table: pd.DataFrame, price_rows: list[dict], h2: dict[str, tup
         g = mine[mine["quantity"] == Q.RESPONSE_MULTI].dropna(subset=["estimate"])
         if len(g):
             preds.append(Prediction(LANDE, tuple(float(v) for v in g["estimate"]),
-                                    tuple(float(v) if v == v and v is not None else math.nan for v in g["se"])))
+                                    tuple(pd.to_numeric(g["se"], errors="coerce").astype(float))))
         preds.append(Prediction(PRICE, (float(row["estimate"]),), (float(row["se"]),)))
         pairs = tuple((a.name, b.name) for i, a in enumerate(preds) for b in preds[i + 1:] if _differ(a, b))
         if pairs:
